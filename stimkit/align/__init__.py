@@ -1,0 +1,1 @@
+"""Score-to-recording alignment: score templates, audio chroma, multiscale DTW, warping."""

@@ -1,0 +1,1 @@
+"""The bundled scenario: original example scores, a rendered session, the demo run."""

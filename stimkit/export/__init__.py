@@ -1,0 +1,1 @@
+"""Hand-off files: atomic, deterministic writers (tables), BIDS files (bids), provenance."""

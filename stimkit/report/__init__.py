@@ -1,0 +1,1 @@
+"""Report: the overview figure and the self-contained HTML page."""

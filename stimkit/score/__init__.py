@@ -1,0 +1,1 @@
+"""Score side: loading (parse), structural boundaries (markings) and the nominal tempo map."""

@@ -1,0 +1,1 @@
+"""First statistics for physiologists: feature change points, windows around events, coincidence."""

@@ -1,0 +1,1 @@
+"""Timeline: merging boundaries onto the recording, clock sync, pieces inside a long recording."""

@@ -1,0 +1,61 @@
+"""Core contracts: TimeMap and the atomic, deterministic writers."""
+
+import gzip
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from stimkit.errors import InputError, StimkitError
+from stimkit.export.tables import OutputSet, format_tsv, gzip_bytes
+from stimkit.timemap import TimeMap
+
+
+def test_timemap_roundtrip_and_extrapolation():
+    tm = TimeMap([0, 4, 8], [0, 2, 6], src="score_qn", dst="nominal")
+    q = np.array([-4, 0, 2, 4, 6, 8, 12])
+    t = tm(q)
+    np.testing.assert_allclose(t, [-2, 0, 1, 2, 4, 6, 10])
+    np.testing.assert_allclose(tm.inverse()(t), q)
+    assert tm(2.0) == pytest.approx(1.0)
+
+
+def test_timemap_rejects_non_monotone():
+    with pytest.raises(StimkitError):
+        TimeMap([0, 1, 1], [0, 1, 2])
+
+
+def test_timemap_compose():
+    a = TimeMap([0, 4], [0, 2], src="score_qn", dst="recording")
+    b = TimeMap.linear(offset=10.0, slope=1.0001, src="recording", dst="onset", span=100)
+    c = a.then(b)
+    assert c.src == "score_qn" and c.dst == "onset"
+    assert c(4.0) == pytest.approx(10.0 + 2 * 1.0001)
+
+
+def test_tsv_format_na_and_floats():
+    df = pd.DataFrame({"onset": [0.5, np.nan], "label": ["a\tb", None], "n": [1, 2]})
+    text = format_tsv(df, float_format="%.3f")
+    assert text == "onset\tlabel\tn\n0.500\ta b\t1\nn/a\tn/a\t2\n"
+
+
+def test_gzip_is_deterministic():
+    assert gzip_bytes(b"abc") == gzip_bytes(b"abc")
+    assert gzip.decompress(gzip_bytes(b"abc")) == b"abc"
+
+
+def test_outputset_commits_all_or_nothing(tmp_path):
+    with pytest.raises(RuntimeError):
+        with OutputSet(tmp_path) as outs:
+            outs.write_text("a.txt", "x")
+            raise RuntimeError("boom")
+    assert list(tmp_path.iterdir()) == []
+    with OutputSet(tmp_path) as outs:
+        outs.write_text("a.txt", "x")
+    assert [p.name for p in tmp_path.iterdir()] == ["a.txt"]
+
+
+def test_error_message_is_one_line(tmp_path):
+    err = InputError("bad\nthing   here", path=tmp_path / "f.xml")
+    assert "\n" not in str(err) and str(err).endswith("bad thing here")
+    assert err.exit_code == 2
