@@ -1,0 +1,71 @@
+"""The shared vocabulary of the event table: column order and ``trial_type`` levels.
+
+Every producer of events (score markings, silence detection, feature change points, sync marks)
+uses these names, and the BIDS sidecar writer documents them from here, so the two cannot drift.
+Column order follows BIDS (``onset``, ``duration`` first); see DESIGN.md.
+"""
+
+from __future__ import annotations
+
+__all__ = ["EVENT_COLUMNS", "TRIAL_TYPES", "COLUMN_INFO", "HED_TAGS"]
+
+EVENT_COLUMNS = [
+    "onset", "duration", "trial_type", "piece", "label", "measure", "beat", "score_qn",
+    "nominal", "recording", "confidence", "source", "part",
+]
+
+#: ``trial_type`` level -> one-line description (the events sidecar's ``Levels``).
+TRIAL_TYPES: dict[str, str] = {
+    "piece": "A whole piece: onset at its first sounding note, duration to its end.",
+    "dynamic": "A notated dynamic level (pppp..ffff, with its numeric level in the label).",
+    "hairpin": "A crescendo or diminuendo wedge; duration spans the wedge.",
+    "accent": "A sudden accent marking (sf, sfz, fp, fz, rfz, ...).",
+    "tempo": "A tempo mark: metronome mark or tempo word, with its nominal BPM.",
+    "tempo_change": "A gradual or relative tempo change (rit., rall., accel., a tempo, Tempo I, piu/meno mosso).",
+    "fermata": "A fermata on a note or rest; duration is the held time.",
+    "key": "A key signature (and mode when known) taking effect.",
+    "meter": "A time signature taking effect.",
+    "section": "A section boundary: rehearsal mark, double bar, final bar, repeat start or end.",
+    "pause": "A general pause: all parts silent for at least a bar, or a silence under a fermata.",
+    "silence": "A stretch of the recording below the silence threshold for the minimum length.",
+    "feature_change": "A change point found in the continuous audio features.",
+    "sync": "A sync mark (click or tone burst) detected in the recording.",
+}
+
+#: Column -> (LongName, Description, Units or None) for the events sidecar.
+COLUMN_INFO: dict[str, tuple[str, str, str | None]] = {
+    "onset": ("Event onset", "Time of the event on the physiological recorder's clock "
+              "(equals recording time when no sync was given).", "s"),
+    "duration": ("Event duration", "Length of the event; 0 for point events.", "s"),
+    "trial_type": ("Event kind", "What kind of boundary or event this row is.", None),
+    "piece": ("Piece", "Name of the piece the event belongs to (n/a for session-level events).", None),
+    "label": ("Label", "What the marking says or what changes, as a short text.", None),
+    "measure": ("Measure", "Bar number as printed in the score (a pickup may be 0).", None),
+    "beat": ("Beat", "1-based beat within the bar, in the bar's beat unit.", None),
+    "score_qn": ("Score position", "Quarter notes from the start of the piece as performed "
+                 "(repeats expanded).", "quarter notes"),
+    "nominal": ("Nominal time", "Seconds from the start of the piece at the notated tempo.", "s"),
+    "recording": ("Recording time", "Seconds from the first sample of the recording file.", "s"),
+    "confidence": ("Alignment confidence", "0..1, how well the score and the recording agree "
+                   "around this event (n/a where no alignment is involved).", None),
+    "source": ("Source", "Where the time comes from: score (nominal only), alignment, audio, sync.", None),
+    "part": ("Part", "Score part(s) carrying the marking, or 'all'.", None),
+}
+
+#: ``trial_type`` -> HED tag string for stimulus rows (HED standard schema 8.x tags).
+HED_TAGS: dict[str, str] = {
+    "piece": "Sensory-event, Experimental-stimulus, Auditory-presentation, Musical-sound",
+    "dynamic": "Sensory-event, Auditory-presentation, Musical-sound",
+    "hairpin": "Sensory-event, Auditory-presentation, Musical-sound",
+    "accent": "Sensory-event, Auditory-presentation, Musical-sound",
+    "tempo": "Sensory-event, Auditory-presentation, Musical-sound",
+    "tempo_change": "Sensory-event, Auditory-presentation, Musical-sound",
+    "fermata": "Sensory-event, Auditory-presentation, Musical-sound",
+    "key": "Sensory-event, Auditory-presentation, Musical-sound",
+    "meter": "Sensory-event, Auditory-presentation, Musical-sound",
+    "section": "Sensory-event, Auditory-presentation, Musical-sound",
+    "pause": "Sensory-event, Auditory-presentation",
+    "silence": "Sensory-event, Auditory-presentation",
+    "feature_change": "Sensory-event, Auditory-presentation",
+    "sync": "Experiment-structure",
+}
