@@ -1,0 +1,469 @@
+"""The session file (TOML): what was recorded, which pieces were played, how the clocks relate.
+
+A session file names one recording (it may hold a whole concert), the pieces in the order they
+were played, the sync between the recording and the physiological recorder, the BIDS naming
+entities, the feature rate and the output folder. :func:`load_session` reads and validates it,
+reporting every problem at once with its line number; :func:`session_from_files` is the
+one-recording shortcut of ``stimkit annotate --score S --audio A``; :func:`template_text` is a
+commented starter file; :func:`annotate_session` runs the main job (see
+:mod:`stimkit.timeline.run`); :func:`summary_lines` turns its result into short lines for people.
+
+Conventions
+-----------
+- Paths in the session file are relative to the session file's folder.
+- Times given in the session file are ``recording`` seconds (``start_s``, anchors) or ``onset``
+  seconds on the recorder's clock (``recorder_times_s``, ``offset_s``), see DESIGN.md.
+- Python's ``tomllib`` keeps no line numbers, so a small index from each key to the line where
+  it is written is built by scanning the text (:func:`key_lines`).
+
+The format is documented for users in ``docs/session-and-outputs.md``.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .errors import InputError
+
+__all__ = [
+    "Session", "PieceSpec", "SyncSpec", "SessionFileError",
+    "load_session", "parse_session_text", "session_from_files", "template_text",
+    "annotate_session", "summary_lines", "key_lines",
+]
+
+AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
+SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
+_ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
+_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "force", "bids", "sync", "piece"}
+_BIDS_KEYS = {"subject", "session", "task", "run"}
+_SYNC_KEYS = {"frequency_hz", "duration_s", "recorder_times_s", "recorder_file", "recorder_column",
+              "offset_s", "search_start_s", "search_end_s"}
+_PIECE_KEYS = {"score", "name", "start_s", "anchors"}
+
+
+class SessionFileError(InputError):
+    """Several problems in one session file: the message keeps one line per problem."""
+
+    def __init__(self, path: Path | None, problems: list[tuple[int | None, str]]):
+        where = f"{path}: " if path is not None else ""
+        head = (f"{where}{len(problems)} problem{'s' if len(problems) != 1 else ''} in the session "
+                f"file; fix {'them' if len(problems) != 1 else 'it'} and rerun:")
+        problems = sorted(problems, key=lambda p: (p[0] is None, p[0] or 0))
+        body = [f"  line {ln}: {msg}" if ln else f"  {msg}" for ln, msg in problems]
+        Exception.__init__(self, "\n".join([head] + body))
+        self.path = path
+        self.problems = list(problems)
+
+
+@dataclass
+class PieceSpec:
+    """One piece in the session: its score, a display name, an optional rough start and anchors."""
+
+    score: Path
+    name: str
+    start_s: float | None = None
+    anchors: list[str] = field(default_factory=list)
+
+
+@dataclass
+class SyncSpec:
+    """How ``recording`` maps to ``onset``: sync ``marks``, a plain ``offset`` or ``none``."""
+
+    mode: str = "none"
+    frequency_hz: float = 1000.0
+    duration_s: float = 0.02
+    recorder_s: list[float] | None = None
+    recorder_file: Path | None = None
+    recorder_column: str = "onset"
+    offset_s: float = 0.0
+    search_start_s: float = 0.0
+    search_end_s: float | None = None
+
+
+@dataclass
+class Session:
+    """A validated session: every path absolute or relative to the current folder."""
+
+    recording: Path
+    pieces: list[PieceSpec]
+    sync: SyncSpec = field(default_factory=SyncSpec)
+    bids: dict = field(default_factory=dict)
+    rate_hz: float = 10.0
+    out_dir: Path = Path("annotated")
+    expand_repeats: bool = True
+    force: bool = False
+    source: Path | None = None  # the session file, when there is one
+
+
+# ---------------------------------------------------------------------------------------------
+# key -> line index
+# ---------------------------------------------------------------------------------------------
+_HDR_ARRAY = re.compile(r"^\s*\[\[\s*([A-Za-z0-9_.\-]+)\s*\]\]")
+_HDR_TABLE = re.compile(r"^\s*\[\s*([A-Za-z0-9_.\-]+)\s*\]")
+_KEY = re.compile(r"^\s*([A-Za-z0-9_\-]+)\s*=")
+
+
+def key_lines(text: str) -> dict[tuple, int]:
+    """Line number (1-based) of each key: ``(table, index, key)``; tables map to ``key=None``.
+
+    ``table`` is ``""`` for top-level keys, ``index`` counts ``[[table]]`` entries from 0 (0 for
+    plain tables). Lines inside multi-line strings are not special-cased (good enough for the
+    files this reads).
+    """
+    out: dict[tuple, int] = {}
+    table, index = "", 0
+    counts: dict[str, int] = {}
+    for ln, line in enumerate(text.splitlines(), start=1):
+        m = _HDR_ARRAY.match(line)
+        if m:
+            table = m.group(1)
+            index = counts.get(table, -1) + 1
+            counts[table] = index
+            out.setdefault((table, index, None), ln)
+            continue
+        m = _HDR_TABLE.match(line)
+        if m:
+            table, index = m.group(1), 0
+            out.setdefault((table, index, None), ln)
+            continue
+        m = _KEY.match(line)
+        if m:
+            out.setdefault((table, index, m.group(1)), ln)
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# loading and validation
+# ---------------------------------------------------------------------------------------------
+def _is_number(v) -> bool:
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))
+
+
+def load_session(path: str | Path, *, out_dir: str | Path | None = None) -> Session:
+    """Read and validate a session file; ``out_dir`` overrides its ``output``.
+
+    Raises :class:`SessionFileError` (an :class:`InputError`, exit 2) listing every problem with
+    its line, or :class:`InputError` when the file cannot be read or is not TOML.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("session file not found; check the path (stimkit annotate --template "
+                         "prints a starter file)", path=path) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the session file ({exc}); it must be UTF-8 TOML", path=path) from None
+    return parse_session_text(text, base_dir=path.parent, source=path, out_dir=out_dir)
+
+
+def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
+                       out_dir: str | Path | None = None) -> Session:
+    """Validate session TOML ``text``; relative paths are taken from ``base_dir``."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML: {exc}", path=source) from None
+    lines = key_lines(text)
+    problems: list[tuple[int | None, str]] = []
+
+    def line(table="", index=0, key=None):
+        return lines.get((table, index, key)) or lines.get((table, index, None))
+
+    def bad(msg, table="", index=0, key=None):
+        problems.append((line(table, index, key), msg))
+
+    def rel(p: str) -> Path:
+        q = Path(p).expanduser()
+        return q if q.is_absolute() else base_dir / q
+
+    for k in sorted(set(data) - _TOP_KEYS):
+        bad(f"unknown key '{k}' (known: {', '.join(sorted(_TOP_KEYS))})", key=k)
+
+    # recording
+    recording = None
+    rec = data.get("recording")
+    if rec is None:
+        problems.append((None, "missing 'recording = \"file.flac\"' (the audio file of the session)"))
+    elif not isinstance(rec, str) or not rec.strip():
+        bad("'recording' must be a file name in quotes", key="recording")
+    else:
+        recording = rel(rec)
+        if not recording.is_file():
+            bad(f"recording '{rec}' not found (looked for {recording})", key="recording")
+        elif recording.suffix.lower() not in AUDIO_SUFFIXES:
+            bad(f"recording '{rec}' is not an audio file ({', '.join(AUDIO_SUFFIXES)})", key="recording")
+
+    # scalars
+    rate = data.get("feature_rate_hz", 10.0)
+    if not _is_number(rate) or not 0 < float(rate) <= 100:
+        bad("'feature_rate_hz' must be a number of frames per second in (0, 100]", key="feature_rate_hz")
+        rate = 10.0
+    output = data.get("output", "annotated")
+    if not isinstance(output, str) or not output.strip():
+        bad("'output' must be a folder name in quotes", key="output")
+        output = "annotated"
+    flags = {}
+    for k, default in (("expand_repeats", True), ("force", False)):
+        v = data.get(k, default)
+        if not isinstance(v, bool):
+            bad(f"'{k}' must be true or false", key=k)
+            v = default
+        flags[k] = v
+
+    # bids
+    bids = {}
+    b = data.get("bids", {})
+    if not isinstance(b, dict):
+        bad("'bids' must be a table: [bids] with subject, session, task, run", key="bids")
+        b = {}
+    for k in sorted(set(b) - _BIDS_KEYS):
+        bad(f"unknown key '{k}' in [bids] (known: {', '.join(sorted(_BIDS_KEYS))})", "bids", 0, k)
+    for k in ("subject", "session", "task", "run"):
+        if k in b:
+            v = b[k]
+            if isinstance(v, bool) or not isinstance(v, (str, int)):
+                bad(f"[bids] {k} must be a text or a whole number", "bids", 0, k)
+                continue
+            s = str(v)
+            if not re.fullmatch(r"[A-Za-z0-9]+", s):
+                bad(f"[bids] {k} = '{s}' may hold only letters and digits (BIDS labels)", "bids", 0, k)
+                continue
+            bids[k] = s
+
+    # sync
+    sync = SyncSpec()
+    sy = data.get("sync")
+    if sy is not None and not isinstance(sy, dict):
+        bad("'sync' must be a table: [sync]", key="sync")
+        sy = None
+    if sy is not None:
+        for k in sorted(set(sy) - _SYNC_KEYS):
+            bad(f"unknown key '{k}' in [sync] (known: {', '.join(sorted(_SYNC_KEYS))})", "sync", 0, k)
+        has_times = "recorder_times_s" in sy
+        has_file = "recorder_file" in sy
+        has_offset = "offset_s" in sy
+        if sum([has_times, has_file, has_offset]) > 1:
+            bad("[sync] give only one of recorder_times_s, recorder_file, offset_s", "sync")
+        elif has_offset:
+            if not _is_number(sy["offset_s"]):
+                bad("[sync] offset_s must be a number of seconds (onset = recording + offset_s)",
+                    "sync", 0, "offset_s")
+            else:
+                sync = SyncSpec(mode="offset", offset_s=float(sy["offset_s"]))
+        elif has_times or has_file:
+            sync = SyncSpec(mode="marks")
+            if has_times:
+                v = sy["recorder_times_s"]
+                if not isinstance(v, list) or not v or not all(_is_number(t) for t in v):
+                    bad("[sync] recorder_times_s must be a list of numbers (seconds on the recorder "
+                        "clock, one per mark, in order)", "sync", 0, "recorder_times_s")
+                elif any(b2 <= a2 for a2, b2 in zip(v, v[1:])):
+                    bad("[sync] recorder_times_s must increase", "sync", 0, "recorder_times_s")
+                else:
+                    sync.recorder_s = [float(t) for t in v]
+            if has_file:
+                v = sy["recorder_file"]
+                if not isinstance(v, str) or not v.strip():
+                    bad("[sync] recorder_file must be a file name in quotes", "sync", 0, "recorder_file")
+                else:
+                    f = rel(v)
+                    if not f.is_file():
+                        bad(f"[sync] recorder_file '{v}' not found (looked for {f})", "sync", 0, "recorder_file")
+                    sync.recorder_file = f
+                col = sy.get("recorder_column", "onset")
+                if not isinstance(col, str) or not col:
+                    bad("[sync] recorder_column must be a column name in quotes", "sync", 0, "recorder_column")
+                else:
+                    sync.recorder_column = col
+            elif "recorder_column" in sy:
+                bad("[sync] recorder_column needs recorder_file", "sync", 0, "recorder_column")
+            for k, lo, hi in (("frequency_hz", 20.0, 48000.0), ("duration_s", 0.001, 1.0)):
+                if k in sy:
+                    if not _is_number(sy[k]) or not lo <= float(sy[k]) <= hi:
+                        bad(f"[sync] {k} must be a number in [{lo:g}, {hi:g}]", "sync", 0, k)
+                    else:
+                        setattr(sync, k, float(sy[k]))
+                else:
+                    bad(f"[sync] missing {k} (the sync marks' tone {'frequency' if k == 'frequency_hz' else 'length'})",
+                        "sync")
+            for k in ("search_start_s", "search_end_s"):
+                if k in sy:
+                    if not _is_number(sy[k]) or float(sy[k]) < 0:
+                        bad(f"[sync] {k} must be a number of seconds >= 0", "sync", 0, k)
+                    else:
+                        setattr(sync, k, float(sy[k]))
+        else:
+            bad("[sync] needs recorder_times_s, recorder_file or offset_s (or leave [sync] out: "
+                "onset = recording time)", "sync")
+
+    # pieces
+    pieces: list[PieceSpec] = []
+    pl = data.get("piece")
+    if pl is None:
+        problems.append((None, "no pieces: add one [[piece]] table with score = \"file.musicxml\" per piece"))
+        pl = []
+    elif not isinstance(pl, list) or not all(isinstance(p, dict) for p in pl):
+        bad("'piece' must be written as [[piece]] tables", key="piece")
+        pl = []
+    names_seen: set[str] = set()
+    for i, p in enumerate(pl):
+        where = f"[[piece]] #{i + 1}"
+        for k in sorted(set(p) - _PIECE_KEYS):
+            bad(f"{where}: unknown key '{k}' (known: {', '.join(sorted(_PIECE_KEYS))})", "piece", i, k)
+        sc = p.get("score")
+        score_path = None
+        if sc is None:
+            bad(f"{where}: missing score = \"file.musicxml\"", "piece", i)
+        elif not isinstance(sc, str) or not sc.strip():
+            bad(f"{where}: score must be a file name in quotes", "piece", i, "score")
+        else:
+            score_path = rel(sc)
+            if not score_path.is_file():
+                bad(f"{where}: score '{sc}' not found (looked for {score_path})", "piece", i, "score")
+            elif score_path.suffix.lower() not in SCORE_SUFFIXES:
+                bad(f"{where}: score '{sc}' is not a score file ({', '.join(SCORE_SUFFIXES)})",
+                    "piece", i, "score")
+        name = p.get("name")
+        if name is not None and (not isinstance(name, str) or not name.strip()):
+            bad(f"{where}: name must be a text in quotes", "piece", i, "name")
+            name = None
+        if name is None and score_path is not None:
+            name = _stem(score_path)
+        if name in names_seen:
+            bad(f"{where}: name '{name}' is used twice; give each piece its own name", "piece", i,
+                "name" if "name" in p else "score")
+        names_seen.add(name or "")
+        start = p.get("start_s")
+        if start is not None and (not _is_number(start) or float(start) < 0):
+            bad(f"{where}: start_s must be a number of seconds >= 0 (rough start in the recording)",
+                "piece", i, "start_s")
+            start = None
+        anchors = p.get("anchors", [])
+        if not isinstance(anchors, list) or not all(isinstance(a, str) for a in anchors):
+            bad(f"{where}: anchors must be a list of \"MEASURE[.BEAT]=SECONDS\" texts", "piece", i, "anchors")
+            anchors = []
+        else:
+            for a in anchors:
+                if not _ANCHOR.match(a):
+                    bad(f"{where}: anchor '{a}' is not MEASURE[.BEAT]=SECONDS (e.g. \"12.3=61.5\")",
+                        "piece", i, "anchors")
+        if score_path is not None:
+            pieces.append(PieceSpec(score=score_path, name=name or _stem(score_path),
+                                    start_s=None if start is None else float(start),
+                                    anchors=list(anchors)))
+    starts = [(p.start_s, p.name) for p in pieces if p.start_s is not None]
+    if any(b2[0] <= a2[0] for a2, b2 in zip(starts, starts[1:])):
+        problems.append((None, "the pieces' start_s must increase in the order the pieces are listed"))
+
+    if problems:
+        raise SessionFileError(source, problems)
+    out = Path(out_dir) if out_dir is not None else rel(output)
+    return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
+                   out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
+                   source=source)
+
+
+def _stem(p: Path) -> str:
+    name = p.name
+    for suf in (".musicxml", ".xml", ".mxl", ".midi", ".mid"):
+        if name.lower().endswith(suf):
+            return name[: -len(suf)]
+    return p.stem
+
+
+def session_from_files(scores, audio, *, out_dir=None) -> Session:
+    """The ``--score S --audio A`` shortcut: pieces in the order given, no sync, default rate."""
+    scores = [Path(s) for s in scores]
+    audio = Path(audio)
+    problems: list[tuple[int | None, str]] = []
+    if not audio.is_file():
+        raise InputError("recording not found; check the --audio path", path=audio)
+    for s in scores:
+        if not s.is_file():
+            raise InputError("score not found; check the --score path", path=s)
+    names = [_stem(s) for s in scores]
+    if len(set(names)) != len(names):
+        problems.append((None, "two scores have the same file name; use a session file to name them"))
+    if problems:
+        raise SessionFileError(None, problems)
+    pieces = [PieceSpec(score=s, name=n) for s, n in zip(scores, names)]
+    return Session(recording=audio, pieces=pieces,
+                   out_dir=Path(out_dir) if out_dir is not None else Path("."), source=None)
+
+
+def template_text() -> str:
+    """A commented starter session file."""
+    return _TEMPLATE
+
+
+_TEMPLATE = '''\
+# stimkit session file (TOML). Paths are relative to this file's folder.
+# Run it with:  stimkit annotate this-file.toml
+
+# The recording of the whole session (one file may hold several pieces, speech, applause, pauses).
+recording = "session.flac"
+
+# Where the outputs go (created if needed; `-o DIR` on the command line overrides it).
+output = "annotated"
+
+# Rows per second of the continuous feature file (_stim.tsv.gz), up to 100.
+feature_rate_hz = 10
+
+# Play repeats as written (true) or align the printed order (false).
+expand_repeats = true
+
+# Keep an alignment that looks like the wrong piece instead of stopping (use with care).
+force = false
+
+# BIDS naming of the outputs: sub-<subject>_ses-<session>_task-<task>_run-<run>_events.tsv.
+# All optional; letters and digits only.
+[bids]
+subject = "01"
+session = "1"
+task = "music"
+run = 1
+
+# Clock sync between this recording and the physiological recorder. Pick ONE of:
+#  a) sync marks (short tone bursts / clicks) in the recording, plus the recorder's times of them:
+[sync]
+frequency_hz = 1000          # tone of the marks
+duration_s = 0.02            # length of one mark
+recorder_times_s = [12.500, 1840.250]   # recorder clock, one per mark, in order
+#    or read them from a column of the recorder's CSV/TSV export instead of recorder_times_s:
+# recorder_file = "recorder-sync.tsv"
+# recorder_column = "onset"
+#    optional: look for marks only in this part of the recording (recording seconds)
+# search_start_s = 0
+# search_end_s = 3600
+#  b) a plain offset: onset = recording + offset_s
+# offset_s = 3.25
+#  c) no [sync] table at all: onset = recording time (the sidecar says so).
+
+# The pieces, in the order they were played. One [[piece]] table each.
+[[piece]]
+score = "first-piece.musicxml"
+name = "first"               # optional; default: the score's file name
+start_s = 45                 # optional rough start in the recording (seconds)
+# anchors = ["17.1=123.4"]   # optional: bar 17, beat 1 sounded at 123.4 s of the recording
+
+[[piece]]
+score = "second-piece.musicxml"
+'''
+
+
+def annotate_session(session: Session, *, progress=None):
+    """Run the main job on a validated session; see :func:`stimkit.timeline.run.annotate`."""
+    from .timeline.run import annotate
+
+    return annotate(session, progress=progress)
+
+
+def summary_lines(result) -> list[str]:
+    """Short lines for people: pieces found, boundaries placed, confidence, drift, outputs."""
+    from .timeline.run import summary_lines as _lines
+
+    return _lines(result)
