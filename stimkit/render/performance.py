@@ -1,0 +1,288 @@
+"""Expressive performance timing of a score, with the exact ground-truth time of every note.
+
+:func:`perform` turns a :class:`~stimkit.score.model.ScoreModel` into a *performance*: the time in
+the rendered recording at which every note starts and stops, plus the smooth score -> recording
+map it was built from.
+
+Conventions
+-----------
+- Input positions are ``score_qn`` (quarter notes as performed); output times are ``recording``
+  seconds, i.e. seconds from the first sample of the signal that :func:`stimkit.render.synth.synthesize`
+  will produce from these notes. ``onset_s`` is the exact time the note's sound starts in that
+  signal (the synthesizer places it on the nearest sample, error <= half a sample); the room
+  (:mod:`stimkit.render.room`) keeps the dry path at delay 0, so it does not shift it either.
+- Tempo is expressed as a multiplier of the *nominal* tempo from ``score.tempo_map`` (which already
+  holds the notated tempo marks, changes and fermata holds). A multiplier > 1 plays faster.
+
+Model
+-----
+The local duration of a quarter note is the nominal one divided by three factors:
+
+1. **Drift** -- a smooth random tempo multiplier ``1 + drift * n(q)``, ``n`` low-pass filtered
+   Gaussian noise (Gaussian kernel of :data:`DRIFT_SIGMA_QN` quarter notes) scaled to
+   ``max |n| = 1``, so the drift stays within ``[1 - drift, 1 + drift]`` of the nominal tempo.
+2. **Phrase-final ritardando** -- over the last :data:`RIT_SPAN_QN` quarter notes before each
+   phrase end the tempo falls linearly (in tempo) to ``1 - phrase_rit`` and returns at the next
+   phrase; phrase ends are section boundaries (``trial_type`` ``section``/``pause``), rests of at
+   least one beat in all parts, every 8 bars, and the end of the piece. This follows the shape of
+   final ritards described by Friberg & Sundberg (1999) and phrase-arch timing (Todd 1992), in a
+   simplified linear form.
+3. **Fermata** -- the span from a fermata (``trial_type == "fermata"``) to the next note onset is
+   lengthened by ``fermata_factor`` on top of any hold the nominal tempo map already contains.
+
+The integral of the resulting seconds-per-quarter-note gives the smooth map
+:attr:`Performance.timemap` (``score_qn -> recording``), strictly increasing by construction.
+Each note then gets Gaussian onset jitter (``jitter_s`` standard deviation, truncated at 2.5 sd)
+and, in a chord, the highest note leads and the others follow by up to ``chord_spread_s``
+(melody lead, Palmer 1996). The total per-note deviation is limited to 40 % of the gap to the
+neighbouring onset positions, so successive score positions stay in order. Everything is drawn
+from ``numpy.random.default_rng(seed)``: the same seed gives the same performance.
+
+References
+----------
+.. [1] A. Friberg and J. Sundberg, "Does music performance allude to locomotion? A model of final
+   ritardandi derived from measurements of stopping runners", JASA 105(3), 1999.
+.. [2] N. P. McA. Todd, "The dynamics of dynamics: a model of musical expression", JASA 91(6), 1992.
+.. [3] C. Palmer, "On the assignment of structure in music performance", Music Perception 14(1),
+   1996 (melody lead in chords).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from scipy.ndimage import gaussian_filter1d
+
+from ..errors import InputError
+from ..score.model import ScoreModel
+from ..timemap import TimeMap
+
+__all__ = ["Performance", "perform", "PERFORMANCE_NOTE_COLUMNS", "DRIFT_SIGMA_QN", "RIT_SPAN_QN"]
+
+PERFORMANCE_NOTE_COLUMNS = [
+    "score_qn", "duration_qn", "pitch", "velocity", "part", "measure", "pass", "beat",
+    "onset_s", "offset_s",
+]
+#: Standard deviation (quarter notes) of the Gaussian kernel that smooths the drift noise.
+DRIFT_SIGMA_QN = 6.0
+#: Length (quarter notes) of the ritardando before a phrase end.
+RIT_SPAN_QN = 3.0
+#: Bars per phrase when the score gives no other phrase end.
+PHRASE_BARS = 8
+#: Grid step (quarter notes) on which the tempo factors are evaluated.
+GRID_QN = 0.125
+#: Silence (seconds) kept after the last note's release in :attr:`Performance.duration_s`.
+TAIL_S = 1.5
+_MIN_NOTE_S = 0.03
+
+
+@dataclass
+class Performance:
+    """One expressive performance of a score.
+
+    Attributes
+    ----------
+    notes : pandas.DataFrame
+        One row per note, sorted by ``onset_s`` then ``pitch``: ``score_qn, duration_qn, pitch,
+        velocity, part, measure, pass, beat, onset_s, offset_s``. ``onset_s`` / ``offset_s`` are
+        ``recording`` seconds (ground truth, including ``start_s``, jitter and chord spread).
+    timemap : stimkit.timemap.TimeMap
+        The smooth expressive map ``score_qn -> recording`` (no per-note jitter).
+    beats : pandas.DataFrame
+        ``score_qn, measure, pass, beat, recording`` for every beat of ``score.beat_grid()``.
+    duration_s : float
+        Length of the signal to render: last release plus :data:`TAIL_S`.
+    settings : dict
+        Every option used, with the seed, for provenance.
+    """
+
+    notes: pd.DataFrame
+    timemap: TimeMap
+    beats: pd.DataFrame
+    duration_s: float
+    settings: dict = field(default_factory=dict)
+
+
+def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
+    """Score positions where a phrase ends (sorted, unique, > 0)."""
+    ends = [total_qn]
+    b = score.boundaries
+    if b is not None and len(b):
+        sel = b["trial_type"].isin(["section", "pause"])
+        ends.extend(float(q) for q in b.loc[sel, "score_qn"])
+    m = score.measures
+    starts = m["score_qn"].to_numpy(dtype=np.float64)
+    ends.extend(starts[PHRASE_BARS::PHRASE_BARS].tolist())
+    # rests of at least one beat in all parts: a gap between the sounding end so far and the next onset
+    n = score.notes
+    if len(n):
+        q = n["score_qn"].to_numpy(dtype=np.float64)
+        e = q + n["duration_qn"].to_numpy(dtype=np.float64)
+        order = np.argsort(q, kind="stable")
+        q, e = q[order], np.maximum.accumulate(e[order])
+        nxt = np.r_[q[1:], np.inf]
+        beat_qn = float(np.median(m["beat_qn"])) if len(m) else 1.0
+        gap = (nxt - e >= beat_qn - 1e-9) & np.isfinite(nxt)
+        ends.extend(e[gap].tolist())
+    ends = np.unique(np.round(np.asarray(ends, dtype=np.float64), 9))
+    return ends[(ends > 0) & (ends <= total_qn + 1e-9)]
+
+
+def _fermata_spans(score: ScoreModel, onsets: np.ndarray, total_qn: float) -> list[tuple[float, float]]:
+    """``(start, end)`` in score_qn for each fermata: from the mark to the next distinct onset."""
+    b = score.boundaries
+    if b is None or not len(b):
+        return []
+    spans = []
+    for q0 in np.unique(b.loc[b["trial_type"] == "fermata", "score_qn"].to_numpy(dtype=np.float64)):
+        later = onsets[onsets > q0 + 1e-9]
+        q1 = float(later[0]) if later.size else total_qn
+        if q1 > q0:
+            spans.append((float(q0), q1))
+    return spans
+
+
+def _validate(score: ScoreModel, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s):
+    where = getattr(score, "path", None)
+    if not 0.0 <= drift < 1.0:
+        raise InputError(f"drift must be in [0, 1), got {drift}", path=where)
+    if not 0.0 <= phrase_rit < 1.0:
+        raise InputError(f"phrase_rit must be in [0, 1), got {phrase_rit}", path=where)
+    if not fermata_factor >= 1.0:
+        raise InputError(f"fermata_factor must be >= 1, got {fermata_factor}", path=where)
+    if not (jitter_s >= 0.0 and chord_spread_s >= 0.0 and start_s >= 0.0):
+        raise InputError("jitter_s, chord_spread_s and start_s must be >= 0", path=where)
+    if score.measures is None or not len(score.measures):
+        raise InputError("the score has no bars; nothing to perform", path=where)
+
+
+def perform(
+    score: ScoreModel,
+    *,
+    seed: int,
+    drift: float = 0.25,
+    phrase_rit: float = 0.35,
+    fermata_factor: float = 1.6,
+    jitter_s: float = 0.008,
+    chord_spread_s: float = 0.015,
+    start_s: float = 0.0,
+) -> Performance:
+    """Expressive timing of ``score`` with the exact performed time of every note.
+
+    Parameters
+    ----------
+    score : ScoreModel
+        The parsed score; ``score.tempo_map`` gives the nominal tempo.
+    seed : int
+        Seed of ``numpy.random.default_rng``; the same seed gives the same performance.
+    drift : float
+        Bound of the smooth random tempo drift, as a fraction of the nominal tempo (0.25 = ±25 %).
+    phrase_rit : float
+        Tempo loss at a phrase end (0.35: the last beat before the end is played at 65 % tempo).
+    fermata_factor : float
+        Extra lengthening of a fermata note (the span to the next onset); 1 keeps the nominal hold.
+    jitter_s : float
+        Standard deviation of the per-note Gaussian onset jitter, seconds.
+    chord_spread_s : float
+        Largest delay of a chord note after the chord's highest note, seconds.
+    start_s : float
+        Recording time of ``score_qn = 0`` (silence before the music), seconds.
+
+    Returns
+    -------
+    Performance
+
+    Raises
+    ------
+    stimkit.errors.InputError
+        An option out of range, or a score without bars.
+    """
+    _validate(score, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s)
+    rng = np.random.default_rng(seed)
+    total_qn = score.total_qn
+    notes = score.notes.sort_values(["score_qn", "pitch"], kind="stable").reset_index(drop=True)
+    q_on = notes["score_qn"].to_numpy(dtype=np.float64)
+    q_off = q_on + notes["duration_qn"].to_numpy(dtype=np.float64)
+    onset_pos = np.unique(q_on)
+
+    ends = _phrase_ends(score, total_qn)
+    spans = _fermata_spans(score, onset_pos, total_qn)
+
+    # knots: a regular grid plus every place where a factor or the nominal slope changes
+    tm = score.tempo_map
+    extra = [q_on, q_off, score.measures["score_qn"].to_numpy(dtype=np.float64), ends,
+             np.maximum(ends - RIT_SPAN_QN, 0.0), tm.x]
+    extra += [np.array(s) for s in spans]
+    hi = max(total_qn, float(q_off.max()) if q_off.size else 0.0)
+    knots = np.concatenate([np.arange(0.0, hi, GRID_QN), [hi], *extra])
+    knots = np.unique(np.round(knots, 9))
+    knots = knots[(knots >= 0.0) & (knots <= hi)]
+    mid = 0.5 * (knots[1:] + knots[:-1])
+    dq = np.diff(knots)
+
+    # 1. smooth drift, sampled once per quarter note, bounded to ±drift
+    n_qn = int(np.ceil(hi)) + 1
+    noise = gaussian_filter1d(rng.standard_normal(n_qn), DRIFT_SIGMA_QN, mode="reflect")
+    noise = noise - noise.mean()
+    peak = np.max(np.abs(noise))
+    noise = noise / peak if peak > 0 else noise
+    tempo = 1.0 + drift * np.interp(mid, np.arange(n_qn, dtype=np.float64), noise)
+
+    # 2. phrase-final ritardando: linear fall of tempo to (1 - phrase_rit) at each end
+    rit = np.ones_like(mid)
+    for e in ends:
+        w = (mid - (e - RIT_SPAN_QN)) / RIT_SPAN_QN
+        inside = (w > 0) & (mid < e)
+        rit[inside] = np.minimum(rit[inside], 1.0 - phrase_rit * w[inside])
+
+    # 3. fermata holds
+    hold = np.ones_like(mid)
+    for a, b in spans:
+        hold[(mid > a) & (mid < b)] = fermata_factor
+
+    nominal_spq = np.diff(tm(knots)) / dq
+    spq = nominal_spq / (tempo * rit) * hold
+    t = start_s + np.concatenate([[0.0], np.cumsum(spq * dq)])
+    timemap = TimeMap(knots, t, src="score_qn", dst="recording",
+                      meta={"drift": drift, "seed": seed})
+
+    # per-note deviations: jitter + chord spread, limited by the gap to neighbouring positions
+    jit = np.clip(rng.standard_normal(q_on.size), -2.5, 2.5) * jitter_s
+    spread = rng.uniform(0.0, chord_spread_s, q_on.size)
+    pos_idx = np.searchsorted(onset_pos, q_on)
+    # the highest note of each position leads (rows are sorted by score_qn, then pitch)
+    top = np.r_[pos_idx[1:] != pos_idx[:-1], True] if q_on.size else np.zeros(0, dtype=bool)
+    dev = jit + np.where(top, 0.0, spread)
+    pos_t = np.atleast_1d(timemap(onset_pos))
+    gap_prev = np.diff(np.r_[0.0, pos_t])
+    gap_next = np.r_[np.diff(pos_t), np.inf]
+    dev = np.clip(dev, -0.4 * gap_prev[pos_idx], 0.4 * gap_next[pos_idx])
+    onset_s = np.maximum(np.atleast_1d(timemap(q_on)) + dev, 0.0)
+    offset_s = np.maximum(np.atleast_1d(timemap(q_off)) + 0.5 * jit, onset_s + _MIN_NOTE_S)
+
+    out = notes.copy()
+    out["onset_s"] = onset_s
+    out["offset_s"] = offset_s
+    for c in PERFORMANCE_NOTE_COLUMNS:
+        if c not in out.columns:
+            out[c] = np.nan
+    out = out[PERFORMANCE_NOTE_COLUMNS + [c for c in out.columns if c not in PERFORMANCE_NOTE_COLUMNS]]
+    out = out.sort_values(["onset_s", "pitch"], kind="stable").reset_index(drop=True)
+
+    grid = score.beat_grid()
+    beats = grid[["score_qn", "measure", "pass", "beat"]].copy()
+    beats["recording"] = timemap(beats["score_qn"].to_numpy(dtype=np.float64))
+
+    last = max(float(t[-1]), float(offset_s.max()) if offset_s.size else 0.0)
+    settings = {
+        "seed": int(seed), "drift": float(drift), "phrase_rit": float(phrase_rit),
+        "fermata_factor": float(fermata_factor), "jitter_s": float(jitter_s),
+        "chord_spread_s": float(chord_spread_s), "start_s": float(start_s),
+        "drift_sigma_qn": DRIFT_SIGMA_QN, "rit_span_qn": RIT_SPAN_QN, "phrase_bars": PHRASE_BARS,
+        "phrase_ends_qn": [round(float(e), 6) for e in ends],
+        "fermata_spans_qn": [[round(a, 6), round(b, 6)] for a, b in spans],
+    }
+    return Performance(notes=out, timemap=timemap, beats=beats, duration_s=last + TAIL_S,
+                       settings=settings)
