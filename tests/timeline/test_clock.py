@@ -1,0 +1,135 @@
+"""Clock sync: mark detection to +-1 ms and the offset/drift fit.
+
+The fit is checked against the two-point formula of REFERENCES.md ("Clock sync", common
+practice) and against numpy.polyfit as an independent least-squares reference. Detection is
+checked on synthetic recordings whose marks are placed at known sub-sample times (ground truth
+by construction); the +-1 ms bound is the task's requirement.
+"""
+
+import numpy as np
+import pytest
+import soundfile as sf
+
+from stimkit.errors import InputError
+from stimkit.timeline.clock import (
+    detect_sync_marks, fit_clock, identity_clock, offset_clock, read_recorder_times,
+)
+
+SR = 22050
+
+
+def _burst_signal(times, *, dur_s, sr=SR, freq=2000.0, burst_s=0.02, seed=0, music=True):
+    rng = np.random.default_rng(seed)
+    n = int(dur_s * sr)
+    t = np.arange(n) / sr
+    x = 0.01 * rng.standard_normal(n)
+    if music:  # sustained harmonic tones well below the mark frequency, switched on and off
+        for f0 in (220.0, 330.0, 440.0, 523.25):
+            x += 0.05 * np.sin(2 * np.pi * f0 * t) * (np.sin(2 * np.pi * 0.1 * t + f0) > 0)
+    m = int(round(burst_s * sr))
+    for tt in times:
+        k0 = tt * sr
+        i0 = int(np.ceil(k0))
+        tb = (np.arange(i0, i0 + m) - k0) / sr
+        env = np.sin(np.pi * np.clip(tb / burst_s, 0, 1)) ** 2
+        x[i0:i0 + m] += 0.5 * np.sin(2 * np.pi * freq * tb) * env
+    return x.astype(np.float32)
+
+
+@pytest.fixture(scope="module")
+def marked_file(tmp_path_factory):
+    truth = [1.23456, 31.5, 59.98765]
+    path = tmp_path_factory.mktemp("clock") / "marks.flac"
+    sf.write(path, _burst_signal(truth, dur_s=62.0), SR)
+    return path, truth
+
+
+def test_marks_found_within_one_millisecond(marked_file):
+    path, truth = marked_file
+    marks = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02)
+    assert len(marks) == len(truth)
+    err = np.array([m.recording_s for m in marks]) - np.array(truth)
+    assert np.max(np.abs(err)) < 0.001  # task requirement: +-1 ms
+    assert all(m.score > 0.8 for m in marks)
+
+
+def test_marks_across_block_edges(marked_file):
+    # block_s = 1.5 s cuts the file into ~42 overlapping blocks; the streamed scan must give
+    # the same marks as one block holding the whole file
+    path, truth = marked_file
+    small = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=1.5)
+    big = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=120.0)
+    assert len(small) == len(big) == len(truth)
+    np.testing.assert_allclose([m.recording_s for m in small], [m.recording_s for m in big], atol=1e-6)
+
+
+def test_other_frequency_and_noise_are_not_marks(tmp_path):
+    path = tmp_path / "other.wav"
+    x = _burst_signal([5.0], dur_s=10.0, freq=700.0)  # a burst, but at another frequency
+    sf.write(path, x, SR)
+    assert detect_sync_marks(path, frequency_hz=3000.0, duration_s=0.02) == []
+
+
+def test_search_window(marked_file):
+    path, truth = marked_file
+    marks = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, start_s=10.0, end_s=40.0)
+    assert [round(m.recording_s, 2) for m in marks] == [round(truth[1], 2)]
+
+
+def test_frequency_above_nyquist_is_input_error(marked_file):
+    with pytest.raises(InputError):
+        detect_sync_marks(marked_file[0], frequency_hz=20000.0, duration_s=0.02)
+
+
+def test_two_point_fit_matches_formula():
+    # REFERENCES.md, clock sync: b = (P2 - P1)/(A2 - A1), a = P1 - b*A1, ppm = (b - 1)*1e6
+    A1, A2, P1, P2 = 2.0, 602.0, 14.5, 614.5 + 600 * 40e-6
+    fit = fit_clock([A1, A2], [P1, P2])
+    b = (P2 - P1) / (A2 - A1)
+    assert fit.slope == pytest.approx(b, abs=1e-12)
+    assert fit.offset_s == pytest.approx(P1 - b * A1, abs=1e-9)
+    assert fit.drift_ppm == pytest.approx(40.0, abs=1e-3)
+    assert fit(A2) == pytest.approx(P2, abs=1e-9)
+    assert fit.max_residual_s < 1e-9 and fit.warnings == []
+
+
+def test_least_squares_fit_matches_polyfit_and_warns_on_residual():
+    rng = np.random.default_rng(3)
+    a = np.sort(rng.uniform(0, 3600, 6))
+    p = 7.25 + (1 - 25e-6) * a + rng.normal(0, 2e-4, a.size)
+    p[3] += 0.005  # one point 5 ms off: must be warned about (more than 2 ms)
+    fit = fit_clock(a, p)
+    slope, intercept = np.polyfit(a, p, 1)  # numpy's least squares as the reference
+    assert fit.slope == pytest.approx(slope, abs=1e-10)
+    assert fit.offset_s == pytest.approx(intercept, abs=1e-6)
+    np.testing.assert_allclose(fit.residuals_s, p - (intercept + slope * a), atol=1e-6)
+    assert len(fit.warnings) >= 1 and "ms" in fit.warnings[0]
+
+
+def test_offset_and_identity_and_timemap():
+    off = offset_clock(3.5)
+    assert off(10.0) == pytest.approx(13.5) and off.drift_ppm == 0
+    assert identity_clock()(42.0) == 42.0
+    tm = fit_clock([0.0, 100.0], [1.0, 101.01]).timemap(span_s=100)
+    assert (tm.src, tm.dst) == ("recording", "onset")
+    assert tm(50.0) == pytest.approx(1.0 + 50 * 1.0001)
+
+
+def test_fit_rejects_unordered_pairs():
+    with pytest.raises(InputError):
+        fit_clock([0.0, 10.0, 5.0], [0.0, 10.0, 20.0])
+
+
+def test_recorder_times_from_tsv_and_csv(tmp_path):
+    tsv = tmp_path / "sync.tsv"
+    tsv.write_text("mark\tonset\n1\t12.5\n2\tn/a\n3\t620.25\n")
+    np.testing.assert_allclose(read_recorder_times(tsv, column="onset"), [12.5, 620.25])
+    csv_ = tmp_path / "sync.csv"
+    csv_.write_text("t_s,kind\n1.0,start\n2.0,end\n")
+    np.testing.assert_allclose(read_recorder_times(csv_, column="t_s"), [1.0, 2.0])
+    with pytest.raises(InputError, match="no column"):
+        read_recorder_times(tsv, column="time")
+    bad = tmp_path / "bad.tsv"
+    bad.write_text("onset\n1.0\nabc\n")
+    with pytest.raises(InputError, match="line 3"):
+        read_recorder_times(bad, column="onset")
