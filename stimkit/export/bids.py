@@ -5,7 +5,10 @@
   row relative to the first sample of the data it goes with) and ``Columns``, plus per-column
   ``Units`` / ``Description`` and any extra keys.
 - Event tables: ``<base>_events.tsv`` (``onset``, ``duration`` first, ``n/a`` for missing) and
-  ``<base>_events.json`` (see :func:`write_events`, added with the annotate chain).
+  ``<base>_events.json`` with LongName / Description / Units per column, ``Levels`` and HED tags
+  per ``trial_type`` level, and a note on the clock of ``onset`` (:func:`write_events`).
+- Beat grid: ``<base>_beats.tsv`` + ``.json`` (:func:`write_beats`), one row per beat.
+- ``dataset_description.json`` with ``HEDVersion`` (:func:`dataset_description`).
 
 Conventions: every frame's time is its window centre; a continuous file's rows are at
 ``StartTime + k / SamplingFrequency``.
@@ -16,9 +19,14 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ..errors import WorkFailed
+from ..levels import COLUMN_INFO, EVENT_COLUMNS, HED_TAGS, TRIAL_TYPES
 from .tables import OutputSet
 
-__all__ = ["bids_name", "write_stim"]
+__all__ = [
+    "bids_name", "write_stim", "events_sidecar", "prepare_events", "write_events", "write_beats",
+    "dataset_description", "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
+]
 
 
 def bids_name(*, subject=None, session=None, task=None, run=None, fallback: str = "stimkit") -> str:
@@ -73,3 +81,303 @@ def write_stim(
     p1 = outs.write_tsv_gz(f"{base}_stim.tsv.gz", data, float_format=float_format)
     p2 = outs.write_json(f"{base}_stim.json", sidecar)
     return [p1, p2]
+
+
+# ---------------------------------------------------------------------------------------------
+# Event tables
+# ---------------------------------------------------------------------------------------------
+
+#: Columns holding seconds: written with 6 decimals (microseconds), the rest of the floats with
+#: 6 significant digits.
+SECONDS_COLUMNS = ("onset", "duration", "nominal", "recording")
+_FIXED_COLUMNS = SECONDS_COLUMNS + ("score_qn",)
+
+#: BIDS version the hand-off files follow.
+BIDS_VERSION = "1.11.0"
+#: HED standard schema the ``HED_TAGS`` strings are written against.
+HED_VERSION = "8.3.0"
+
+
+def _clock_note(synchronized: bool | None) -> dict:
+    if synchronized is True:
+        text = ("onset is on the physiological recorder's clock: recording time mapped through the "
+                "sync fit (offset and drift) computed from the sync marks.")
+    elif synchronized is False:
+        text = ("No sync was given: onset equals recording time (seconds from the first sample of "
+                "the recording file), not the physiological recorder's clock.")
+    else:
+        text = "The producer did not state whether onset was synchronized to the recorder clock."
+    return {"Description": text, "Synchronized": synchronized}
+
+
+def _check_levels(events: pd.DataFrame) -> list[str]:
+    if "trial_type" not in events.columns:
+        return []
+    present = {str(v) for v in events["trial_type"] if not pd.isna(v)}
+    unknown = sorted(present - set(TRIAL_TYPES))
+    if unknown:
+        raise WorkFailed(
+            f"events table has trial_type level(s) {', '.join(unknown)} that are not documented in "
+            "stimkit.levels.TRIAL_TYPES; add them there (with HED tags) before exporting")
+    return [lvl for lvl in TRIAL_TYPES if lvl in present]
+
+
+def events_sidecar(events: pd.DataFrame, *, extra: dict | None = None,
+                   synchronized: bool | None = None) -> dict:
+    """The ``*_events.json`` sidecar describing every column of ``events`` (BIDS 1.11).
+
+    Parameters
+    ----------
+    events : DataFrame
+        The event table (columns of :data:`stimkit.levels.EVENT_COLUMNS`, possibly more).
+    extra : dict, optional
+        Keys added to the sidecar. A key equal to a column name whose value is a dict is merged
+        into that column's description (use it to describe extra columns: ``{"value":
+        {"LongName": ..., "Description": ..., "Units": ...}}``); other keys are added at the top
+        level (e.g. the sync fit). A caller-given ``"OnsetClock"`` replaces the default note.
+    synchronized : bool, optional
+        Whether ``onset`` went through a clock sync (True) or equals recording time (False);
+        written as the top-level ``OnsetClock`` note and appended to the ``onset`` description.
+
+    Returns
+    -------
+    dict
+        Column name -> ``{"LongName", "Description", "Units"?}``, in the table's written column
+        order; ``trial_type`` also carries ``Levels`` and ``HED`` (level -> HED tag string), then
+        ``OnsetClock``, then the top-level ``extra`` keys.
+
+    Notes
+    -----
+    ``Levels`` lists only the levels **present** in this table (in :data:`TRIAL_TYPES` order), so
+    the sidecar documents exactly the file it sits beside and a validator finds no HED annotation
+    for a value that never occurs; the full vocabulary is :data:`stimkit.levels.TRIAL_TYPES`. A
+    level not in that vocabulary raises :class:`~stimkit.errors.WorkFailed`: every value written
+    must be documented (BIDS 1.11, "Tabular files": categorical values described in ``Levels``;
+    HED annotations per categorical value go in ``"HED": {level: tags}``).
+
+    References
+    ----------
+    BIDS specification 1.11, "Task events" and "Tabular files";
+    HED specification 3 / standard schema 8.x, "BIDS sidecars".
+    """
+    extra = dict(extra or {})
+    cols = _ordered_columns(events)
+    side: dict = {}
+    clock = extra.pop("OnsetClock", None) or _clock_note(synchronized)
+    for c in cols:
+        if c in COLUMN_INFO:
+            long_name, desc, units = COLUMN_INFO[c]
+            entry = {"LongName": long_name, "Description": desc}
+            if units:
+                entry["Units"] = units
+        else:
+            entry = {"LongName": c, "Description": f"Additional column '{c}' (not described by its producer)."}
+        if c == "onset" and synchronized is not None:
+            entry["Description"] = entry["Description"] + " In this file: " + clock["Description"]
+        if c == "trial_type":
+            levels = _check_levels(events)
+            entry["Levels"] = {lvl: TRIAL_TYPES[lvl] for lvl in levels}
+            entry["HED"] = {lvl: HED_TAGS[lvl] for lvl in levels if lvl in HED_TAGS}
+        if isinstance(extra.get(c), dict):
+            entry.update(extra.pop(c))
+        side[c] = entry
+    side["OnsetClock"] = clock
+    for k, v in extra.items():
+        if k not in side:
+            side[k] = v
+    return side
+
+
+def _ordered_columns(events: pd.DataFrame) -> list[str]:
+    cols = [str(c) for c in events.columns]
+    known = [c for c in EVENT_COLUMNS if c in cols]
+    rest = [c for c in cols if c not in EVENT_COLUMNS]
+    return known + rest
+
+
+def _trial_rank(values: pd.Series) -> pd.Series:
+    order = {lvl: i for i, lvl in enumerate(TRIAL_TYPES)}
+    return values.map(lambda v: order.get(str(v), len(order)) if not pd.isna(v) else len(order) + 1)
+
+
+def prepare_events(events: pd.DataFrame) -> pd.DataFrame:
+    """Validate, order the columns and sort the rows of an event table for writing.
+
+    Columns: all of :data:`EVENT_COLUMNS` (``onset``, ``duration`` first; a column the caller did
+    not give is filled with missing values, so every events file has the same leading columns),
+    then extra columns in their given order. Rows: by ``onset``, then ``trial_type`` (in :data:`TRIAL_TYPES`
+    order, so a ``piece`` row precedes the markings at its first note), then ``label``; ties keep
+    the input order (stable sort), so equal input gives equal output.
+
+    Raises
+    ------
+    WorkFailed
+        If ``onset`` or ``duration`` is missing, an onset is not finite (events without a time
+        must be dropped by the caller) or a duration is negative.
+    """
+    if not isinstance(events, pd.DataFrame):
+        raise WorkFailed("events must be a pandas DataFrame")
+    events = events.copy()
+    events.columns = [str(c) for c in events.columns]
+    if "onset" not in events.columns:
+        raise WorkFailed("event table has no 'onset' column (required by BIDS)")
+    if "duration" not in events.columns:
+        raise WorkFailed("event table has no 'duration' column (required by BIDS)")
+    onset = pd.to_numeric(events["onset"], errors="coerce").astype(np.float64)
+    bad = ~np.isfinite(onset.to_numpy())
+    if bad.any():
+        raise WorkFailed(f"{int(bad.sum())} event(s) have no finite onset (first at row "
+                         f"{int(np.flatnonzero(bad)[0])}); drop events without a time before export")
+    dur = pd.to_numeric(events["duration"], errors="coerce").astype(np.float64)
+    neg = dur.to_numpy() < 0
+    if neg.any():
+        raise WorkFailed(f"{int(neg.sum())} event(s) have a negative duration (first at row "
+                         f"{int(np.flatnonzero(neg)[0])}); BIDS durations are >= 0")
+    events["onset"] = onset
+    events["duration"] = dur
+    _check_levels(events)
+    for c in EVENT_COLUMNS:
+        if c not in events.columns:
+            events[c] = None
+    events = events[_ordered_columns(events)]
+    keys = pd.DataFrame({"onset": onset.to_numpy()}, index=events.index)
+    by = ["onset"]
+    if "trial_type" in events.columns:
+        keys["_rank"] = _trial_rank(events["trial_type"]).to_numpy()
+        keys["_tt"] = events["trial_type"].map(lambda v: "" if pd.isna(v) else str(v)).to_numpy()
+        by += ["_rank", "_tt"]
+    if "label" in events.columns:
+        keys["_label"] = events["label"].map(lambda v: "\uffff" if pd.isna(v) else str(v)).to_numpy()
+        by.append("_label")
+    keys["_pos"] = np.arange(len(keys))
+    order = keys.sort_values(by + ["_pos"], kind="mergesort").index
+    return events.loc[order].reset_index(drop=True)
+
+
+def _float_formats(df: pd.DataFrame) -> dict[str, str]:
+    fmts = {}
+    for c in df.columns:
+        fmts[c] = "%.6f" if c in _FIXED_COLUMNS else "%.6g"
+    return fmts
+
+
+def _integral_to_int(df: pd.DataFrame, cols) -> pd.DataFrame:
+    """Float columns that hold whole numbers (with NaN) become nullable-free object ints."""
+    for c in cols:
+        if c in df.columns and df[c].dtype.kind == "f":
+            v = df[c].to_numpy()
+            fin = np.isfinite(v)
+            if np.all(v[fin] == np.round(v[fin])):
+                df[c] = [int(x) if np.isfinite(x) else None for x in v]
+    return df
+
+
+def write_events(outs: OutputSet, base: str, events: pd.DataFrame, *, extra: dict | None = None,
+                 synchronized: bool | None = None) -> list:
+    """Stage ``<base>_events.tsv`` and ``<base>_events.json``.
+
+    The table is validated and ordered by :func:`prepare_events`; seconds (``onset``,
+    ``duration``, ``nominal``, ``recording``) and ``score_qn`` are written with 6 decimals, other
+    floats with 6 significant digits, whole-number ``measure`` values as integers, booleans as
+    ``true``/``false``, missing values as ``n/a``. The sidecar is :func:`events_sidecar`.
+
+    Returns
+    -------
+    list of Path
+        ``[tsv, json]`` (staged; they appear when the :class:`OutputSet` commits).
+    """
+    table = prepare_events(events)
+    table = _integral_to_int(table, ["measure"])
+    sidecar = events_sidecar(table, extra=extra, synchronized=synchronized)
+    p1 = outs.write_tsv(f"{base}_events.tsv", table, column_formats=_float_formats(table))
+    p2 = outs.write_json(f"{base}_events.json", sidecar)
+    return [p1, p2]
+
+
+# ---------------------------------------------------------------------------------------------
+# Beat grid
+# ---------------------------------------------------------------------------------------------
+
+BEAT_COLUMNS = ["onset", "duration", "piece", "measure", "pass", "beat", "is_downbeat",
+                "score_qn", "recording"]
+
+BEAT_INFO: dict[str, tuple[str, str, str | None]] = {
+    "onset": ("Beat onset", "Time of the beat on the same clock as the events file's onset.", "s"),
+    "duration": ("Beat duration", "Time to the next beat of the same piece (n/a for the last beat).", "s"),
+    "piece": ("Piece", "Name of the piece the beat belongs to.", None),
+    "measure": ("Measure", "Bar number as printed in the score (a pickup may be 0).", None),
+    "pass": ("Pass", "1 on the first playing of a bar, 2 on its first repeat, and so on.", None),
+    "beat": ("Beat", "1-based beat within the bar, in the bar's beat unit.", None),
+    "is_downbeat": ("Downbeat", "true on the first beat of a bar.", None),
+    "score_qn": ("Score position", "Quarter notes from the start of the piece as performed "
+                 "(repeats expanded).", "quarter notes"),
+    "recording": ("Recording time", "Seconds from the first sample of the recording file.", "s"),
+}
+
+
+def write_beats(outs: OutputSet, base: str, beats: pd.DataFrame) -> list:
+    """Stage ``<base>_beats.tsv`` (with header) and ``<base>_beats.json`` describing its columns.
+
+    ``beats`` needs ``onset``; ``duration`` is computed when absent as the time to the next beat
+    of the same piece (n/a for each piece's last beat); ``is_downbeat`` is derived from
+    ``beat == 1`` when absent; other missing columns are written as ``n/a``. Rows are sorted by
+    ``onset`` (stable). Returns ``[tsv, json]``.
+    """
+    if "onset" not in beats.columns:
+        raise WorkFailed("beat table has no 'onset' column")
+    df = beats.copy()
+    df["onset"] = pd.to_numeric(df["onset"], errors="coerce").astype(np.float64)
+    bad = ~np.isfinite(df["onset"].to_numpy())
+    if bad.any():
+        raise WorkFailed(f"{int(bad.sum())} beat(s) have no finite onset; drop them before export")
+    df = df.sort_values("onset", kind="mergesort").reset_index(drop=True)
+    if "duration" not in df.columns:
+        groups = df["piece"].astype(str) if "piece" in df.columns else pd.Series("", index=df.index)
+        nxt = df.groupby(groups, sort=False)["onset"].shift(-1)
+        df["duration"] = (nxt - df["onset"]).astype(np.float64)
+    if "is_downbeat" not in df.columns and "beat" in df.columns:
+        b = pd.to_numeric(df["beat"], errors="coerce")
+        df["is_downbeat"] = [None if pd.isna(x) else bool(x == 1) for x in b]
+    for c in BEAT_COLUMNS:
+        if c not in df.columns:
+            df[c] = None
+    df = df[BEAT_COLUMNS]
+    df = _integral_to_int(df, ["measure", "pass"])
+    side = {c: {"LongName": ln, "Description": d, **({"Units": u} if u else {})}
+            for c, (ln, d, u) in BEAT_INFO.items()}
+    p1 = outs.write_tsv(f"{base}_beats.tsv", df, column_formats=_float_formats(df))
+    p2 = outs.write_json(f"{base}_beats.json", side)
+    return [p1, p2]
+
+
+# ---------------------------------------------------------------------------------------------
+# Dataset description
+# ---------------------------------------------------------------------------------------------
+
+def dataset_description(*, name: str, hed_version: str = HED_VERSION, authors: list[str] | None = None,
+                        dataset_type: str = "raw", extra: dict | None = None) -> dict:
+    """``dataset_description.json`` content: ``Name``, ``BIDSVersion``, ``HEDVersion``, ...
+
+    BIDS requires ``HEDVersion`` in ``dataset_description.json`` whenever HED annotations are
+    used (the events sidecar carries HED tags per ``trial_type`` level). ``GeneratedBy`` names
+    stimkit and its version.
+    """
+    from .. import __version__
+
+    desc = {
+        "Name": str(name),
+        "BIDSVersion": BIDS_VERSION,
+        "HEDVersion": str(hed_version),
+        "DatasetType": dataset_type,
+    }
+    if authors:
+        desc["Authors"] = [str(a) for a in authors]
+    desc["GeneratedBy"] = [{"Name": "stimkit", "Version": __version__}]
+    for k, v in (extra or {}).items():
+        desc.setdefault(k, v)
+    return desc
+
+
+def write_dataset_description(outs: OutputSet, **kwargs) -> object:
+    """Stage ``dataset_description.json`` from :func:`dataset_description` (same keywords)."""
+    return outs.write_json("dataset_description.json", dataset_description(**kwargs))

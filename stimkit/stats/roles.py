@@ -1,0 +1,35 @@
+"""Which feature column plays which role (loudness, tempo, tonal tension, onset rate).
+
+The feature frame's column names belong to the audio pipeline; the report and the summaries
+only need "the loudness column", "the tempo column" and so on. Each role lists candidate
+column names in order of preference; :func:`pick_column` returns the first one present, so a
+renamed or missing feature makes a lane or a summary number disappear instead of failing.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+
+__all__ = ["ROLE_CANDIDATES", "pick_column"]
+
+#: Role -> candidate columns, preferred first.
+ROLE_CANDIDATES: dict[str, tuple[str, ...]] = {
+    "loudness": ("loudness_short_term_lufs", "loudness_momentary_lufs", "loudness_lufs",
+                 "rms_dbfs"),
+    "loudness_short_term": ("loudness_short_term_lufs",),
+    "tempo": ("tempo_bpm", "local_tempo_bpm"),
+    # Tonal tension: tonal ambiguity (1 - key clarity) first, then the rate of harmonic change,
+    # then sensory roughness (see stimkit.report.figure for the reasoning).
+    "tension": ("key_clarity", "harmonic_change", "roughness"),
+    "onset_rate": ("onset_rate_hz", "onset_density_hz"),
+}
+
+
+def pick_column(frame: pd.DataFrame, role: str, *, override: str | None = None) -> str | None:
+    """The column of ``frame`` for ``role`` (``override`` first when given), or ``None``."""
+    if override is not None:
+        return override if override in frame.columns else None
+    for c in ROLE_CANDIDATES.get(role, ()):
+        if c in frame.columns:
+            return c
+    return None
