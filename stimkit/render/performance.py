@@ -24,7 +24,7 @@ The local duration of a quarter note is the nominal one divided by three factors
 2. **Phrase-final ritardando** -- over the last :data:`RIT_SPAN_QN` quarter notes before each
    phrase end the tempo falls linearly (in tempo) to ``1 - phrase_rit`` and returns at the next
    phrase; phrase ends are section boundaries (``trial_type`` ``section``/``pause``), rests of at
-   least one beat in all parts, every 8 bars, and the end of the piece. This follows the shape of
+   least one beat in all parts, every 8 bars, the end of the last note and the end of the piece. This follows the shape of
    final ritards described by Friberg & Sundberg (1999) and phrase-arch timing (Todd 1992), in a
    simplified linear form.
 3. **Fermata** -- the span from a fermata (``trial_type == "fermata"``) to the next note onset is
@@ -126,6 +126,7 @@ def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
         beat_qn = float(np.median(m["beat_qn"])) if len(m) else 1.0
         gap = (nxt - e >= beat_qn - 1e-9) & np.isfinite(nxt)
         ends.extend(e[gap].tolist())
+        ends.append(float(e[-1]))   # the end of the last sounding note
     ends = np.unique(np.round(np.asarray(ends, dtype=np.float64), 9))
     return ends[(ends > 0) & (ends <= total_qn + 1e-9)]
 
