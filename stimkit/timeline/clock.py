@@ -15,18 +15,20 @@ Conventions
 -----------
 - ``recording``: seconds from the first sample of the recording file; ``onset``: seconds on the
   recorder's clock (DESIGN.md).
-- A mark's time is the start of the burst, taken as the lag where a burst of the stated length
-  lines up with the quadrature matched filter (peak of the correlation magnitude), refined below
-  one sample by parabolic interpolation of the peak.
+- A mark's time is where its envelope at the stated frequency first reaches half of its peak
+  (the 50 % point, as for a trigger edge); for a burst that starts abruptly this is its first
+  sample. It is found below one sample by linear interpolation.
 - Residuals are ``recorder - fitted`` in seconds.
 
 Method
 ------
-Quadrature matched filter: the recording is correlated with a complex tone of the stated
-frequency, Hann-windowed over the stated duration; the magnitude, divided by the energy of the
-signal under the window (normalised cross-correlation), is near 1 where a burst at that frequency
-stands alone and small for broadband or differently pitched sound (Turin 1960). Sub-sample peak
-position by fitting a parabola through the three samples around the maximum (Smith & Serra 1987).
+Detection by a quadrature matched filter: the recording is correlated with a complex tone of the
+stated frequency and duration; the magnitude, divided by the energy of the signal under the
+template (normalised cross-correlation), is near 1 where a burst at that frequency stands alone
+and small for broadband or differently pitched sound (Turin 1960). Timing by complex
+demodulation at the stated frequency (the signal times ``exp(-2j pi f t)``, smoothed by a short
+symmetric low-pass, is the burst's envelope; Oppenheim & Schafer 2010, ch. 12 on the analytic
+signal): a zero-phase smoother keeps the half-height crossing of a step at the step.
 The clock model is the two-point / least-squares line of common practice (REFERENCES.md, clock
 sync).
 
@@ -34,8 +36,8 @@ References
 ----------
 .. [1] G. L. Turin, "An introduction to matched filters", IRE Trans. Information Theory 6(3),
    311-329, 1960.
-.. [2] J. O. Smith and X. Serra, "PARSHL: an analysis/synthesis program for non-harmonic sounds
-   based on a sinusoidal representation", Proc. ICMC 1987 (quadratic peak interpolation).
+.. [2] A. V. Oppenheim and R. W. Schafer, *Discrete-Time Signal Processing*, 3rd ed., Pearson
+   2010 (complex demodulation, zero-phase filtering).
 """
 
 from __future__ import annotations
@@ -60,6 +62,8 @@ __all__ = [
     "identity_clock",
     "read_recorder_times",
     "burst_template",
+    "half_rise_onset",
+    "pair_marks",
 ]
 
 #: Largest residual (s) of the clock fit before a warning (common practice: 2 ms).
@@ -122,36 +126,62 @@ class ClockFit:
 
 
 def burst_template(*, frequency_hz: float, duration_s: float, sr: int) -> np.ndarray:
-    """Complex analysis tone: Hann-windowed ``exp(2j pi f t)`` of ``duration_s``, unit energy."""
+    """Complex analysis tone ``exp(2j pi f t)`` of ``duration_s`` (rectangular), unit energy."""
     n = max(int(round(duration_s * sr)), 4)
     t = np.arange(n) / sr
-    win = scipy.signal.windows.hann(n, sym=False) if n > 8 else np.ones(n)
-    tmpl = win * np.exp(2j * np.pi * frequency_hz * t)
-    return tmpl / np.sqrt(np.sum(np.abs(tmpl) ** 2))
+    tmpl = np.exp(2j * np.pi * frequency_hz * t)
+    return tmpl / np.sqrt(n)
 
 
-def _blocks(path: Path, *, block_frames: int, overlap_frames: int):
-    """Yield ``(first_sample, mono_block)``; consecutive blocks overlap by ``overlap_frames``."""
+def _blocks(path: Path, *, first: int, last: int, block_frames: int, overlap_frames: int):
+    """Yield ``(first_sample, mono_block)`` over samples ``[first, last)``; consecutive blocks
+    overlap by ``overlap_frames`` so a mark cut by a block edge is whole in the next block."""
     with sf.SoundFile(str(path)) as fh:
-        start = 0
+        start = first
         hop = block_frames - overlap_frames
-        while True:
+        while start < last:
             fh.seek(start)
-            data = fh.read(block_frames, dtype="float64", always_2d=True)
+            data = fh.read(min(block_frames, last - start), dtype="float64", always_2d=True)
             if data.shape[0] == 0:
                 break
             yield start, data.mean(axis=1)
-            if data.shape[0] < block_frames:
+            if start + data.shape[0] >= last:
                 break
             start += hop
 
 
-def _parabolic(y0: float, y1: float, y2: float) -> float:
-    """Offset in (-0.5, 0.5) of the vertex of the parabola through three equally spaced points."""
-    den = y0 - 2.0 * y1 + y2
-    if den >= 0:  # not a maximum: keep the sample
-        return 0.0
-    return float(np.clip(0.5 * (y0 - y2) / den, -0.5, 0.5))
+def half_rise_onset(x: np.ndarray, k: int, *, sr: int, frequency_hz: float, duration_s: float) -> float:
+    """Fractional sample (in ``x``) where the burst near sample ``k`` first reaches half its peak
+    envelope.
+
+    The envelope is the magnitude of the signal demodulated at ``frequency_hz`` and smoothed by
+    a symmetric (zero-phase) Hann kernel, so a step in amplitude crosses its half height exactly
+    at the step; the crossing is interpolated linearly between samples.
+    """
+    smooth_s = min(max(0.002, 2.0 / frequency_hz), duration_s / 2)
+    L = max(int(round(smooth_s * sr)) | 1, 3)  # odd length: centred kernel
+    n = max(int(round(duration_s * sr)), 4)
+    lo = max(k - n // 2 - 2 * L, 0)
+    hi = min(k + n + 2 * L, x.size)
+    idx = np.arange(lo, hi)
+    z = x[lo:hi] * np.exp(-2j * np.pi * frequency_hz * idx / sr)
+    h = scipy.signal.windows.hann(L + 2)[1:-1]
+    env = np.abs(np.convolve(z, h / h.sum(), mode="same"))
+    a = max(k - lo - n // 2, 0)
+    b = min(k - lo + n, env.size)
+    if b <= a:
+        return float(k)
+    p = a + int(np.argmax(env[a:b]))
+    half = 0.5 * env[p]
+    i = p
+    while i > 0 and env[i - 1] >= half:
+        i -= 1
+    if i == 0:
+        return float(lo)
+    # env[i - 1] < half <= env[i]; a sampled step whose first sample is m crosses half height at
+    # m - 0.5, hence the half-sample shift that makes the answer the burst's first sample
+    frac = (half - env[i - 1]) / max(env[i] - env[i - 1], 1e-20)
+    return float(lo + i - 1 + frac + 0.5)
 
 
 def detect_sync_marks(
@@ -169,16 +199,21 @@ def detect_sync_marks(
 ) -> list[SyncMark]:
     """Sync marks (tone bursts / clicks at ``frequency_hz``) in a recording, in time order.
 
+    Detection: quadrature matched filter over ``duration_s`` (normalised correlation at least
+    ``min_score`` and level at least ``min_level_db``), one mark per ``min_gap_s``. Timing: the
+    half-rise point of the demodulated envelope (:func:`half_rise_onset`), which for a burst
+    that starts abruptly is its first sample.
+
     Parameters
     ----------
     path : path to the recording (any format soundfile reads); channels are averaged.
-    frequency_hz : centre frequency of the burst.
-    duration_s : stated length of the burst; the mark time is its start.
+    frequency_hz : centre frequency of the burst or click.
+    duration_s : stated length of the burst.
     min_score : smallest normalised correlation (0..1) that counts as a mark.
     min_level_db : smallest RMS under the burst (dB re full scale) that counts as a mark.
     min_gap_s : marks closer than this are one mark (the stronger wins).
     block_s : length of the streamed blocks.
-    start_s, end_s : search only this part of the recording.
+    start_s, end_s : search only this part of the recording (recording seconds).
     progress : optional callback ``(task, fraction)``.
 
     Returns
@@ -186,7 +221,11 @@ def detect_sync_marks(
     list of :class:`SyncMark`, sorted by ``recording_s``.
     """
     path = Path(path)
-    info = sf.info(str(path))
+    try:
+        info = sf.info(str(path))
+    except RuntimeError as exc:
+        raise InputError(f"cannot read the recording ({exc}); give a WAV/FLAC/OGG/AIFF file",
+                         path=path) from None
     sr = int(info.samplerate)
     if not 0 < frequency_hz < sr / 2:
         raise InputError(f"sync mark frequency {frequency_hz} Hz is not below half the sample rate "
@@ -194,74 +233,94 @@ def detect_sync_marks(
     tmpl = burst_template(frequency_hz=frequency_hz, duration_s=duration_s, sr=sr)
     n = tmpl.size
     kernel = np.conj(tmpl[::-1])
-    block_frames = max(int(block_s * sr), 8 * n)
-    overlap = n + 2
+    block_frames = max(int(block_s * sr), 16 * n)
+    overlap = 3 * n + int(0.02 * sr)
     first = int(max(start_s, 0.0) * sr)
     last = info.frames if end_s is None else min(info.frames, int(end_s * sr) + n)
     total = max(last - first, 1)
-    cand_t: list[float] = []
-    cand_s: list[float] = []
-    cand_c: list[float] = []
-    cand_l: list[float] = []
-    for b0, x in _blocks(path, block_frames=block_frames, overlap_frames=overlap):
-        if b0 + x.size <= first:
-            continue
-        if b0 >= last:
-            break
+    cand: list[tuple[float, float, float, float]] = []  # time, correlation, score, level
+    for b0, x in _blocks(path, first=first, last=last, block_frames=block_frames, overlap_frames=overlap):
         if x.size < n + 2:
             break
-        # corr[k] = sum_j x[k + j] * conj(tmpl[j]) for k = 0 .. len(x) - n
+        # corr[k] = |sum_j x[k + j] * conj(tmpl[j])| for k = 0 .. len(x) - n
         corr = np.abs(scipy.signal.fftconvolve(x, kernel, mode="valid"))
         c = np.concatenate([[0.0], np.cumsum(x * x)])
         energy = c[n:] - c[:-n]
-        norm = np.sqrt(np.maximum(energy, 1e-20))
-        # Cauchy-Schwarz bounds corr by norm; a real tone reaches half of it on the analytic
-        # template (the negative-frequency half is not matched), hence the factor sqrt(2)
-        score = np.minimum(np.sqrt(2.0) * corr / norm, 1.0)
+        # Cauchy-Schwarz bounds corr by sqrt(energy); a real tone reaches half of it on the
+        # analytic template (its negative-frequency half is not matched), hence sqrt(2)
+        score = np.minimum(np.sqrt(2.0) * corr / np.sqrt(np.maximum(energy, 1e-20)), 1.0)
         level_db = 10 * np.log10(np.maximum(energy / n, 1e-20))
-        # only positions owned by this block (the overlap belongs to the next one)
-        own_end = corr.size if b0 + x.size >= info.frames else x.size - overlap
         ok = (score >= min_score) & (level_db >= min_level_db)
+        # positions in the overlap belong to the next block, unless this is the last one
+        own_end = corr.size if b0 + x.size >= last else x.size - overlap
         ok[own_end:] = False
-        idx = np.flatnonzero(ok)
-        if idx.size:
-            peaks, _ = scipy.signal.find_peaks(np.where(ok, corr, 0.0))
+        if ok.any():
+            peaks, _ = scipy.signal.find_peaks(np.where(ok, corr, 0.0), distance=max(n // 2, 1))
             for k in peaks:
                 k = int(k)
-                if k <= 0 or k >= corr.size - 1:
-                    continue
-                frac = _parabolic(corr[k - 1], corr[k], corr[k + 1])
-                t = (b0 + k + frac) / sr
+                t = (b0 + half_rise_onset(x, k, sr=sr, frequency_hz=frequency_hz,
+                                          duration_s=duration_s)) / sr
                 if t < start_s or (end_s is not None and t > end_s):
                     continue
-                cand_t.append(t)
-                cand_c.append(float(corr[k]))  # clusters keep the largest correlation
-                cand_s.append(float(score[k]))
-                cand_l.append(float(level_db[k]))
+                cand.append((t, float(corr[k]), float(score[k]), float(level_db[k])))
         if progress is not None:
             progress("sync marks", min(1.0, (b0 + x.size - first) / total))
-    return _merge_close(cand_t, cand_c, cand_s, cand_l, min_gap_s=min_gap_s)
+    return _merge_close(cand, min_gap_s=min_gap_s)
 
 
-def _merge_close(ts, strengths, scores, levels, *, min_gap_s: float) -> list[SyncMark]:
-    """Keep the strongest candidate in every cluster of candidates closer than ``min_gap_s``."""
-    if not ts:
+def _merge_close(cand, *, min_gap_s: float) -> list[SyncMark]:
+    """Keep the strongest candidate of every cluster of candidates closer than ``min_gap_s``."""
+    if not cand:
         return []
-    order = np.argsort(ts, kind="stable")
-    t = np.asarray(ts)[order]
-    s = np.asarray(strengths)[order]
-    sc = np.asarray(scores)[order]
-    lv = np.asarray(levels)[order]
+    cand = sorted(cand)
     out: list[SyncMark] = []
     i = 0
-    while i < t.size:
+    while i < len(cand):
         j = i
-        while j + 1 < t.size and t[j + 1] - t[j] < min_gap_s:
+        while j + 1 < len(cand) and cand[j + 1][0] - cand[j][0] < min_gap_s:
             j += 1
-        k = i + int(np.argmax(s[i:j + 1]))
-        out.append(SyncMark(recording_s=float(t[k]), score=float(sc[k]), level_db=float(lv[k])))
+        best = max(cand[i:j + 1], key=lambda c: c[1])
+        out.append(SyncMark(recording_s=best[0], score=best[2], level_db=best[3]))
         i = j + 1
     return out
+
+
+def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: float = 0.02):
+    """Pick, among detected marks, the one that goes with each recorder time.
+
+    The recorder times fix the spacing of the marks; every detected mark is tried as the
+    partner of the first recorder time, the others are predicted from the spacing and matched
+    to the nearest detected mark within ``tol_s + max_drift_ppm * 1e-6 * spacing``. The anchor
+    matching the most recorder times (then the smallest total error) wins, so extra detections
+    (claps that look like clicks, say) are ignored.
+
+    Returns
+    -------
+    (recording_s, missing) : array of matched recording times (NaN where none matched) and the
+    indices of recorder times without a mark.
+    """
+    det = np.sort(np.asarray(detected_s, dtype=np.float64))
+    rec = np.asarray(recorder_s, dtype=np.float64)
+    best = (-1, np.inf, np.full(rec.size, np.nan))
+    for d0 in det:
+        pred = d0 + (rec - rec[0])
+        tol = tol_s + max_drift_ppm * 1e-6 * np.abs(rec - rec[0])
+        j = np.clip(np.searchsorted(det, pred), 1, max(det.size - 1, 1))
+        cand = np.stack([det[j - 1], det[np.minimum(j, det.size - 1)]])
+        k = np.argmin(np.abs(cand - pred), axis=0)
+        near = cand[k, np.arange(rec.size)]
+        err = np.abs(near - pred)
+        ok = err <= tol
+        got = np.where(ok, near, np.nan)
+        # one detection may serve one recorder time only
+        vals = got[ok]
+        if vals.size != np.unique(vals).size:
+            continue
+        score = (int(ok.sum()), -float(err[ok].sum()))
+        if score > (best[0], -best[1]):
+            best = (score[0], -score[1], got)
+    got = best[2]
+    return got, [int(i) for i in np.flatnonzero(~np.isfinite(got))]
 
 
 def fit_clock(recording_s, recorder_s, *, residual_warn_s: float = RESIDUAL_WARN_S) -> ClockFit:
