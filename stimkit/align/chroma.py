@@ -1,0 +1,286 @@
+"""Audio-side alignment features: CQT chroma and decaying chroma-onset features, block-wise.
+
+:func:`audio_features` streams a recording (mono mix, resampled to 22 050 Hz), computes a
+constant-Q transform (librosa) block by block with overlapping margins, and returns
+
+- ``chroma``: energy of each pitch class (CQT bins C2..B7 folded to 12), log-compressed and
+  L2-normalised per frame; frames below the silence floor get the flat vector;
+- ``onset``: decaying locally adaptive normalised chroma-onset features (DLNCO, Ewert, Müller &
+  Grosche 2009): per pitch the half-wave rectified increase of log energy, folded to 12 pitch
+  classes, divided by the local maximum of the frame norms (window ``norm_window_s``) and
+  followed by a decaying tail of ``decay_frames`` frames (square-root shape);
+- ``energy``: frame energy (mean CQT power, linear), used for silence checks.
+
+Conventions
+-----------
+- ``recording`` time: frame ``k`` is centred at ``start_s + k * hop / sr`` seconds from the first
+  sample of the file (librosa ``center=True`` framing; block margins are whole hops, so blocks
+  join without a seam).
+- The hop is 448 samples at 22 050 Hz (49.2 Hz frame rate): a multiple of 64, the condition under
+  which the multirate CQT stays fast (REFERENCES.md, *measured*).
+- The post-processing (:func:`finish_chroma`, :func:`dlnco`) is shared with the score side
+  (:mod:`stimkit.align.template`) so both sides go through the same compression.
+
+References
+----------
+.. [1] S. Ewert, M. Müller, P. Grosche. "High resolution audio synchronization using chroma
+   onset features", ICASSP 2009.
+.. [2] M. Müller. *Fundamentals of Music Processing*, Springer 2015, ch. 3.1 (chroma, log
+   compression).
+.. [3] C. Schörkhuber, A. Klapuri. "Constant-Q transform toolbox for music processing",
+   SMC 2010 (librosa's CQT).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..errors import InputError
+
+__all__ = [
+    "SR",
+    "HOP",
+    "RATE_HZ",
+    "AlignFeatures",
+    "audio_features",
+    "cqt_pitch_energy",
+    "finish_chroma",
+    "fold_octaves",
+    "dlnco",
+    "read_mono_blocks",
+]
+
+SR = 22050
+HOP = 448
+RATE_HZ = SR / HOP
+#: MIDI pitch of the lowest CQT bin (C2) and the number of bins (six octaves, to B7)
+FMIN_MIDI = 36
+N_BINS = 72
+_MARGIN_HOPS = 128          # 2.6 s of context each side of a block (longest CQT filter ~0.3 s)
+CHROMA_GAMMA = 1.0
+ONSET_GAMMA = 1000.0
+SILENCE_DB = -60.0          # frames this far below the loudest are flat
+
+
+@dataclass
+class AlignFeatures:
+    """Frame-wise alignment features of one sequence (score or recording)."""
+
+    chroma: np.ndarray          # (n, 12) unit vectors
+    onset: np.ndarray           # (n, 12) DLNCO
+    rate_hz: float
+    start_s: float = 0.0        # time of frame 0 (recording: seconds in the file; score: nominal)
+    energy: np.ndarray | None = None
+    meta: dict = field(default_factory=dict)
+
+    @property
+    def n_frames(self) -> int:
+        return int(self.chroma.shape[0])
+
+    def times(self) -> np.ndarray:
+        return self.start_s + np.arange(self.n_frames) / self.rate_hz
+
+
+def read_mono_blocks(path, *, sr: int = SR, block_s: float = 30.0, start_s: float = 0.0,
+                     end_s: float | None = None):
+    """Yield the recording as mono float32 blocks resampled to ``sr`` (soxr streaming).
+
+    Raises :class:`InputError` when the file cannot be read.
+    """
+    import soundfile as sf
+    import soxr
+
+    try:
+        f = sf.SoundFile(str(path))
+    except Exception as exc:  # soundfile raises its own LibsndfileError / RuntimeError
+        raise InputError(f"cannot read the recording ({exc}); give a WAV, FLAC, OGG or AIFF file",
+                         path=path) from None
+    with f:
+        in_sr = f.samplerate
+        s0 = int(round(max(start_s, 0.0) * in_sr))
+        s1 = f.frames if end_s is None else min(f.frames, int(round(end_s * in_sr)))
+        if s0 > 0:
+            f.seek(min(s0, f.frames))
+        left = max(s1 - s0, 0)
+        rs = None if in_sr == sr else soxr.ResampleStream(in_sr, sr, 1, dtype="float32", quality="HQ")
+        step = max(int(block_s * in_sr), 1)
+        while left > 0:
+            x = f.read(min(step, left), dtype="float32", always_2d=True)
+            if len(x) == 0:
+                break
+            left -= len(x)
+            mono = x.mean(axis=1).astype(np.float32)
+            if rs is not None:
+                mono = rs.resample_chunk(mono, last=left <= 0)
+            if len(mono):
+                yield mono
+        if rs is not None and left > 0:  # file ended early
+            tail = rs.resample_chunk(np.zeros(0, np.float32), last=True)
+            if len(tail):
+                yield tail
+
+
+def cqt_pitch_energy(y, *, sr: int = SR, hop: int = HOP) -> np.ndarray:
+    """CQT power ``(frames, N_BINS)`` of ``y``, frames centred at ``k * hop``."""
+    import librosa
+
+    C = librosa.cqt(y, sr=sr, hop_length=hop, fmin=librosa.midi_to_hz(FMIN_MIDI), n_bins=N_BINS,
+                    bins_per_octave=12, pad_mode="constant")
+    return (np.abs(C) ** 2).T.astype(np.float64)
+
+
+def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=None, total_frames=None):
+    """Stream blocks of samples, return CQT power of every frame of the whole signal."""
+    margin = _MARGIN_HOPS * hop
+    need = block_frames * hop
+    buf = np.zeros(margin, dtype=np.float32)    # virtual zero padding before the start
+    out = []
+    done = 0
+
+    def emit(chunk, n_frames):
+        P = cqt_pitch_energy(chunk, sr=sr, hop=hop)
+        out.append(P[_MARGIN_HOPS:_MARGIN_HOPS + n_frames])
+
+    n_samples = 0
+    for b in blocks:
+        n_samples += len(b)
+        buf = np.concatenate([buf, b])
+        while len(buf) >= margin + need + margin:
+            emit(buf[: margin + need + margin], block_frames)
+            buf = buf[need:]
+            done += block_frames
+            if progress is not None and total_frames:
+                progress("audio features", min(done / total_frames, 1.0))
+    n_total = n_samples // hop + 1 if n_samples else 0
+    rest = n_total - done
+    while rest > 0:
+        k = min(rest, block_frames)
+        chunk = buf[: margin + k * hop + margin]
+        if len(chunk) < margin + k * hop + margin:
+            chunk = np.concatenate([chunk, np.zeros(margin + k * hop + margin - len(chunk), np.float32)])
+        emit(chunk, k)
+        buf = buf[k * hop:]
+        rest -= k
+    if progress is not None:
+        progress("audio features", 1.0)
+    return (np.concatenate(out, axis=0) if out else np.zeros((0, N_BINS))), n_samples
+
+
+def fold_octaves(pitch_energy, *, fmin_midi: int = FMIN_MIDI) -> np.ndarray:
+    """Sum a ``(frames, bins)`` semitone array into 12 pitch classes (column 0 = C)."""
+    P = np.asarray(pitch_energy, dtype=np.float64)
+    out = np.zeros((P.shape[0], 12))
+    for b in range(P.shape[1]):
+        out[:, (fmin_midi + b) % 12] += P[:, b]
+    return out
+
+
+def finish_chroma(chroma_energy, *, floor_db: float = SILENCE_DB) -> np.ndarray:
+    """Log-compress and L2-normalise ``(frames, 12)`` chroma energy; quiet frames become flat.
+
+    Compression ``log(1 + gamma * x / max(x))`` (Müller 2015, ch. 3.1) with gamma = 100,
+    relative to the largest frame so that the level of the recording does not matter.
+    """
+    E = np.asarray(chroma_energy, dtype=np.float64)
+    if E.size == 0:
+        return np.zeros((0, 12))
+    tot = E.sum(axis=1)
+    peak = float(tot.max()) if tot.size else 0.0
+    flat = np.full(12, 1.0 / np.sqrt(12.0))
+    if peak <= 0:
+        return np.tile(flat, (E.shape[0], 1))
+    X = np.log1p(CHROMA_GAMMA * E / E.max())
+    nrm = np.linalg.norm(X, axis=1, keepdims=True)
+    quiet = (tot <= peak * 10 ** (floor_db / 10.0))[:, None] | (nrm < 1e-9)
+    return np.where(quiet, flat, X / np.maximum(nrm, 1e-12))
+
+
+def dlnco(onset_chroma, *, rate_hz: float, norm_window_s: float = 2.0, decay_frames: int = 10) -> np.ndarray:
+    """Decaying locally adaptive normalised chroma-onset features (Ewert, Müller & Grosche 2009).
+
+    ``onset_chroma`` is a ``(frames, 12)`` array of non-negative onset strengths. Each frame is
+    divided by the largest frame norm within ``norm_window_s`` (centred), then every value is
+    followed by a tail ``sqrt((decay_frames - k) / decay_frames)``, ``k = 0..decay_frames-1``
+    (maximum over overlapping tails).
+    """
+    from scipy.ndimage import maximum_filter1d
+
+    X = np.asarray(onset_chroma, dtype=np.float64)
+    if X.shape[0] == 0:
+        return X.copy()
+    nrm = np.linalg.norm(X, axis=1)
+    size = max(int(round(norm_window_s * rate_hz)) | 1, 1)
+    local = maximum_filter1d(nrm, size, mode="nearest")
+    peak = float(nrm.max())
+    X = X / np.maximum(local, 1e-3 * peak + 1e-12)[:, None]
+    out = X.copy()
+    for k in range(1, decay_frames):
+        w = np.sqrt((decay_frames - k) / decay_frames)
+        out[k:] = np.maximum(out[k:], w * X[:-k])
+    return out
+
+
+def onset_from_pitch_energy(P, *, rate_hz: float = RATE_HZ) -> np.ndarray:
+    """Chroma-onset strengths from CQT power: rectified increase of log energy, folded to 12."""
+    P = np.asarray(P, dtype=np.float64)
+    if P.shape[0] == 0:
+        return np.zeros((0, 12))
+    L = np.log1p(ONSET_GAMMA * P / max(float(P.max()), 1e-30))
+    D = np.zeros_like(L)
+    D[1:] = np.maximum(L[1:] - L[:-1], 0.0)
+    return fold_octaves(D)
+
+
+def audio_features(
+    path,
+    *,
+    span_s: tuple[float, float] | None = None,
+    block_s: float = 60.0,
+    progress=None,
+) -> AlignFeatures:
+    """Alignment features of a recording (see module docstring).
+
+    Parameters
+    ----------
+    path : path-like
+        The recording (anything soundfile reads).
+    span_s : (start, end) or None
+        Only this part of the file, in ``recording`` seconds; frame times stay seconds from the
+        first sample of the file.
+    block_s : float
+        Seconds of audio per CQT block (memory stays bounded by the block, not the file).
+    """
+    import soundfile as sf
+
+    path = Path(path)
+    if not path.is_file():
+        raise InputError("recording not found; check the path", path=path)
+    try:
+        info = sf.info(str(path))
+    except Exception as exc:
+        raise InputError(f"cannot read the recording ({exc}); give a WAV, FLAC, OGG or AIFF file",
+                         path=path) from None
+    dur = info.frames / info.samplerate if info.samplerate else 0.0
+    start, end = 0.0, dur
+    if span_s is not None:
+        start, end = max(0.0, float(span_s[0])), min(dur, float(span_s[1]))
+        if not end > start:
+            raise InputError(f"span {span_s[0]:.3f}-{span_s[1]:.3f} s is empty or outside the "
+                             f"recording ({dur:.3f} s)", path=path)
+    # start on a whole hop so frames stay on the file's grid
+    start = np.floor(start * SR / HOP) * HOP / SR
+    block_frames = max(int(block_s * RATE_HZ), 16)
+    total_frames = int((end - start) * RATE_HZ) + 1
+    blocks = read_mono_blocks(path, sr=SR, block_s=min(block_s, 30.0), start_s=start, end_s=end)
+    P, n_samples = _blockwise_energy(blocks, block_frames=block_frames, sr=SR, hop=HOP,
+                                     progress=progress, total_frames=total_frames)
+    energy = P.mean(axis=1) if P.size else np.zeros(0)
+    chroma = finish_chroma(fold_octaves(P))
+    onset = dlnco(onset_from_pitch_energy(P), rate_hz=RATE_HZ)
+    return AlignFeatures(chroma=chroma, onset=onset, rate_hz=RATE_HZ, start_s=float(start),
+                         energy=energy,
+                         meta={"duration_s": float(dur), "samples_read": int(n_samples),
+                               "sample_rate_hz": int(info.samplerate), "channels": int(info.channels)})
