@@ -24,7 +24,7 @@ from ..levels import COLUMN_INFO, EVENT_COLUMNS, HED_TAGS, TRIAL_TYPES
 from .tables import OutputSet
 
 __all__ = [
-    "bids_name", "write_stim", "events_sidecar", "prepare_events", "write_events", "write_beats",
+    "bids_name", "write_stim", "events_sidecar", "hed_annotation", "prepare_events", "write_events", "write_beats",
     "dataset_description", "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
 ]
 
@@ -122,6 +122,19 @@ def _check_levels(events: pd.DataFrame) -> list[str]:
     return [lvl for lvl in TRIAL_TYPES if lvl in present]
 
 
+def hed_annotation(level: str) -> str:
+    """The HED string of one ``trial_type`` level: its tags and ``Label/<level>`` in one group.
+
+    HED tools assemble the rows that share an onset into one event, so two kinds with the same
+    tags at the same time (a dynamic and a hairpin, say) would repeat a tag, which HED rejects
+    (``TAG_EXPRESSION_REPEATED``). One parenthesized group per row, made distinct by a
+    ``Label`` tag naming the level, keeps simultaneous events of different kinds valid. Two
+    rows of the *same* kind at the same onset still repeat their group: merge them before
+    export (e.g. one row with ``part`` listing the parts).
+    """
+    return f"({HED_TAGS[level]}, Label/{level})"
+
+
 def events_sidecar(events: pd.DataFrame, *, extra: dict | None = None,
                    synchronized: bool | None = None) -> dict:
     """The ``*_events.json`` sidecar describing every column of ``events`` (BIDS 1.11).
@@ -177,7 +190,7 @@ def events_sidecar(events: pd.DataFrame, *, extra: dict | None = None,
         if c == "trial_type":
             levels = _check_levels(events)
             entry["Levels"] = {lvl: TRIAL_TYPES[lvl] for lvl in levels}
-            entry["HED"] = {lvl: HED_TAGS[lvl] for lvl in levels if lvl in HED_TAGS}
+            entry["HED"] = {lvl: hed_annotation(lvl) for lvl in levels if lvl in HED_TAGS}
         if isinstance(extra.get(c), dict):
             entry.update(extra.pop(c))
         side[c] = entry
