@@ -133,21 +133,16 @@ def burst_template(*, frequency_hz: float, duration_s: float, sr: int) -> np.nda
     return tmpl / np.sqrt(n)
 
 
-def _blocks(path: Path, *, first: int, last: int, block_frames: int, overlap_frames: int):
-    """Yield ``(first_sample, mono_block)`` over samples ``[first, last)``; consecutive blocks
-    overlap by ``overlap_frames`` so a mark cut by a block edge is whole in the next block."""
-    with sf.SoundFile(str(path)) as fh:
-        start = first
-        hop = block_frames - overlap_frames
-        while start < last:
-            fh.seek(start)
-            data = fh.read(min(block_frames, last - start), dtype="float64", always_2d=True)
-            if data.shape[0] == 0:
-                break
-            yield start, data.mean(axis=1)
-            if start + data.shape[0] >= last:
-                break
-            start += hop
+def _blocks(path: Path, *, first: int, last: int, sr: int, block_frames: int, overlap_frames: int):
+    """Yield ``(first_sample, mono_block)`` over samples ``[first, last)`` streamed by
+    :func:`stimkit.audio.read.iter_blocks`; consecutive blocks overlap by ``overlap_frames`` so a
+    mark cut by a block edge is whole in the next block."""
+    from ..audio.read import iter_blocks
+
+    for t0, x in iter_blocks(path, block_s=(block_frames - overlap_frames) / sr,
+                             overlap_s=overlap_frames / sr, mono=True, start_s=first / sr,
+                             end_s=last / sr):
+        yield int(round(t0 * sr)), np.asarray(x, dtype=np.float64)
 
 
 def half_rise_onset(x: np.ndarray, k: int, *, sr: int, frequency_hz: float, duration_s: float) -> float:
@@ -239,7 +234,7 @@ def detect_sync_marks(
     last = info.frames if end_s is None else min(info.frames, int(end_s * sr) + n)
     total = max(last - first, 1)
     cand: list[tuple[float, float, float, float]] = []  # time, correlation, score, level
-    for b0, x in _blocks(path, first=first, last=last, block_frames=block_frames, overlap_frames=overlap):
+    for b0, x in _blocks(path, first=first, last=last, sr=sr, block_frames=block_frames, overlap_frames=overlap):
         if x.size < n + 2:
             break
         # corr[k] = |sum_j x[k + j] * conj(tmpl[j])| for k = 0 .. len(x) - n
@@ -251,9 +246,12 @@ def detect_sync_marks(
         score = np.minimum(np.sqrt(2.0) * corr / np.sqrt(np.maximum(energy, 1e-20)), 1.0)
         level_db = 10 * np.log10(np.maximum(energy / n, 1e-20))
         ok = (score >= min_score) & (level_db >= min_level_db)
-        # positions in the overlap belong to the next block, unless this is the last one
-        own_end = corr.size if b0 + x.size >= last else x.size - overlap
+        # the overlap (but its first n samples) belongs to the next block, unless this is the
+        # last one; both blocks then see a mark with context on both sides
+        own_end = corr.size if b0 + x.size >= last else x.size - overlap + n
+        own_start = overlap - n if b0 > first else 0
         ok[own_end:] = False
+        ok[:own_start] = False
         if ok.any():
             peaks, _ = scipy.signal.find_peaks(np.where(ok, corr, 0.0), distance=max(n // 2, 1))
             for k in peaks:
