@@ -1,0 +1,563 @@
+"""Load a score file (MusicXML, compressed MusicXML, MIDI) into a :class:`ScoreModel`.
+
+What it computes
+----------------
+:func:`load_score` validates the file, parses it with music21, records every printed bar (number,
+offset, length, meter) and every marking and note *relative to its printed bar*, works out the
+performed order of the printed bars (:mod:`stimkit.score.repeats`), lays the bars end to end in
+that order and maps notes and markings through it. Boundaries (:mod:`stimkit.score.markings`) and
+the nominal tempo map (:mod:`stimkit.score.tempomap`) are built from the performed markings.
+
+Conventions
+-----------
+- ``score_qn`` counts quarter notes from the start of the score as performed; printed bar
+  numbers are kept (``measure``) with the ``pass`` through the bar (1, 2, ...).
+- Notes: one row per sounding note; tied notes are merged *in performed order* (a tie into a
+  first ending and its repeat both resolve); grace notes get ``GRACE_QN`` quarter notes; chords
+  give one row per pitch; unpitched notes are left out.
+- Velocity: the dynamic in force in the note's part (:data:`stimkit.score.markings.VELOCITY`,
+  default ``mf`` before the first dynamic), ramped through hairpins, raised on accents.
+- Safety: XML is parsed with :mod:`defusedxml` (DOCTYPE entity declarations are refused) and the
+  checked tree is handed to music21's MusicXML importer, so the file is read once.
+- Known music21 pitfalls handled here (measured on music21 10.5.1): ``<other-dynamics>`` loses its
+  text (the tag is renamed before import); ``getContextByClass(TimeSignature)`` returns the
+  previous meter on a bar that changes meter (``Measure.timeSignature`` is read first); wedge ends
+  point to the last note *start* (its duration is added); ``expandRepeats`` is not used.
+
+References
+----------
+.. [1] Cuthbert, M. S. & Ariza, C. (2010). music21: A toolkit for computer-aided musicology and
+   symbolic music data. Proc. ISMIR.
+.. [2] MusicXML 4.0 specification (W3C Music Notation Community Group).
+"""
+
+from __future__ import annotations
+
+import zipfile
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError
+from .model import BOUNDARY_COLUMNS, MEASURE_COLUMNS, NOTE_COLUMNS, ScoreModel
+from .repeats import BarMarks, RepeatError, performed_order
+
+__all__ = ["load_score", "SCORE_SUFFIXES", "GRACE_QN", "read_music21", "PrintedScore", "collect_printed"]
+
+XML_SUFFIXES = (".musicxml", ".xml")
+MXL_SUFFIXES = (".mxl",)
+MIDI_SUFFIXES = (".mid", ".midi")
+SCORE_SUFFIXES = XML_SUFFIXES + MXL_SUFFIXES + MIDI_SUFFIXES
+GRACE_QN = 0.0625
+MAX_XML_BYTES = 200_000_000
+
+
+# --------------------------------------------------------------------------------------------
+# reading and validation
+# --------------------------------------------------------------------------------------------
+def _xml_bytes_from_mxl(path: Path) -> bytes:
+    try:
+        with zipfile.ZipFile(path) as zf:
+            names = zf.namelist()
+            root_name = None
+            if "META-INF/container.xml" in names:
+                cont = _safe_xml(zf.read("META-INF/container.xml"), path)
+                for el in cont.iter():
+                    if el.tag.endswith("rootfile") and el.get("full-path"):
+                        root_name = el.get("full-path")
+                        break
+            if root_name is None:
+                cands = [n for n in names if n.lower().endswith(XML_SUFFIXES) and not n.startswith("META-INF")]
+                if not cands:
+                    raise InputError("compressed MusicXML holds no score file", path=path)
+                root_name = cands[0]
+            info = zf.getinfo(root_name)
+            if info.file_size > MAX_XML_BYTES:
+                raise InputError("score inside the .mxl is larger than 200 MB; refused", path=path)
+            return zf.read(root_name)
+    except (zipfile.BadZipFile, KeyError, OSError) as exc:
+        raise InputError(f"not a readable compressed MusicXML (.mxl) file ({exc}); "
+                         "export the score again", path=path) from None
+
+
+def _safe_xml(data: bytes, path: Path):
+    """Parse XML bytes with defusedxml; refuse entity declarations; one-line errors."""
+    import defusedxml.ElementTree as DET
+    from defusedxml import DefusedXmlException
+    from xml.etree.ElementTree import ParseError
+
+    try:
+        return DET.fromstring(data, forbid_dtd=False, forbid_entities=True, forbid_external=True)
+    except DefusedXmlException:
+        raise InputError("the XML declares DOCTYPE entities (refused for safety, e.g. an entity "
+                         "bomb); remove the entity declarations", path=path) from None
+    except ParseError as exc:
+        raise InputError(f"malformed XML ({exc}); check the file is a complete MusicXML export",
+                         path=path) from None
+
+
+def read_music21(path: str | Path):
+    """Validate ``path`` and parse it with music21; returns a ``music21.stream.Score``.
+
+    Raises :class:`InputError` for a missing file, an unknown extension, non-XML or malformed
+    XML, XML with entity declarations, a non-MusicXML root, or a file music21 cannot read.
+    """
+    path = Path(path)
+    if not path.exists():
+        raise InputError("score file not found; check the path", path=path)
+    if not path.is_file():
+        raise InputError("score path is not a file", path=path)
+    suffix = path.suffix.lower()
+    if suffix not in SCORE_SUFFIXES:
+        raise InputError(f"unsupported score extension '{path.suffix}'; use one of "
+                         + ", ".join(SCORE_SUFFIXES), path=path)
+    if suffix in MIDI_SUFFIXES:
+        from music21 import converter
+
+        with open(path, "rb") as fh:
+            head = fh.read(4)
+        if head != b"MThd":
+            raise InputError("not a standard MIDI file (no MThd header)", path=path)
+        try:
+            return converter.parse(str(path), format="midi", forceSource=True)
+        except Exception as exc:  # music21 raises many kinds
+            raise InputError(f"music21 cannot read this MIDI file ({type(exc).__name__}: {exc})",
+                             path=path) from None
+    if suffix in MXL_SUFFIXES:
+        data = _xml_bytes_from_mxl(path)
+    else:
+        if path.stat().st_size > MAX_XML_BYTES:
+            raise InputError("score file is larger than 200 MB; refused", path=path)
+        data = path.read_bytes()
+    if not data.lstrip()[:1] == b"<" and not data.startswith(b"\xef\xbb\xbf"):
+        raise InputError("not an XML file; give a MusicXML export (.musicxml, .xml, .mxl)", path=path)
+    root = _safe_xml(data, path)
+    if root.tag == "score-timewise":
+        raise InputError("score-timewise MusicXML is not supported; export as partwise", path=path)
+    if root.tag != "score-partwise":
+        raise InputError(f"XML root is <{root.tag}>, not a MusicXML <score-partwise>", path=path)
+    # music21 looks for <other-dynamic>; the MusicXML element is <other-dynamics>
+    for el in root.iter("other-dynamics"):
+        el.tag = "other-dynamic"
+    from music21.musicxml.xmlToM21 import MusicXMLImporter
+
+    try:
+        imp = MusicXMLImporter()
+        imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
+        return imp.stream
+    except Exception as exc:
+        raise InputError(f"music21 cannot import this MusicXML ({type(exc).__name__}: {exc})",
+                         path=path) from None
+
+
+# --------------------------------------------------------------------------------------------
+# printed-order collection
+# --------------------------------------------------------------------------------------------
+@dataclass
+class PrintedScore:
+    """Everything read from the score, positioned by (printed bar index, offset in bar)."""
+
+    bars: pd.DataFrame  # index, measure, label, offset, duration_qn, numerator, denominator, beat_qn, first_beat, bar_qn, key...
+    marks: list[BarMarks]
+    notes: pd.DataFrame  # part, bar, off, dur, pitch, tie, accent
+    events: pd.DataFrame  # kind, part, bar, off, end_bar, end_off, text, num, num2, ...
+    parts: list[str]
+    warnings: list[str] = field(default_factory=list)
+    is_midi: bool = False
+
+
+def _part_names(parts) -> list[str]:
+    names = []
+    for k, p in enumerate(parts):
+        nm = (getattr(p, "partName", None) or "").strip() or str(p.id or f"part {k + 1}")
+        names.append(nm)
+    # PartStaff objects of one instrument share a name: keep it (a part = an instrument);
+    # distinct Parts with equal names are told apart by a number
+    from music21 import stream
+
+    out = []
+    seen: dict[str, int] = {}
+    for p, nm in zip(parts, names):
+        if isinstance(p, stream.PartStaff) and nm in seen and out and out[-1].split(" #")[0] == nm:
+            out.append(out[-1])
+            continue
+        seen[nm] = seen.get(nm, 0) + 1
+        out.append(nm if seen[nm] == 1 else f"{nm} #{seen[nm]}")
+    return out
+
+
+def _volta_numbers(rb) -> tuple[int, ...]:
+    try:
+        nums = rb.getNumberList()
+    except Exception:
+        nums = []
+    return tuple(int(n) for n in nums if n is not None)
+
+
+def collect_printed(score, *, path: Path) -> PrintedScore:
+    """Read bars, notes and markings of a music21 score in printed order."""
+    from music21 import (bar, chord, dynamics, expressions, key, meter, note, repeat, spanner,
+                         stream, tempo, articulations)
+
+    parts = list(score.parts)
+    if not parts:
+        if score.getElementsByClass(stream.Measure):
+            parts = [score]
+        else:
+            raise InputError("score has no parts or bars", path=path)
+    names = _part_names(parts)
+    warnings: list[str] = []
+    ref = list(parts[0].getElementsByClass(stream.Measure))
+    if not ref:
+        # e.g. a flat MIDI part: make bars
+        score = score.makeMeasures() if not score.parts else score
+        parts = [p.makeMeasures() for p in parts]
+        ref = list(parts[0].getElementsByClass(stream.Measure))
+        if not ref:
+            raise InputError("score has no bars", path=path)
+    n = len(ref)
+    offsets = np.array([float(m.offset) for m in ref])
+    part_measures = []
+    for k, p in enumerate(parts):
+        ms = list(p.getElementsByClass(stream.Measure))
+        if len(ms) != n:
+            warnings.append(f"part '{names[k]}' has {len(ms)} bars, the first part {n}; "
+                            "bars matched by position")
+            offs = np.array([float(m.offset) for m in ms])
+            idx = np.clip(np.searchsorted(offsets, offs + 1e-6, side="right") - 1, 0, n - 1)
+            part_measures.append(list(zip(idx.tolist(), ms)))
+        else:
+            part_measures.append(list(enumerate(ms)))
+
+    # --- bars: length, meter -----------------------------------------------------------------
+    ts_cur = None
+    rows = []
+    for i, m in enumerate(ref):
+        ts = m.timeSignature
+        if ts is None and ts_cur is None:
+            ts = m.getContextByClass(meter.TimeSignature)
+        if ts is not None:
+            ts_cur = ts
+        if ts_cur is None:
+            ts_cur = meter.TimeSignature("4/4")
+            warnings.append("no time signature; 4/4 assumed")
+        bar_qn = float(ts_cur.barDuration.quarterLength)
+        beat_qn = float(ts_cur.beatDuration.quarterLength)
+        if i + 1 < n:
+            dur = float(offsets[i + 1] - offsets[i])
+        else:
+            dur = max(float(pm[-1][1].duration.quarterLength) if pm else 0.0 for pm in part_measures)
+        if dur <= 1e-9:
+            dur = bar_qn
+        pad = float(getattr(m, "paddingLeft", 0.0) or 0.0)
+        first_beat = 1.0
+        if pad > 1e-9:
+            first_beat = 1.0 + pad / beat_qn
+        elif i == 0 and dur < bar_qn - 1e-6:
+            first_beat = 1.0 + (bar_qn - dur) / beat_qn
+        rows.append(dict(index=i, measure=int(m.number), label=str(m.measureNumberWithSuffix()),
+                         offset=float(offsets[i]), duration_qn=dur, numerator=int(ts_cur.numerator),
+                         denominator=int(ts_cur.denominator), beat_qn=beat_qn,
+                         first_beat=first_beat, bar_qn=bar_qn, meter=ts_cur.ratioString))
+    bars = pd.DataFrame(rows)
+
+    # --- per-part walk ------------------------------------------------------------------------
+    marks = [BarMarks() for _ in range(n)]
+    note_rows: list[tuple] = []
+    ev: list[dict] = []
+    where: dict[int, tuple[int, int, float, float]] = {}  # id(general note) -> (part, bar, off, dur)
+
+    def add(kind, k, i, off, **kw):
+        d = dict(kind=kind, part=k, bar=i, off=float(off))
+        d.update(kw)
+        ev.append(d)
+
+    for k, pm in enumerate(part_measures):
+        key_cur = None
+        for i, m in pm:
+            # barlines and repeats
+            for side, bl in (("left", m.leftBarline), ("right", m.rightBarline)):
+                if bl is None:
+                    continue
+                if isinstance(bl, bar.Repeat):
+                    if bl.direction == "start":
+                        marks[i].repeat_start = True
+                    elif bl.direction == "end":
+                        marks[i].repeat_end = True
+                        if bl.times is not None:
+                            marks[i].times = int(bl.times)
+                btype = getattr(bl, "type", None)
+                add("barline", k, i, 0.0 if side == "left" else float(bars.at[i, "duration_qn"]),
+                    text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
+            ksig = m.keySignature
+            if ksig is not None:
+                mode = getattr(ksig, "mode", None) if isinstance(ksig, key.Key) else None
+                tonic = ksig.tonic.name if isinstance(ksig, key.Key) else None
+                add("key", k, i, 0.0, num=float(ksig.sharps), text=mode or "", text2=tonic or "")
+                key_cur = ksig
+            elif key_cur is None and i == pm[0][0]:
+                ctx = m.getContextByClass(key.KeySignature)
+                if ctx is not None:
+                    key_cur = ctx
+                    mode = getattr(ctx, "mode", None) if isinstance(ctx, key.Key) else None
+                    tonic = ctx.tonic.name if isinstance(ctx, key.Key) else None
+                    add("key", k, i, 0.0, num=float(ctx.sharps), text=mode or "", text2=tonic or "")
+            stack = [(m, 0.0)]
+            while stack:
+                container, base = stack.pop()
+                for el in container:
+                    off = base + float(el.offset)
+                    if isinstance(el, stream.Voice):
+                        stack.append((el, off))
+                        continue
+                    if isinstance(el, note.GeneralNote):
+                        dur = float(el.duration.quarterLength)
+                        grace = dur <= 0 or el.duration.isGrace
+                        if grace:
+                            dur = GRACE_QN
+                        where[id(el)] = (k, i, off, dur)
+                        ferm = any(isinstance(x, expressions.Fermata) for x in el.expressions)
+                        if isinstance(el, note.Rest):
+                            if ferm:
+                                add("fermata", k, i, off, dur=dur, text="rest")
+                            continue
+                        if ferm:
+                            add("fermata", k, i, off, dur=dur, text="note")
+                        acc = 0
+                        for a in el.articulations:
+                            if isinstance(a, articulations.StrongAccent):
+                                acc = max(acc, 2)
+                            elif isinstance(a, articulations.Accent):
+                                acc = max(acc, 1)
+                        if isinstance(el, chord.Chord):
+                            for cn in el.notes:
+                                t = cn.tie if cn.tie is not None else el.tie
+                                note_rows.append((k, i, off, dur, int(cn.pitch.midi),
+                                                  t.type if t is not None else "", acc))
+                        elif isinstance(el, note.Note):
+                            t = el.tie
+                            note_rows.append((k, i, off, dur, int(el.pitch.midi),
+                                              t.type if t is not None else "", acc))
+                        continue
+                    if isinstance(el, dynamics.Dynamic):
+                        add("dynamic", k, i, off, text=str(el.value))
+                    elif isinstance(el, tempo.MetronomeMark):
+                        txt = "" if getattr(el, "textImplicit", True) else (el.text or "")
+                        num = el.number
+                        snd = el.numberSounding
+                        ref_ql = float(el.referent.quarterLength) if el.referent is not None else 1.0
+                        add("metronome", k, i, off, num=float(num) if num is not None else np.nan,
+                            num2=float(snd) if snd is not None else np.nan, ref_ql=ref_ql,
+                            text=txt, text2=el.referent.fullName if el.referent is not None else "")
+                    elif isinstance(el, tempo.TempoText):
+                        add("words", k, i, off, text=str(el.text or ""))
+                    elif isinstance(el, repeat.RepeatExpression):
+                        b = marks[i]
+                        if isinstance(el, repeat.Segno):
+                            b.segno = True
+                        elif isinstance(el, repeat.Coda):
+                            b.coda += 1
+                        elif isinstance(el, repeat.Fine):
+                            b.fine = True
+                        elif isinstance(el, (repeat.DaCapoAlFine, repeat.DaCapoAlCoda, repeat.DaCapo)):
+                            b.jump = "dc"
+                            b.jump_to = ("fine" if isinstance(el, repeat.DaCapoAlFine) else
+                                         "coda" if isinstance(el, repeat.DaCapoAlCoda) else None)
+                        elif isinstance(el, (repeat.DalSegnoAlFine, repeat.DalSegnoAlCoda,
+                                             repeat.DalSegno, repeat.AlSegno)):
+                            b.jump = "ds"
+                            b.jump_to = ("fine" if isinstance(el, repeat.DalSegnoAlFine) else
+                                         "coda" if isinstance(el, repeat.DalSegnoAlCoda) else None)
+                        add("repeatmark", k, i, off, text=type(el).__name__)
+                    elif isinstance(el, expressions.RehearsalMark):
+                        add("rehearsal", k, i, off, text=str(el.content))
+                    elif isinstance(el, expressions.TextExpression):
+                        add("words", k, i, off, text=str(el.content or ""))
+    # marks from later parts collapse to one entry per bar (the union is what matters)
+    for b in marks:
+        if b.coda > 2:
+            b.coda = 2 if b.coda % 2 == 0 else 1
+
+    # --- spanners: wedges and voltas -----------------------------------------------------------
+    seen_volta = set()
+    for sp in score.spannerBundle:
+        if isinstance(sp, dynamics.DynamicWedge):
+            first, last = sp.getFirst(), sp.getLast()
+            a, b_ = where.get(id(first)), where.get(id(last))
+            if a is None or b_ is None:
+                continue
+            kind = "crescendo" if isinstance(sp, dynamics.Crescendo) else "diminuendo"
+            add("wedge", a[0], a[1], a[2], text=kind, end_bar=b_[1], end_off=b_[2] + b_[3])
+        elif isinstance(sp, spanner.RepeatBracket):
+            nums = _volta_numbers(sp)
+            for m in sp.getSpannedElements():
+                if not isinstance(m, stream.Measure):
+                    continue
+                for k, pm in enumerate(part_measures):
+                    for i, mm in pm:
+                        if mm is m and (i, nums) not in seen_volta:
+                            seen_volta.add((i, nums))
+                            marks[i].voltas = tuple(sorted(set(marks[i].voltas) | set(nums)))
+    notes = pd.DataFrame(note_rows, columns=["part", "bar", "off", "dur", "pitch", "tie", "accent"])
+    events = pd.DataFrame(ev)
+    for c in ("text", "text2"):
+        if c not in events:
+            events[c] = ""
+    for c in ("num", "num2", "ref_ql", "dur", "end_bar", "end_off"):
+        if c not in events:
+            events[c] = np.nan
+    if events.empty:
+        events = pd.DataFrame(columns=["kind", "part", "bar", "off", "text", "text2", "num", "num2",
+                                       "ref_ql", "dur", "end_bar", "end_off"])
+    events["text"] = events["text"].fillna("")
+    events["text2"] = events["text2"].fillna("")
+    return PrintedScore(bars=bars, marks=marks, notes=notes, events=events, parts=names,
+                        warnings=warnings)
+
+
+# --------------------------------------------------------------------------------------------
+# performed order
+# --------------------------------------------------------------------------------------------
+def performed_bars(printed: PrintedScore, *, expand_repeats: bool) -> tuple[pd.DataFrame, list[str]]:
+    """Performed bars: ``index`` (printed), ``measure``, ``pass``, ``score_qn`` and bar columns."""
+    warnings = []
+    n = len(printed.bars)
+    if expand_repeats:
+        try:
+            order = performed_order(printed.marks)
+        except RepeatError as exc:
+            warnings.append(f"repeats not expanded ({exc}); bars kept in printed order")
+            order = list(range(n))
+        if not order:
+            order = list(range(n))
+    else:
+        order = list(range(n))
+    b = printed.bars.iloc[order].reset_index(drop=True)
+    b["pass"] = b.groupby("index").cumcount() + 1
+    b["score_qn"] = np.concatenate([[0.0], np.cumsum(b["duration_qn"].to_numpy())[:-1]])
+    return b, warnings
+
+
+def _place(df: pd.DataFrame, perf: pd.DataFrame, *, bar_col="bar", off_col="off") -> pd.DataFrame:
+    """Repeat each printed-bar row for every performed occurrence of its bar; adds ``score_qn``,
+    ``measure``, ``pass_``, ``perf`` (performed bar position)."""
+    occ = pd.DataFrame({"bar": perf["index"].to_numpy(), "perf": np.arange(len(perf)),
+                        "bar_start": perf["score_qn"].to_numpy(), "measure": perf["measure"].to_numpy(),
+                        "pass_": perf["pass"].to_numpy()})
+    out = df.merge(occ, left_on=bar_col, right_on="bar", how="inner", suffixes=("", "_o"))
+    out["score_qn"] = out["bar_start"] + out[off_col].astype(float)
+    return out
+
+
+def _merge_ties(notes: pd.DataFrame) -> pd.DataFrame:
+    """Merge tied notes (same part and pitch, tie stop/continue meeting an open tie)."""
+    if notes.empty:
+        return notes
+    notes = notes.sort_values(["part", "pitch", "score_qn"], kind="mergesort").reset_index(drop=True)
+    part = notes["part"].to_numpy()
+    pitch = notes["pitch"].to_numpy()
+    q = notes["score_qn"].to_numpy()
+    dur = notes["dur"].to_numpy().copy()
+    tie = notes["tie"].to_numpy()
+    keep = np.ones(len(notes), dtype=bool)
+    open_i = -1
+    for j in range(len(notes)):
+        if open_i >= 0 and (part[open_i] != part[j] or pitch[open_i] != pitch[j]):
+            open_i = -1
+        t = tie[j]
+        if t in ("stop", "continue") and open_i >= 0 and abs(q[open_i] + dur[open_i] - q[j]) < 1e-3:
+            dur[open_i] = q[j] + dur[j] - q[open_i]
+            keep[j] = False
+            if t == "stop":
+                open_i = -1
+            continue
+        open_i = j if t in ("start", "continue") else -1
+    notes["dur"] = dur
+    return notes[keep].reset_index(drop=True)
+
+
+def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
+    """Load a score file into a :class:`~stimkit.score.model.ScoreModel` in performed order.
+
+    Parameters
+    ----------
+    path : str or Path
+        ``.musicxml``, ``.xml``, ``.mxl`` or ``.mid``/``.midi``.
+    expand_repeats : bool
+        Expand repeats, voltas, D.C./D.S./Fine/Coda into the order performed (default). When the
+        marks are ambiguous the printed order is kept and a warning says so.
+
+    Returns
+    -------
+    ScoreModel
+        ``notes``, ``measures``, ``boundaries`` (:mod:`stimkit.score.markings`), ``tempo_map``
+        (score_qn -> nominal seconds, :mod:`stimkit.score.tempomap`), ``warnings``, ``parts``.
+
+    Raises
+    ------
+    InputError
+        Missing or unreadable file, wrong extension, non-XML / malformed XML, entity
+        declarations, no notes, a zero or negative tempo.
+    """
+    from . import markings, tempomap
+
+    path = Path(path)
+    score = read_music21(path)
+    printed = collect_printed(score, path=path)
+    printed.is_midi = path.suffix.lower() in MIDI_SUFFIXES
+    if printed.notes.empty:
+        raise InputError("score has no notes; nothing to plan", path=path)
+    perf, warns = performed_bars(printed, expand_repeats=expand_repeats)
+    warnings = list(printed.warnings) + warns
+
+    measures = perf[["measure", "pass", "score_qn", "duration_qn", "numerator", "denominator",
+                     "beat_qn", "first_beat"]].copy()
+    measures["label"] = perf["label"].to_numpy()
+    measures["index"] = perf["index"].to_numpy()
+    measures = measures.astype({"measure": int, "pass": int, "numerator": int, "denominator": int})
+
+    # notes in performed order
+    pn = _place(printed.notes, perf)
+    pn = _merge_ties(pn)
+    part_names = printed.parts
+    pn["part_name"] = [part_names[int(k)] for k in pn["part"]]
+    # events in performed order
+    ev = _place(printed.events, perf) if not printed.events.empty else printed.events.assign(
+        score_qn=[], measure=[], perf=[], pass_=[])
+    if not ev.empty:
+        ev["part_name"] = [part_names[int(k)] for k in ev["part"]]
+        # wedge ends: same printed distance from the start occurrence
+        w = ev["kind"] == "wedge"
+        if w.any():
+            off_start = printed.bars["offset"].to_numpy()
+            eb = ev.loc[w, "end_bar"].astype(int).to_numpy()
+            sb = ev.loc[w, "bar"].astype(int).to_numpy()
+            span = off_start[eb] + ev.loc[w, "end_off"].to_numpy() - (off_start[sb] + ev.loc[w, "off"].to_numpy())
+            ev.loc[w, "end_qn"] = ev.loc[w, "score_qn"].to_numpy() + np.maximum(span, 0.0)
+
+    model_tmp = ScoreModel(name=path.stem, path=path, notes=pd.DataFrame(columns=NOTE_COLUMNS),
+                           measures=measures, boundaries=pd.DataFrame(columns=BOUNDARY_COLUMNS),
+                           tempo_map=_dummy_map(measures), warnings=warnings,
+                           repeats_expanded=expand_repeats, parts=list(dict.fromkeys(part_names)))
+    ctx = markings.MarkingContext(model=model_tmp, events=ev, notes=pn, printed=printed, path=path)
+    tempo_events, fermatas = markings.tempo_events(ctx)
+    first_bar_end = float(measures["score_qn"].iloc[0] + measures["duration_qn"].iloc[0])
+    tmap, tnotes = tempomap.build_tempo_map(
+        tempo_events, fermatas=fermatas, total_qn=model_tmp.total_qn,
+        first_note_qn=float(pn["score_qn"].min()), first_bar_end_qn=first_bar_end, path=path)
+    warnings.extend(tnotes)
+    model_tmp.tempo_map = tmap
+    notes = markings.note_table(ctx)
+    model_tmp.notes = notes
+    model_tmp.boundaries = markings.boundaries(ctx, tempo_events=tempo_events)
+    model_tmp.warnings[:] = list(dict.fromkeys(model_tmp.warnings))
+    return model_tmp
+
+
+def _dummy_map(measures):
+    from ..timemap import TimeMap
+
+    total = float((measures["score_qn"] + measures["duration_qn"]).max())
+    return TimeMap([0.0, max(total, 1.0)], [0.0, max(total, 1.0) * 0.6])
