@@ -155,9 +155,14 @@ def babble(sr: int, dur_s: float, *, seed: int, n_talkers: int = 4, level_db: fl
         f0 = base * (1.0 + 0.12 * np.interp(t, np.arange(knots.size) * 0.5, knots))
         phase = np.cumsum(f0) / sr
         n_harm = int(min(4000.0, nyq) / base)
-        src = np.zeros(n)
-        for k in range(1, n_harm + 1):
-            src += np.sin(2 * np.pi * k * phase) / k          # band-limited sawtooth
+        # band-limited sawtooth read from a one-period wavetable at the running phase
+        grid = np.arange(2048) / 2048.0
+        k = np.arange(1, max(n_harm, 1) + 1)[:, None]
+        table = (np.sin(2 * np.pi * k * grid[None, :]) / k).sum(axis=0)
+        x = (phase % 1.0) * 2048.0
+        i = x.astype(np.int64)
+        fr = x - i
+        src = table[i] * (1.0 - fr) + table[(i + 1) % 2048] * fr
         src += 0.25 * rng.standard_normal(n)                   # aspiration
         scale = rng.uniform(0.85, 1.2)                         # vocal-tract length
         track = np.zeros(n)
@@ -174,17 +179,18 @@ def babble(sr: int, dur_s: float, *, seed: int, n_talkers: int = 4, level_db: fl
                     if hi > lo:
                         sos = butter(2, [lo, hi], btype="bandpass", fs=sr, output="sos")
                         voiced += g * sosfilt(sos, seg)
+                voiced /= max(float(np.sqrt(np.mean(voiced ** 2))), 1e-12)   # even syllable levels
                 env = np.sin(np.pi * np.arange(e - pos) / max(L, 1)) ** 2
-                track[pos:e] += voiced * env
+                track[pos:e] += rng.uniform(0.7, 1.0) * voiced * env
                 if rng.random() < 0.5:                         # fricative onset
                     m = min(int(rng.uniform(0.03, 0.07) * sr), e - pos)
-                    track[pos:pos + m] += 0.3 * sosfilt(fric_sos, rng.standard_normal(m)) * np.hanning(m)
+                    track[pos:pos + m] += 0.4 * sosfilt(fric_sos, rng.standard_normal(m)) * np.hanning(m)
             pos = e
         out += (track * rng.uniform(0.6, 1.0)).astype(np.float32)
     return _set_rms(out, level_db)
 
 
-def applause(sr: int, dur_s: float, *, seed: int, n_clappers: int = 16, level_db: float = -20.0) -> np.ndarray:
+def applause(sr: int, dur_s: float, *, seed: int, n_clappers: int = 40, level_db: float = -20.0) -> np.ndarray:
     """Applause of ``n_clappers`` people with a rise and a decay, RMS ``level_db`` dBFS.
 
     See the module docstring for the method.
