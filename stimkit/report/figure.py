@@ -49,6 +49,7 @@ import numpy as np
 import pandas as pd
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
+from matplotlib.font_manager import FontProperties
 
 from ..stats.roles import pick_column
 
@@ -70,6 +71,8 @@ MARK_COLOURS = {
     "key": "#3d8b4f", "meter": "#7aa84a", "section": "#222222",
     "feature_change": "#c49a00", "sync": "#a0306e", "_other": "#555555",
 }
+_LABEL_PT = 6.5
+_LABEL_GAP_PX = 4.0
 _PIECE_TINTS = ("#e8eef4", "#f4efe6")
 _TRACE = "#1f3b57"
 _RC = {
@@ -239,12 +242,19 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
     pad = 0.01 * (x1 - x0)
     x0, x1 = x0 - pad, x1 + pad
 
+    # one line collection per kind and lane (fast for thousands of marks), kinds in a fixed order
+    kinds = marks["trial_type"].map(str).to_numpy() if "trial_type" in marks.columns else \
+        np.full(len(marks), "_other")
+    mt = marks["_t"].to_numpy(np.float64)
+    mark_groups = [(k, mt[kinds == k]) for k in sorted(set(kinds))]
+
     heights = {"marks": 0.35 * label_rows + 0.3, "envelope": 0.9, "trace": 1.05, "sync": 0.7}
     hr = [heights[k] for k, _ in lanes]
     fig = Figure(figsize=(width_in, sum(hr) + 0.9), dpi=100)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(len(lanes), 1, height_ratios=hr, hspace=0.35, left=0.07, right=0.985,
-                          top=1 - 0.35 / (sum(hr) + 0.9), bottom=0.55 / (sum(hr) + 0.9))
+                          top=1 - (0.6 if title else 0.35) / (sum(hr) + 0.9),
+                          bottom=0.55 / (sum(hr) + 0.9))
     axes = []
     for i, (kind, payload) in enumerate(lanes):
         ax = fig.add_subplot(gs[i, 0], sharex=axes[0] if axes else None)
@@ -257,10 +267,11 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
         for s, e in low_conf:
             ax.axvspan(float(s), float(e), facecolor="none", edgecolor="#9a9a9a", hatch="////",
                        lw=0, zorder=0.5)
-        for t, tt in zip(marks["_t"].to_numpy(np.float64), marks.get("trial_type", pd.Series(dtype=object))):
-            colour = MARK_COLOURS.get(str(tt), MARK_COLOURS["_other"])
-            ls = (0, (3, 2)) if tt == "feature_change" else "-"
-            ax.axvline(t, color=colour, lw=0.6, ls=ls, alpha=0.8, zorder=1)
+        for tt, times in mark_groups:
+            colour = MARK_COLOURS.get(tt, MARK_COLOURS["_other"])
+            ls = (0, (3, 2)) if tt == "feature_change" else "solid"
+            ax.vlines(times, 0.0, 1.0, transform=ax.get_xaxis_transform(), colors=colour,
+                      linewidths=0.6, linestyles=ls, alpha=0.8, zorder=1, label=f"_marks:{tt}")
         if kind == "marks":
             _draw_marks(fig, ax, marks, pieces, x0, x1, label_rows, width_in)
         elif kind == "envelope":
@@ -287,7 +298,16 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
             ax.tick_params(labelbottom=False)
     axes[-1].set_xlabel(clock_label)
     if title:
-        fig.suptitle(title, x=0.07, ha="left", fontsize=9, y=1 - 0.08 / (sum(hr) + 0.9))
+        fig.suptitle(title, x=0.07, ha="left", va="top", fontsize=9.5, fontweight="bold",
+                     y=1 - 0.08 / (sum(hr) + 0.9))
+    if mark_groups:  # colour key of the boundary kinds, above the marks lane on the right
+        from matplotlib.lines import Line2D
+
+        handles = [Line2D([], [], color=MARK_COLOURS.get(k, MARK_COLOURS["_other"]), lw=1.2,
+                          ls=(0, (3, 2)) if k == "feature_change" else "-") for k, _ in mark_groups]
+        axes[0].legend(handles, [k for k, _ in mark_groups], loc="lower right",
+                       bbox_to_anchor=(1.0, 1.0), ncol=len(handles), frameon=False, fontsize=6.5,
+                       handlelength=1.6, columnspacing=1.0, borderaxespad=0.1)
     return fig
 
 
@@ -304,17 +324,20 @@ def _draw_marks(fig, ax, marks, pieces, x0, x1, rows, width_in):
     if not len(marks):
         ax.set_title("boundaries (none)", pad=2)
         return
-    axes_width_in = width_in * (0.985 - 0.07)
-    s_per_in = (x1 - x0) / axes_width_in
+    # measure each label with the Agg renderer (same fonts and dpi as the saved PNG, where
+    # text and axes scale together), then convert pixels to seconds on this axis
+    renderer = fig.canvas.get_renderer()
+    s_per_px = (x1 - x0) / ax.get_window_extent(renderer).width
+    prop = FontProperties(size=_LABEL_PT)
     texts = [_mark_text(r) for _, r in marks.iterrows()]
-    # DejaVu Sans at 6.5 pt: about 0.55 em per character; 72 pt per inch
-    widths = np.array([(len(s) * 0.55 * 6.5 / 72.0 + 0.06) * s_per_in for s in texts])
+    widths = np.array([(renderer.get_text_width_height_descent(" " + s, prop, ismath=False)[0]
+                        + _LABEL_GAP_PX) * s_per_px for s in texts])
     times = marks["_t"].to_numpy(np.float64)
     rowsel = _place_labels(times, widths, rows)
     for t, s, r, tt in zip(times, texts, rowsel, marks.get("trial_type", [None] * len(texts))):
         if r < 0:
             continue
-        ax.text(t, rows - 0.5 - r, " " + s, va="center", ha="left", fontsize=6.5,
+        ax.text(t, rows - 0.5 - r, " " + s, va="center", ha="left", fontsize=_LABEL_PT,
                 color=MARK_COLOURS.get(str(tt), MARK_COLOURS["_other"]), clip_on=True, zorder=3)
     thinned = int(np.sum(rowsel < 0))
     note = f"boundaries ({len(texts)}" + (f"; {thinned} labels left out for space)" if thinned else ")")
