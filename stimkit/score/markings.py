@@ -169,8 +169,12 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
         ids = _cluster(np.array([c["qn"] for c in cdf]), GLOBAL_SAME_PLACE_QN)
         for cid in np.unique(ids):
             group = [c for c, g in zip(cdf, ids) if g == cid]
+            numbered = {c["word"].strip().lower() for c in group if c["kind"] == "tempo" and c["prio"] <= 2}
             for kind in ("tempo", "relative", "return", "ramp"):
                 gk = [c for c in group if c["kind"] == kind]
+                if kind in ("relative", "return"):
+                    # "Tempo I (q = 84)": the number rules, the word is its label
+                    gk = [c for c in gk if c["word"].strip().lower() not in numbered]
                 if not gk:
                     continue
                 best = min(gk, key=lambda c: (c["prio"], c["qn"]))
@@ -238,9 +242,9 @@ def _word_cand(r, w, beat_qn) -> dict:
 # --------------------------------------------------------------------------------------------
 # notes with velocity
 # --------------------------------------------------------------------------------------------
-def _dynamic_steps(ev: pd.DataFrame, part: int):
-    """(qn, level in force after, momentary level or nan) for one part, sorted."""
-    d = ev[(ev["kind"] == "dynamic") & (ev["part"] == part)].sort_values("score_qn", kind="mergesort")
+def _dynamic_steps(ev: pd.DataFrame, part: str):
+    """(qn, level in force after, momentary level or nan) for one part (all its staves), sorted."""
+    d = ev[(ev["kind"] == "dynamic") & (ev["part_name"] == part)].sort_values("score_qn", kind="mergesort")
     steps = []
     for q, t in zip(d["score_qn"], d["text"]):
         t = str(t).strip().lower()
@@ -257,7 +261,7 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
     pn, ev, model = ctx.notes, ctx.events, ctx.model
     vel = np.full(len(pn), float(VELOCITY[DEFAULT_LEVEL]))
     q_all = pn["score_qn"].to_numpy(dtype=float)
-    part_all = pn["part"].to_numpy()
+    part_all = pn["part_name"].to_numpy()
     midi_given = None
     for part in np.unique(part_all):
         idx = np.flatnonzero(part_all == part)
@@ -277,7 +281,7 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
             level[has] = np.array(lv, dtype=float)[k[has]]
         # hairpins
         if not ev.empty:
-            wedges = ev[(ev["kind"] == "wedge") & (ev["part"] == part)]
+            wedges = ev[(ev["kind"] == "wedge") & (ev["part_name"] == part)]
             for w in wedges.itertuples(index=False):
                 q0, q1 = float(w.score_qn), float(w.end_qn)
                 if q1 <= q0:
