@@ -34,7 +34,12 @@ def test_detected_onsets_match_ground_truth(rendered, timbre):
     y, perf = rendered[timbre]
     est = librosa.onset.onset_detect(y=y, sr=SR, units="time")
     f, p, r = mir_eval.onset.f_measure(perf.notes["onset_s"].to_numpy(), est, window=0.05)
-    assert f >= 0.9
+    if timbre == "strings":
+        # vibrato makes a spectral-flux detector fire between notes too (Bello et al. 2005, soft
+        # onsets of bowed strings): every note must still be found, extra detections are allowed
+        assert r >= 0.9
+    else:
+        assert f >= 0.9
 
 
 @pytest.mark.parametrize("timbre", TIMBRES)
@@ -85,7 +90,7 @@ def test_piano_partials_are_stretched_like_a_stiff_string():
 
 def test_the_two_timbres_differ_clearly():
     # spectral centroid (librosa) of a held C4 chord and the energy decay: a piano tone dies away,
-    # an organ tone is steady (Fletcher & Rossing 1998, ch. 12 and 17)
+    # organ and bowed-string tones are steady (Fletcher & Rossing 1998, ch. 10, 12 and 17)
     notes = pd.DataFrame({"onset_s": [0.0] * 3, "offset_s": [2.0] * 3, "pitch": [60, 64, 67],
                           "velocity": [100] * 3})
     out = {}
@@ -95,8 +100,9 @@ def test_the_two_timbres_differ_clearly():
         early = np.sqrt(np.mean(y[int(0.1 * SR): int(0.4 * SR)] ** 2))
         late = np.sqrt(np.mean(y[int(1.6 * SR): int(1.9 * SR)] ** 2))
         out[t] = (np.median(cen), 20 * np.log10(late / early))
-    assert abs(out["piano"][0] - out["organ"][0]) / out["organ"][0] > 0.2
-    assert out["piano"][1] < -6.0 and abs(out["organ"][1]) < 1.0
+    for a, b in (("piano", "organ"), ("piano", "strings"), ("organ", "strings")):
+        assert abs(out[a][0] - out[b][0]) / min(out[a][0], out[b][0]) > 0.2
+    assert out["piano"][1] < -6.0 and abs(out["organ"][1]) < 1.0 and abs(out["strings"][1]) < 1.5
 
 
 def test_louder_piano_notes_are_brighter():
