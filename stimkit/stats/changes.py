@@ -19,8 +19,10 @@ mean after minus mean before, per feature, in SD units; ``strength = ||step||`` 
 Conventions
 -----------
 - Input: a feature frame indexed by frame-centre time in seconds (recording time), evenly
-  spaced; numeric columns only (others ignored); NaN gaps are linearly interpolated; constant
-  columns are dropped.
+  spaced; by default one column per musical aspect (see :func:`novelty_curve`); non-numeric
+  columns are ignored, NaN gaps linearly interpolated, constant columns dropped. Loudness
+  values below -70 LUFS (the BS.1770 absolute gate; digital silence) are clipped to -70 first
+  so that a silence floor such as -120 does not dominate the distance.
 - Kernel: ``half_width_s`` each side (default 5 s, the usual before/after window of
   event-related physiology, common practice), Gaussian taper with SD ``half_width_s / 2``.
   Novelty is only evaluated where the whole kernel fits inside a span (a piece), so a span's
@@ -41,8 +43,12 @@ import pandas as pd
 from scipy.signal import find_peaks
 
 from ..errors import WorkFailed
+from .roles import change_columns
 
-__all__ = ["standardize_features", "novelty_curve", "change_points"]
+__all__ = ["standardize_features", "novelty_curve", "change_points", "GATE_LUFS"]
+
+#: ITU-R BS.1770-4 absolute gate; lower loudness values are clipped to it before standardizing.
+GATE_LUFS = -70.0
 
 
 def standardize_features(features: pd.DataFrame, *, columns: list[str] | None = None) -> pd.DataFrame:
@@ -54,6 +60,8 @@ def standardize_features(features: pd.DataFrame, *, columns: list[str] | None = 
     for c in cols:
         v = pd.to_numeric(features[c], errors="coerce").astype(np.float64)
         v = v.where(np.isfinite(v))
+        if str(c).endswith("lufs"):
+            v = v.clip(lower=GATE_LUFS)
         if v.notna().sum() < 2:
             continue
         v = v.interpolate(limit_direction="both")
@@ -115,7 +123,11 @@ def novelty_curve(
     features : DataFrame
         Indexed by frame-centre time (s), one column per feature.
     columns : list of str, optional
-        Features to use (default: every numeric column).
+        Features to use. Default: one column per aspect -- loudness, tempo, onset rate,
+        brightness, noisiness, key clarity, harmonic change, roughness -- as found by
+        :func:`stimkit.stats.roles.change_columns`, so that a family of many columns (twelve
+        chroma bins, three loudness measures) does not outweigh the rest; every numeric column
+        when none of those is present.
     half_width_s : float
         Kernel half width in seconds (frames before and after compared).
     spans : DataFrame, optional
@@ -129,6 +141,8 @@ def novelty_curve(
         does not fit.
     """
     rate = _frame_rate(features.index)
+    if columns is None:
+        columns = change_columns(features) or None
     z = standardize_features(features, columns=columns)
     half = max(1, int(round(half_width_s * rate)))
     t = np.asarray(features.index, dtype=np.float64)

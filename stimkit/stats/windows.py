@@ -16,7 +16,9 @@ Conventions
   its centre lies in ``[t - pre_s, t)`` and to the post window when in ``[t, t + post_s)``.
 - Means skip non-finite values (e.g. -inf LUFS in digital silence, tempo undefined in a pause);
   a window with no finite value gives NaN.
-- Loudness means are arithmetic means of the dB (LUFS) values; SD likewise, in LU.
+- Loudness means are arithmetic means of the dB (LUFS) values above the -70 LUFS absolute
+  gate of ITU-R BS.1770-4 (frames of silence, often floored at -120, are left out); SD
+  likewise, in LU.
 
 References
 ----------
@@ -186,6 +188,7 @@ def piece_summary(
         s, e = float(r["start"]), float(r["end"])
         name = r["piece"]
         loud, tempo, ons = seg(lc, s, e), seg(tc, s, e), seg(oc, s, e)
+        loud = loud[loud > -70.0]  # BS.1770 absolute gate: silence floors do not count
         if lra_lu is not None and name in lra_lu:
             lra = float(lra_lu[name])
         elif "lra_lu" in pieces.columns and pd.notna(r.get("lra_lu")):

@@ -40,7 +40,7 @@ def _events() -> pd.DataFrame:
         "onset": [62.5, 10.0, 10.0, 31.25, 0.5, 10.0, 45.000001],
         "duration": [0.0, 120.0, 0.0, 0.0, 0.0, 4.5, np.nan],
         "piece": ["Étude", "Étude", "Étude", "Étude", None, "Étude", "Étude"],
-        "label": ["E minor", None, "f", "loudness_short_term_lufs", "click", "crescendo", "q = 96"],
+        "label": ["E minor", None, "f", "short_term_lufs", "click", "crescendo", "q = 96"],
         "measure": [25.0, np.nan, 1.0, np.nan, np.nan, 1.0, 12.0],
         "beat": [1.0, np.nan, 1.0, np.nan, np.nan, 2.5, 1.0],
         "recording": [61.0, 8.5, 8.5, 29.75, 0.0, 8.5, 43.5],
@@ -200,11 +200,11 @@ def test_sidecar_levels_only_from_vocabulary():
 def test_stim_file_read_back(tmp_path):
     rate = 10.0
     t = 0.05 + np.arange(40) / rate  # frame centres
-    frame = pd.DataFrame({"loudness_short_term_lufs": np.linspace(-40, -20, 40),
+    frame = pd.DataFrame({"short_term_lufs": np.linspace(-40, -20, 40),
                           "tempo_bpm": np.full(40, 96.0)}, index=t)
     with OutputSet(tmp_path) as outs:
         write_stim(outs, BASE, frame, sampling_hz=rate, start_time_s=0.05,
-                   units={"loudness_short_term_lufs": "LUFS", "tempo_bpm": "BPM"},
+                   units={"short_term_lufs": "LUFS", "tempo_bpm": "BPM"},
                    descriptions={"tempo_bpm": "Local tempo."})
     side = json.loads((tmp_path / f"{BASE}_stim.json").read_text("utf-8"))
     for key in ("SamplingFrequency", "StartTime", "Columns"):  # BIDS 1.11: required

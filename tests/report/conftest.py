@@ -11,7 +11,7 @@ import pytest
 def session():
     t = (np.arange(1200) + 0.5) / 4.0  # 4 Hz frame centres, 300 s
     features = pd.DataFrame({
-        "loudness_short_term_lufs": -30 + 5 * np.sin(t / 20),
+        "short_term_lufs": -30 + 5 * np.sin(t / 20),
         "tempo_bpm": 100 + 5 * np.sin(t / 30),
         "key_clarity": 0.5 + 0.3 * np.cos(t / 10),
         "onset_rate_hz": 3 + np.sin(t / 7),
@@ -31,4 +31,4 @@ def session():
     sync = pd.DataFrame({"recording": [1.0, 290.0], "residual_ms": [0.4, -0.4]})
     envelope = (t, -np.abs(np.sin(t)), np.abs(np.sin(t)))
     return dict(features=features, events=events, pieces=pieces, sync=sync, envelope=envelope,
-                units={"tempo_bpm": "BPM", "loudness_short_term_lufs": "LUFS"})
+                units={"tempo_bpm": "BPM", "short_term_lufs": "LUFS"})

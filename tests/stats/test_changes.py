@@ -16,7 +16,7 @@ def _frame(rate_hz=10.0, seconds=120.0, seed=1):
     loud = np.where(t < 40.0, -30.0, -22.0) + 0.5 * rng.standard_normal(t.size)
     tempo = np.where(t < 80.0, 90.0, 120.0) + 1.0 * rng.standard_normal(t.size)
     noise = rng.standard_normal(t.size)
-    return pd.DataFrame({"loudness_short_term_lufs": loud, "tempo_bpm": tempo, "other": noise}, index=t)
+    return pd.DataFrame({"short_term_lufs": loud, "tempo_bpm": tempo, "other": noise}, index=t)
 
 
 def test_matches_explicit_checkerboard_kernel():
@@ -46,7 +46,7 @@ def test_finds_known_steps():
     assert len(cp) == 2
     # the steps are between the frames at 39.95 and 40.05 s, and at 79.95 / 80.05 s
     assert cp["recording"].tolist() == pytest.approx([40.0, 80.0], abs=0.3)
-    assert cp["features"].iloc[0].split(",")[0] == "loudness_short_term_lufs"
+    assert cp["features"].iloc[0].split(",")[0] == "short_term_lufs"
     assert cp["features"].iloc[1].split(",")[0] == "tempo_bpm"
     assert cp["changes"].iloc[1].startswith("tempo_bpm:+")  # tempo went up
     assert (cp["strength"] >= 1.0).all()
@@ -74,3 +74,30 @@ def test_nan_gaps_and_constant_columns():
     cp = change_points(f)
     assert "flat" not in ",".join(cp["features"])
     assert cp["recording"].tolist() == pytest.approx([40.0, 80.0], abs=0.3)
+
+
+def test_default_features_one_per_aspect():
+    # twelve chroma columns and three loudness columns must not outvote a tempo change
+    t = (np.arange(1200) + 0.5) / 10.0
+    rng = np.random.default_rng(2)
+    f = pd.DataFrame({
+        "momentary_lufs": -25 + rng.standard_normal(t.size),
+        "short_term_lufs": -25 + 0.3 * rng.standard_normal(t.size),
+        "rms_dbfs": -20 + rng.standard_normal(t.size),
+        "tempo_bpm": np.where(t < 60.0, 90.0, 130.0) + rng.standard_normal(t.size),
+        **{f"chroma_{k}": rng.random(t.size) for k in range(12)},
+    }, index=t)
+    from stimkit.stats.roles import change_columns
+
+    assert change_columns(f) == ["short_term_lufs", "tempo_bpm"]
+    cp = change_points(f)
+    assert cp["recording"].tolist() == pytest.approx([60.0], abs=0.3)
+    assert cp["features"].iloc[0] == "tempo_bpm"
+
+
+def test_silence_floor_is_clipped_at_the_gate():
+    # BS.1770-4 absolute gate -70 LUFS: a -120 floor and a -70 floor are the same silence
+    t = (np.arange(600) + 0.5) / 10.0
+    loud = np.where(t < 30.0, -120.0, -70.0)
+    z = standardize_features(pd.DataFrame({"short_term_lufs": loud}, index=t))
+    assert z.shape[1] == 0  # constant after clipping: no information left

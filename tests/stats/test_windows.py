@@ -30,7 +30,7 @@ def test_non_finite_values_skipped_and_missing_times():
     t = np.arange(100) / 10.0
     v = np.full(100, -20.0)
     v[:30] = -np.inf  # digital silence in LUFS
-    f = pd.DataFrame({"loudness_short_term_lufs": v}, index=t)
+    f = pd.DataFrame({"short_term_lufs": v}, index=t)
     ev = pd.DataFrame({"recording": [5.0, np.nan], "trial_type": ["key", "sync"]})
     w = event_windows(f, ev)
     assert len(w) == 1                                   # the event without a time is skipped
@@ -61,7 +61,7 @@ def test_loudness_range_ebu_3342(levels, expected):
 def test_piece_summary_numbers():
     t = (np.arange(1200) + 0.5) / 10.0
     tempo = np.where(t < 60, 100.0, 120.0)
-    f = pd.DataFrame({"loudness_momentary_lufs": np.where(t < 60, -30.0, -20.0), "tempo_bpm": tempo,
+    f = pd.DataFrame({"momentary_lufs": np.where(t < 60, -30.0, -20.0), "tempo_bpm": tempo,
                       "onset_rate_hz": np.full(t.size, 4.0)}, index=t)
     pieces = pd.DataFrame({"piece": ["A", "B"], "start": [0.0, 60.0], "end": [60.0, 120.0]})
     s = piece_summary(f, pieces).set_index("piece")
@@ -70,7 +70,7 @@ def test_piece_summary_numbers():
     assert s.loc["B", "tempo_mean_bpm"] == pytest.approx(120.0)
     assert s.loc["B", "tempo_sd_bpm"] == pytest.approx(0.0)
     assert s.loc["A", "onset_rate_mean_hz"] == pytest.approx(4.0)
-    assert s.loc["A", "loudness_column"] == "loudness_momentary_lufs"  # fallback column
+    assert s.loc["A", "loudness_column"] == "momentary_lufs"  # fallback column
     assert np.isnan(s.loc["A", "lra_lu"])  # no short-term loudness, no LRA given
     s2 = piece_summary(f.drop(columns="tempo_bpm"), pieces, lra_lu={"A": 7.5}).set_index("piece")
     assert s2.loc["A", "lra_lu"] == 7.5 and np.isnan(s2.loc["A", "tempo_mean_bpm"])
