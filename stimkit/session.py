@@ -37,7 +37,7 @@ __all__ = [
 
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
-_ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
+_ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
 _TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "force", "bids", "sync", "piece"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "recorder_times_s", "recorder_file", "recorder_column",
@@ -344,12 +344,12 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
             start = None
         anchors = p.get("anchors", [])
         if not isinstance(anchors, list) or not all(isinstance(a, str) for a in anchors):
-            bad(f"{where}: anchors must be a list of \"MEASURE[.BEAT]=SECONDS\" texts", "piece", i, "anchors")
+            bad(f"{where}: anchors must be a list of \"MEASURE[.BEAT][@PASS]=SECONDS\" texts", "piece", i, "anchors")
             anchors = []
         else:
             for a in anchors:
                 if not _ANCHOR.match(a):
-                    bad(f"{where}: anchor '{a}' is not MEASURE[.BEAT]=SECONDS (e.g. \"12.3=61.5\")",
+                    bad(f"{where}: anchor '{a}' is not MEASURE[.BEAT][@PASS]=SECONDS (e.g. \"12.3=61.5\" or \"8@2=40\")",
                         "piece", i, "anchors")
         if score_path is not None:
             pieces.append(PieceSpec(score=score_path, name=name or _stem(score_path),

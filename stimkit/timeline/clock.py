@@ -184,7 +184,7 @@ def detect_sync_marks(
     *,
     frequency_hz: float,
     duration_s: float,
-    min_score: float = 0.5,
+    min_score: float = 0.7,
     min_level_db: float = -60.0,
     min_gap_s: float = 1.0,
     block_s: float = 30.0,

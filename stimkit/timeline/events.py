@@ -103,6 +103,8 @@ def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> 
     }]
     b = score.boundaries
     if b is not None and len(b):
+        b = b[b["trial_type"] != "piece"]
+    if b is not None and len(b):
         q = b["score_qn"].to_numpy(dtype=np.float64)
         rec = np.atleast_1d(to_recording(q))
         on = np.atleast_1d(clock(rec))
@@ -119,7 +121,7 @@ def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> 
         for i, r in enumerate(b.itertuples(index=False)):
             d = r._asdict()
             tt = str(d.get("trial_type"))
-            if tt not in TRIAL_TYPES:
+            if tt not in TRIAL_TYPES or tt == "piece":  # the piece row is built above, at its first note
                 continue
             rows.append({
                 "onset": float(on[i]), "duration": float(max(dur[i], 0.0)), "trial_type": tt,

@@ -157,11 +157,24 @@ def _regions(result) -> list[tuple[float, float]]:
                 e = getattr(r, "end_s", getattr(r, "end", None))
             if s is not None and e is not None:
                 out.append((float(s), float(e)))
-    return [(s, e) for s, e in out if math.isfinite(s) and math.isfinite(e) and e > s]
+    loc = getattr(result, "local", None)
+    if isinstance(loc, pd.DataFrame) and len(loc) and {"score_qn", "confidence"} <= set(loc.columns):
+        q = loc["score_qn"].to_numpy(dtype=np.float64)
+        low = loc["confidence"].to_numpy(dtype=np.float64) < LOW_CONFIDENCE
+        edges = np.diff(np.r_[0, low.astype(int), 0])
+        for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
+            r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
+            out.append((float(r[0]), float(max(r[1], r[0] + 0.1))))
+    out = [(s, e) for s, e in out if math.isfinite(s) and math.isfinite(e) and e > s]
+    return sorted(out)
 
 
 def _silences(features) -> pd.DataFrame:
     """Silence segments ``start_s, end_s`` (recording seconds) from the audio stage."""
+    segs = (getattr(features, "summary", None) or {}).get("silence_segments")
+    if segs is not None:
+        arr = np.asarray(segs, dtype=np.float64).reshape(-1, 2)
+        return pd.DataFrame({"start_s": arr[:, 0], "end_s": arr[:, 1]})
     seg = getattr(features, "silences", None)
     if seg is None:
         seg = getattr(features, "silence", None)
@@ -209,12 +222,18 @@ def _envelope(path, *, t_map, columns: int = 2400):
     return np.asarray(t_map(t), dtype=np.float64), lo_a, hi_a
 
 
-def _stim_frame(frame: pd.DataFrame) -> pd.DataFrame:
+def _stim_frame(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+    """Numeric columns only (booleans as 0/1), so any numeric loader reads the file; returns the
+    frame and the names of the text columns left out."""
     out = frame.copy()
-    for c in out.columns:
+    dropped = []
+    for c in list(out.columns):
         if out[c].dtype == bool:
             out[c] = out[c].astype(np.int64)
-    return out
+        elif out[c].dtype.kind not in "iuf":
+            dropped.append(str(c))
+            out = out.drop(columns=c)
+    return out, dropped
 
 
 # ---------------------------------------------------------------------------------------------
@@ -418,11 +437,15 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     if session.sync.recorder_file is not None:
         inputs["recorder_sync"] = session.sync.recorder_file
 
+    stim, dropped = _stim_frame(frame)
+    if dropped:
+        stim_extra["ColumnsLeftOut"] = {c: "text feature; kept out of the numeric continuous file"
+                                        for c in dropped}
     with OutputSet(out_dir) as outs:
         written = []
         written += bids.write_events(outs, base, events, synchronized=synchronized,
                                      extra={"ClockFit": clock.to_dict()})
-        written += bids.write_stim(outs, base, _stim_frame(frame),
+        written += bids.write_stim(outs, base, stim,
                                    sampling_hz=session.rate_hz / clock.slope,
                                    start_time_s=float(clock(t_frames[0])) if t_frames.size else 0.0,
                                    units=dict(getattr(feats, "units", {}) or {}),
