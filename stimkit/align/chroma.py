@@ -50,7 +50,6 @@ __all__ = [
     "finish_chroma",
     "fold_octaves",
     "dlnco",
-    "read_mono_blocks",
 ]
 
 SR = 22050
@@ -82,45 +81,6 @@ class AlignFeatures:
 
     def times(self) -> np.ndarray:
         return self.start_s + np.arange(self.n_frames) / self.rate_hz
-
-
-def read_mono_blocks(path, *, sr: int = SR, block_s: float = 30.0, start_s: float = 0.0,
-                     end_s: float | None = None):
-    """Yield the recording as mono float32 blocks resampled to ``sr`` (soxr streaming).
-
-    Raises :class:`InputError` when the file cannot be read.
-    """
-    import soundfile as sf
-    import soxr
-
-    try:
-        f = sf.SoundFile(str(path))
-    except Exception as exc:  # soundfile raises its own LibsndfileError / RuntimeError
-        raise InputError(f"cannot read the recording ({exc}); give a WAV, FLAC, OGG or AIFF file",
-                         path=path) from None
-    with f:
-        in_sr = f.samplerate
-        s0 = int(round(max(start_s, 0.0) * in_sr))
-        s1 = f.frames if end_s is None else min(f.frames, int(round(end_s * in_sr)))
-        if s0 > 0:
-            f.seek(min(s0, f.frames))
-        left = max(s1 - s0, 0)
-        rs = None if in_sr == sr else soxr.ResampleStream(in_sr, sr, 1, dtype="float32", quality="HQ")
-        step = max(int(block_s * in_sr), 1)
-        while left > 0:
-            x = f.read(min(step, left), dtype="float32", always_2d=True)
-            if len(x) == 0:
-                break
-            left -= len(x)
-            mono = x.mean(axis=1).astype(np.float32)
-            if rs is not None:
-                mono = rs.resample_chunk(mono, last=left <= 0)
-            if len(mono):
-                yield mono
-        if rs is not None and left > 0:  # file ended early
-            tail = rs.resample_chunk(np.zeros(0, np.float32), last=True)
-            if len(tail):
-                yield tail
 
 
 def cqt_pitch_energy(y, *, sr: int = SR, hop: int = HOP) -> np.ndarray:
@@ -246,24 +206,18 @@ def audio_features(
     Parameters
     ----------
     path : path-like
-        The recording (anything soundfile reads).
+        The recording (validated and streamed by :mod:`stimkit.audio.read`).
     span_s : (start, end) or None
         Only this part of the file, in ``recording`` seconds; frame times stay seconds from the
         first sample of the file.
     block_s : float
         Seconds of audio per CQT block (memory stays bounded by the block, not the file).
     """
-    import soundfile as sf
+    from ..audio.read import audio_info, iter_blocks
 
-    path = Path(path)
-    if not path.is_file():
-        raise InputError("recording not found; check the path", path=path)
-    try:
-        info = sf.info(str(path))
-    except Exception as exc:
-        raise InputError(f"cannot read the recording ({exc}); give a WAV, FLAC, OGG or AIFF file",
-                         path=path) from None
-    dur = info.frames / info.samplerate if info.samplerate else 0.0
+    info = audio_info(path)          # validates: exists, decodable, non-empty
+    path = info.path
+    dur = info.duration_s
     start, end = 0.0, dur
     if span_s is not None:
         start, end = max(0.0, float(span_s[0])), min(dur, float(span_s[1]))
@@ -274,8 +228,16 @@ def audio_features(
     start = np.floor(start * SR / HOP) * HOP / SR
     block_frames = max(int(block_s * RATE_HZ), 16)
     total_frames = int((end - start) * RATE_HZ) + 1
-    blocks = read_mono_blocks(path, sr=SR, block_s=min(block_s, 30.0), start_s=start, end_s=end)
-    P, n_samples = _blockwise_energy(blocks, block_frames=block_frames, sr=SR, hop=HOP,
+    peak = [0.0]
+
+    def blocks():
+        for _, x in iter_blocks(path, block_s=min(block_s, 30.0), mono=True, start_s=start, end_s=end,
+                                target_sr=SR, dtype="float32"):
+            if x.size:
+                peak[0] = max(peak[0], float(np.max(np.abs(x))))
+            yield x
+
+    P, n_samples = _blockwise_energy(blocks(), block_frames=block_frames, sr=SR, hop=HOP,
                                      progress=progress, total_frames=total_frames)
     energy = P.mean(axis=1) if P.size else np.zeros(0)
     chroma = finish_chroma(fold_octaves(P))
@@ -283,4 +245,5 @@ def audio_features(
     return AlignFeatures(chroma=chroma, onset=onset, rate_hz=RATE_HZ, start_s=float(start),
                          energy=energy,
                          meta={"duration_s": float(dur), "samples_read": int(n_samples),
-                               "sample_rate_hz": int(info.samplerate), "channels": int(info.channels)})
+                               "peak": peak[0], "end_s": float(end),
+                               "sample_rate_hz": int(info.sample_rate_hz), "channels": int(info.channels)})

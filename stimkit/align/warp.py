@@ -132,7 +132,7 @@ def local_ratio(path, costs, *, ref_cost: float, rate_hz: float, window_s: float
 
 
 def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, min_s: float = 2.0,
-              slack_s: float = 0.3):
+              slack_s: float = 0.3, score_start_s: float = 0.0):
     """Stretches where the path moves in one axis only for more than ``min_s`` seconds.
 
     Steps in the other axis are tolerated up to ``slack_s`` seconds in a run. Returns a list of
@@ -179,7 +179,8 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
                 a, b = p[k], p[e]
                 ra = rec_start_s + a[1] / rate_hz
                 rb = rec_start_s + b[1] / rate_hz
-                qa, qb = float(inv(a[0] / rate_hz)), float(inv(b[0] / rate_hz))
+                qa = float(inv(score_start_s + a[0] / rate_hz))
+                qb = float(inv(score_start_s + b[0] / rate_hz))
                 dur = run_m / rate_hz
                 if kind == "cut":
                     reason = (f"{dur:.1f} s of score (score_qn {qa:.2f}-{qb:.2f}) match no recording time "

@@ -1,0 +1,464 @@
+"""Score-to-recording alignment: the recording time of every note-onset position, bar and beat.
+
+Public functions
+----------------
+- :func:`align_score` -- align a parsed :class:`~stimkit.score.model.ScoreModel` to a recording
+  (or to a span of it) and return an :class:`AlignResult`.
+- :func:`align_files` -- load a score file (:func:`stimkit.score.parse.load_score`) and align it.
+- :func:`parse_anchor` -- read ``MEASURE[.BEAT][@PASS]=SECONDS``.
+- :func:`confidence_at` -- local confidence (0..1) at score positions.
+- :func:`write_alignment` -- ``<name>.alignment.tsv`` and ``<name>.alignment.json`` in one
+  transaction (:class:`~stimkit.export.tables.OutputSet`).
+- :func:`summary_lines` -- a few lines for people.
+
+Method
+------
+Score side: note-based chroma and chroma-onset templates in nominal time
+(:mod:`stimkit.align.template`). Recording side: block-wise CQT chroma and DLNCO features at
+49.2 Hz (:mod:`stimkit.align.chroma`). Multiscale DTW (:mod:`stimkit.align.dtw`) at 0.98 Hz over
+the whole (anchor-constrained) matrix with an open start and end, then 9.8 Hz in a band of
+± 1 s around the projected path, then 49.2 Hz with the onset features in a band of ± 0.5 s.
+The path becomes a :class:`~stimkit.timemap.TimeMap` ``score_qn -> recording``
+(:mod:`stimkit.align.warp`).
+
+Conventions
+-----------
+- ``recording``: seconds from the first sample of the file, also when ``span_s`` restricts the
+  search. ``score_qn``: quarter notes as performed. ``nominal``: seconds at the notated tempo.
+- Anchors: ``MEASURE[.BEAT][@PASS]=SECONDS``; measure numbers as printed, beat 1-based in the bar's
+  beat unit (default 1, may be fractional as in ``12.2.5``), pass 1 unless ``@PASS`` is given
+  (``12.3@2=95.0`` is beat 3 of bar 12 the second time it is played).
+- Confidence: the Raffel--Ellis ratio (mean cost on the path ÷ mean cost of the whole cost
+  matrix, estimated at the finest rate from 20 000 cell pairs drawn with a fixed seed); overall
+  and local (2 s of score) values mapped to 0..1 by :func:`stimkit.align.warp.ratio_to_confidence`.
+  A second test compares the unshifted alignment with the 11 chroma rotations (``key_ratio``:
+  unshifted path cost ÷ best rotated path cost at about 2 Hz): the right piece aligns far better
+  in its own key. A ratio above :data:`REFUSE_RATIO` or a key ratio above
+  :data:`KEY_REFUSE_RATIO` is taken as a different piece and refused
+  (:class:`~stimkit.errors.WorkFailed`) unless ``force=True``. The overall confidence is the
+  smaller of the two ratios mapped to 0..1.
+- Stated behaviour for odd input: a score without notes, a recording (or span) under 1 s and a
+  silent recording (peak below -70 dBFS) are refused with :class:`~stimkit.errors.InputError`;
+  a recording much longer than the score (more than 3× its nominal length) is searched for the
+  piece (open start and end) and a warning gives the span found.
+
+References
+----------
+.. [1] M. Müller, H. Mattes, F. Kurth. "An efficient multiscale approach to audio
+   synchronization", ISMIR 2006.
+.. [2] T. Prätzlich, J. Driedger, M. Müller. "Memory-restricted multiscale dynamic time
+   warping", ICASSP 2016.
+.. [3] S. Ewert, M. Müller, P. Grosche. "High resolution audio synchronization using chroma
+   onset features", ICASSP 2009.
+.. [4] C. Raffel, D. P. W. Ellis. "Optimizing DTW-based audio-to-MIDI alignment and matching",
+   ICASSP 2016.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import InputError, WorkFailed
+from ..timemap import TimeMap
+from . import chroma as _chroma
+from .dtw import StepWeights, key_shift_costs, multiscale_dtw, path_costs
+from .template import score_features
+from .warp import (
+    RATIO_BAD,
+    RATIO_GOOD,
+    flag_runs,
+    local_ratio,
+    path_to_timemap,
+    ratio_to_confidence,
+    tempo_curve,
+)
+
+__all__ = [
+    "AlignResult",
+    "align_score",
+    "align_files",
+    "parse_anchor",
+    "confidence_at",
+    "write_alignment",
+    "summary_lines",
+    "REFUSE_RATIO",
+    "KEY_REFUSE_RATIO",
+    "NOTE_TABLE_COLUMNS",
+]
+
+#: Raffel--Ellis ratio above which the recording is taken to be of a different piece.
+REFUSE_RATIO = 0.85
+#: Key test: unshifted path cost ÷ best cost over the 11 other chroma rotations (at ~2 Hz).
+#: Rendered tests: the right piece 0.4-0.65, a different piece 0.9-1.5; refused above this.
+KEY_REFUSE_RATIO = 0.8
+KEY_FACTOR = 25
+#: Recordings (or spans) shorter than this are refused.
+MIN_AUDIO_S = 1.0
+#: Peak level under which a recording counts as silent (dBFS).
+SILENT_DBFS = -70.0
+#: A recording longer than this many times the score's nominal length is searched for the piece.
+LONG_FACTOR = 3.0
+#: Mean local-cost ratio a one-axis run needs to be flagged (a held chord matched to a longer hold
+#: runs flat at low cost and is not a cut).
+FLAG_MIN_RATIO = 0.6
+FACTORS = (50, 5, 1)
+RADII = (0, 10, 25)
+ONSET_WEIGHT = 1.0
+FLAG_MIN_S = 2.0
+TEMPO_WINDOW_BEATS = 6
+LOCAL_WINDOW_S = 2.0
+_N_REF_PAIRS = 20000
+
+NOTE_TABLE_COLUMNS = ["score_qn", "measure", "pass", "beat", "nominal", "recording", "confidence"]
+_ANCHOR_RE = re.compile(r"^\s*(-?\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]*\.?[0-9]+)\s*$")
+
+
+@dataclass
+class AlignResult:
+    """Everything an alignment produced (see :func:`align_score`)."""
+
+    name: str
+    score: object
+    timemap: TimeMap                 # score_qn -> recording
+    notes: pd.DataFrame              # one row per distinct note-onset position
+    beats: pd.DataFrame              # every bar and beat
+    tempo: pd.DataFrame              # score_qn, recording, bpm, quarter_bpm
+    confidence: dict                 # overall, raffel_ellis_ratio, coarse_ratio
+    regions: list = field(default_factory=list)
+    warnings: list = field(default_factory=list)
+    settings: dict = field(default_factory=dict)
+    local: pd.DataFrame | None = None   # score_qn, confidence along the path
+    audio_path: Path | None = None
+
+
+def parse_anchor(text: str, score=None):
+    """``"12.3=45.6"`` -> ``(measure, beat, seconds)``; ``"12.3@2=45.6"`` -> ``(12, 3.0, 45.6, 2)``.
+
+    Returns a 3-tuple for pass 1 and a 4-tuple ``(measure, beat, seconds, pass)`` when ``@PASS``
+    is written. With ``score`` given, also checks that the bar exists. Raises
+    :class:`InputError` on bad syntax or a bar not in the score.
+    """
+    m = _ANCHOR_RE.match(str(text))
+    if not m:
+        raise InputError(f"anchor {text!r} is not MEASURE[.BEAT][@PASS]=SECONDS (e.g. 12.3=45.6)")
+    measure = int(m.group(1))
+    beat = float(m.group(2)) if m.group(2) else 1.0
+    pas = int(m.group(3)) if m.group(3) else None
+    seconds = float(m.group(4))
+    if score is not None:
+        try:
+            score.qn_at(measure, beat, pas or 1)
+        except KeyError:
+            raise InputError(f"anchor {text!r}: bar {measure} (pass {pas or 1}) is not in the score "
+                             f"{score.name}; use a measure number as printed", path=score.path) from None
+    return (measure, beat, seconds) if pas is None else (measure, beat, seconds, pas)
+
+
+def _anchor_points(score, anchors):
+    """Anchors as ``(score_qn, recording_s, label)``, sorted and checked."""
+    pts = []
+    for a in anchors or ():
+        if isinstance(a, str):
+            parsed = parse_anchor(a, score)
+            measure, beat, sec = parsed[:3]
+            pas = parsed[3] if len(parsed) == 4 else 1
+            qn = score.qn_at(measure, beat, pas)
+            pts.append((float(qn), float(sec), a.strip()))
+        else:
+            qn, sec = float(a[0]), float(a[1])
+            if not (np.isfinite(qn) and np.isfinite(sec)):
+                raise InputError(f"anchor {a!r} is not finite")
+            pts.append((qn, sec, f"score_qn {qn:g}={sec:g}"))
+    pts.sort()
+    for (q0, s0, l0), (q1, s1, l1) in zip(pts, pts[1:]):
+        if not s1 > s0 or not q1 > q0:
+            raise InputError(f"anchors {l0!r} and {l1!r} are not in increasing order in both score and "
+                             "recording; fix or drop one")
+    return pts
+
+
+def _beat_qn_of(score, qn):
+    m = score.measures
+    starts = m["score_qn"].to_numpy(np.float64)
+    i = np.clip(np.searchsorted(starts, np.asarray(qn) + 1e-9, side="right") - 1, 0, len(m) - 1)
+    return m["beat_qn"].to_numpy(np.float64)[i]
+
+
+def _ref_cost(S, A, onset_weight):
+    """Mean local cost of the whole fine matrix, estimated from a fixed sample of cells."""
+    rng = np.random.default_rng(0)
+    k = _N_REF_PAIRS
+    pairs = np.stack([rng.integers(0, S.n_frames, k), rng.integers(0, A.n_frames, k)], axis=1)
+    return float(path_costs(pairs, S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset,
+                            onset_weight=onset_weight).mean())
+
+
+def align_score(
+    score,
+    audio_path,
+    *,
+    anchors=(),
+    force: bool = False,
+    span_s: tuple[float, float] | None = None,
+    progress=None,
+) -> AlignResult:
+    """Align ``score`` to the recording ``audio_path``.
+
+    Parameters
+    ----------
+    score : ScoreModel
+        Parsed score in performed order.
+    audio_path : path-like
+        The recording.
+    anchors : list of str or list of (score_qn, seconds)
+        Known points the path must pass through: strings ``MEASURE[.BEAT][@PASS]=SECONDS``
+        (:func:`parse_anchor`) or ``(score_qn, recording seconds)`` pairs.
+    force : bool
+        Return the alignment even when it looks like a different piece (a warning says so).
+    span_s : (start, end), optional
+        Search only this part of the recording (recording seconds); the times returned are still
+        seconds from the first sample of the file.
+    progress : callable, optional
+        ``progress(task, fraction)``.
+
+    Returns
+    -------
+    AlignResult
+
+    Raises
+    ------
+    InputError
+        A score without notes, bad anchors, an unreadable, too short or silent recording.
+    WorkFailed
+        The recording does not match the score (unless ``force``), or no path fits the anchors.
+    """
+    if score.notes is None or len(score.notes) == 0:
+        raise InputError("score has no notes; nothing to align", path=score.path)
+    audio_path = Path(audio_path)
+    warnings: list[str] = []
+    pts = _anchor_points(score, anchors)
+
+    def report(task, frac):
+        if progress is not None:
+            progress(task, frac)
+
+    A = _chroma.audio_features(audio_path, span_s=span_s, progress=progress)
+    span_len = A.meta["end_s"] - A.start_s
+    if span_len < MIN_AUDIO_S:
+        raise InputError(f"recording{' span' if span_s else ''} is {span_len:.2f} s long; at least "
+                         f"{MIN_AUDIO_S:g} s is needed to align", path=audio_path)
+    if A.meta["peak"] <= 10 ** (SILENT_DBFS / 20):
+        raise InputError(f"recording{' span' if span_s else ''} is silent (peak below {SILENT_DBFS:g} "
+                         "dBFS); check the file or the span", path=audio_path)
+    S = score_features(score, rate_hz=A.rate_hz)
+    nominal = float(score.nominal_duration_s)
+    if span_len > LONG_FACTOR * max(nominal, 1e-9):
+        warnings.append(f"the recording{' span' if span_s else ''} ({span_len:.1f} s) is "
+                        f"{span_len / nominal:.1f} times the score's nominal length ({nominal:.1f} s); "
+                        "the piece was searched for inside it")
+    elif span_len < nominal / 3:
+        warnings.append(f"the recording ({span_len:.1f} s) is less than a third of the score's nominal "
+                        f"length ({nominal:.1f} s); the alignment is likely to be poor")
+    report("alignment", 0.0)
+
+    rate = A.rate_hz
+    cells = []
+    for qn, sec, label in pts:
+        if not (A.start_s <= sec <= A.meta["end_s"]):
+            raise InputError(f"anchor {label!r}: {sec:g} s is outside the recording"
+                             f"{' span' if span_s else ''} ({A.start_s:.2f}-{A.meta['end_s']:.2f} s)",
+                             path=audio_path)
+        i = int(round((float(score.tempo_map(qn)) - S.start_s) * rate))
+        j = int(round((sec - A.start_s) * rate))
+        cells.append((min(max(i, 0), S.n_frames - 1), min(max(j, 0), A.n_frames - 1)))
+    weights = StepWeights()
+    try:
+        res = multiscale_dtw(S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset,
+                             onset_weight=ONSET_WEIGHT, factors=FACTORS, radii=RADII,
+                             anchors=cells, weights=weights)
+    except ValueError as exc:
+        raise WorkFailed(f"alignment found no path ({exc}); check the anchors", path=audio_path) from None
+    report("alignment", 0.8)
+    path = res["path"]
+    costs = path_costs(path, S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset, onset_weight=ONSET_WEIGHT)
+    ref = _ref_cost(S, A, ONSET_WEIGHT)
+    ratio = float(costs.mean() / max(ref, 1e-9))
+    shifts = key_shift_costs(S.chroma, A.chroma, factor=KEY_FACTOR, weights=weights)
+    key_ratio = float(shifts[0] / max(float(shifts[1:].min()), 1e-9))
+    best_shift = int(np.argmin(shifts))
+    overall = float(min(ratio_to_confidence(ratio),
+                        np.clip((0.95 - key_ratio) / (0.95 - 0.6), 0.0, 1.0)))
+    why = []
+    if ratio > REFUSE_RATIO:
+        why.append(f"path cost ratio {ratio:.2f} > {REFUSE_RATIO:.2f}")
+    if key_ratio > KEY_REFUSE_RATIO:
+        shift_txt = (f"; it matches best transposed by {best_shift if best_shift <= 6 else best_shift - 12:+d} "
+                     "semitones" if best_shift else "")
+        why.append(f"it matches the score hardly better than in another key (key ratio {key_ratio:.2f} > "
+                   f"{KEY_REFUSE_RATIO:.2f}{shift_txt})")
+    if why:
+        msg = (f"the recording does not match the score {score.name} ({'; '.join(why)}; confidence "
+               f"{overall:.2f}): it looks like a different piece")
+        if not force:
+            raise WorkFailed(msg + "; use --force to write the alignment anyway", path=audio_path)
+        warnings.append(msg + "; written anyway (force)")
+
+    tm = path_to_timemap(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
+                         score_start_s=S.start_s)
+    inv_tempo = score.tempo_map.inverse()
+    # local confidence along the score
+    ui, lr = local_ratio(path, costs, ref_cost=ref, rate_hz=rate, window_s=LOCAL_WINDOW_S)
+    local_qn = np.asarray(inv_tempo(S.start_s + ui / rate), dtype=np.float64)
+    local = pd.DataFrame({"score_qn": local_qn, "ratio": lr, "confidence": ratio_to_confidence(lr)})
+
+    # flagged regions: one-axis runs with a high local cost
+    regions = []
+    lr_at = dict(zip(ui.tolist(), lr.tolist()))
+    for reg in flag_runs(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
+                         min_s=FLAG_MIN_S, score_start_s=S.start_s):
+        if reg["score_qn_end"] <= 0 or reg["score_qn_start"] >= score.total_qn:
+            continue  # within the template's silent lead-in or tail
+        sel = (path[:, 1] >= round((reg["start"] - A.start_s) * rate)) & \
+              (path[:, 1] <= round((reg["end"] - A.start_s) * rate))
+        rows = np.unique(path[sel, 0])
+        run_cost = float(np.mean([lr_at.get(int(r), 0.0) for r in rows])) if rows.size else 0.0
+        if run_cost < FLAG_MIN_RATIO:
+            continue
+        reg["cost_ratio"] = run_cost
+        regions.append(reg)
+        warnings.append(reg["reason"])
+
+    # tables
+    qn = np.unique(score.notes["score_qn"].to_numpy(np.float64))
+    loc = score.locate(qn)
+    notes = pd.DataFrame({
+        "score_qn": qn,
+        "measure": loc["measure"].to_numpy(),
+        "pass": loc["pass"].to_numpy(),
+        "beat": loc["beat"].to_numpy(),
+        "nominal": np.asarray(score.tempo_map(qn), dtype=np.float64),
+        "recording": np.asarray(tm(qn), dtype=np.float64),
+        "confidence": np.interp(qn, local_qn, local["confidence"].to_numpy()),
+    })
+    beats = score.beat_grid()
+    beats["recording"] = np.asarray(tm(beats["score_qn"].to_numpy(np.float64)), dtype=np.float64)
+    bq = pd.DataFrame({"score_qn": beats["score_qn"], "beat_qn": _beat_qn_of(score, beats["score_qn"])})
+    tempo = tempo_curve(tm, bq, window_beats=TEMPO_WINDOW_BEATS)
+    rec_start = float(tm(0.0))
+    rec_end = float(tm(score.total_qn))
+    if span_len > LONG_FACTOR * max(nominal, 1e-9):
+        warnings.append(f"piece found at {rec_start:.2f}-{rec_end:.2f} s of the recording")
+    settings = {
+        "method": "multiscale DTW (Müller et al. 2006; Prätzlich et al. 2016), chroma + DLNCO "
+                  "(Ewert et al. 2009)",
+        "frame_rate_hz": rate,
+        "sample_rate_hz": _chroma.SR,
+        "hop_samples": _chroma.HOP,
+        "levels_hz": [rate / f for f in FACTORS],
+        "band_radius_frames": list(RADII),
+        "step_weights": {"diagonal": weights.diag, "score_only": weights.score,
+                         "recording_only": weights.rec},
+        "onset_weight": ONSET_WEIGHT,
+        "open_start_end": True,
+        "span_s": None if span_s is None else [float(span_s[0]), float(span_s[1])],
+        "anchors": [{"label": l, "score_qn": q, "recording": s} for q, s, l in pts],
+        "band_cells_max": int(res["band_cells"]),
+        "refuse_ratio": REFUSE_RATIO,
+        "key_refuse_ratio": KEY_REFUSE_RATIO,
+        "confidence_ratio_good_bad": [RATIO_GOOD, RATIO_BAD],
+        "flag_min_s": FLAG_MIN_S,
+        "tempo_window_beats": TEMPO_WINDOW_BEATS,
+        "score_template": "from the notes (harmonic model), lead-in 1 s",
+    }
+    confidence = {"overall": overall, "raffel_ellis_ratio": ratio, "key_ratio": key_ratio,
+                  "best_key_shift": best_shift,
+                  "coarse_ratio": float(res["coarse_cost_ratio"]),
+                  "recording_start": rec_start, "recording_end": rec_end}
+    report("alignment", 1.0)
+    return AlignResult(name=audio_path.stem, score=score, timemap=tm, notes=notes, beats=beats,
+                       tempo=tempo, confidence=confidence, regions=regions,
+                       warnings=warnings,
+                       settings=settings, local=local, audio_path=audio_path)
+
+
+def align_files(score_path, audio_path, *, anchors=(), force: bool = False, expand_repeats: bool = True,
+                progress=None) -> AlignResult:
+    """Load ``score_path`` (:func:`stimkit.score.parse.load_score`) and :func:`align_score` it."""
+    from ..score.parse import load_score
+
+    score = load_score(score_path, expand_repeats=expand_repeats)
+    return align_score(score, audio_path, anchors=anchors, force=force, progress=progress)
+
+
+def confidence_at(result: AlignResult, score_qn) -> np.ndarray:
+    """Local alignment confidence (0..1) at ``score_qn`` positions (linear interpolation)."""
+    q = np.asarray(score_qn, dtype=np.float64)
+    loc = result.local
+    return np.interp(q, loc["score_qn"].to_numpy(), loc["confidence"].to_numpy())
+
+
+def _json_payload(result: AlignResult) -> dict:
+    t = result.tempo
+    return {
+        "score": str(result.score.path),
+        "recording": None if result.audio_path is None else str(result.audio_path),
+        "time_conventions": {
+            "score_qn": "quarter notes from the start of the score as performed",
+            "nominal": "seconds at the notated tempo",
+            "recording": "seconds from the first sample of the recording file",
+            "frames": "a frame's time is its window centre",
+        },
+        "confidence": result.confidence,
+        "flagged_regions": result.regions,
+        "tempo": {"score_qn": t["score_qn"].to_numpy(), "recording": t["recording"].to_numpy(),
+                  "bpm": t["bpm"].to_numpy(), "quarter_bpm": t["quarter_bpm"].to_numpy(),
+                  "window_beats": TEMPO_WINDOW_BEATS,
+                  "bpm_unit": "beats of the bar's beat unit per minute; quarter_bpm: quarter notes per minute"},
+        "columns": {
+            "score_qn": "quarter notes from the start, as performed",
+            "measure": "bar number as printed", "pass": "1 first time, 2 repeat, ...",
+            "beat": "1-based beat in the bar's beat unit",
+            "nominal": "seconds at the notated tempo", "recording": "seconds in the recording",
+            "confidence": "local alignment confidence 0..1",
+        },
+        "settings": result.settings,
+        "warnings": result.warnings,
+    }
+
+
+def write_alignment(result: AlignResult, *, out_dir) -> list[Path]:
+    """Write ``<name>.alignment.tsv`` (one row per distinct onset) and ``<name>.alignment.json``.
+
+    ``<name>`` is the recording's file stem. Both files appear together or not at all.
+    """
+    from ..export.tables import OutputSet, check_output_dir
+
+    out = check_output_dir(out_dir)
+    table = result.notes[NOTE_TABLE_COLUMNS]
+    with OutputSet(out) as outs:
+        outs.write_tsv(f"{result.name}.alignment.tsv", table,
+                       column_formats={"beat": "%.4f", "confidence": "%.3f"})
+        outs.write_json(f"{result.name}.alignment.json", _json_payload(result))
+    return list(outs.committed)
+
+
+def summary_lines(result: AlignResult) -> list[str]:
+    """A few lines describing the alignment."""
+    c = result.confidence
+    n = len(result.notes)
+    lines = [
+        f"{result.name}: {n} onset positions aligned, recording {c['recording_start']:.2f}-"
+        f"{c['recording_end']:.2f} s",
+        f"confidence {c['overall']:.2f} (path cost ratio {c['raffel_ellis_ratio']:.2f})",
+    ]
+    for r in result.regions:
+        lines.append(f"flagged {r['kind']} at {r['start']:.1f}-{r['end']:.1f} s")
+    for w in result.warnings:
+        if not any(w == r["reason"] for r in result.regions):
+            lines.append(f"warning: {w}")
+    return lines
