@@ -27,8 +27,11 @@ The local duration of a quarter note is the nominal one divided by three factors
    least one beat in all parts, every 8 bars, the end of the last note and the end of the piece. This follows the shape of
    final ritards described by Friberg & Sundberg (1999) and phrase-arch timing (Todd 1992), in a
    simplified linear form.
-3. **Fermata** -- the span from a fermata (``trial_type == "fermata"``) to the next note onset is
-   lengthened by ``fermata_factor`` on top of any hold the nominal tempo map already contains.
+3. **Fermata** -- the span of a fermata (``trial_type == "fermata"``: from its ``score_qn`` to
+   its ``end_qn`` when the table has that column, else to the next note onset) is lengthened by
+   ``fermata_factor`` on top of the hold the nominal tempo map already contains
+   (:func:`stimkit.score.parse.load_score` holds a fermata twice its written length, so the
+   default 1.3 performs it at 2.6 times).
 
 The integral of the resulting seconds-per-quarter-note gives the smooth map
 :attr:`Performance.timemap` (``score_qn -> recording``), strictly increasing by construction.
@@ -132,17 +135,23 @@ def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
 
 
 def _fermata_spans(score: ScoreModel, onsets: np.ndarray, total_qn: float) -> list[tuple[float, float]]:
-    """``(start, end)`` in score_qn for each fermata: from the mark to the next distinct onset."""
+    """``(start, end)`` in score_qn of each fermata: to its ``end_qn`` when the boundaries table
+    gives one, else to the next distinct note onset."""
     b = score.boundaries
     if b is None or not len(b):
         return []
-    spans = []
-    for q0 in np.unique(b.loc[b["trial_type"] == "fermata", "score_qn"].to_numpy(dtype=np.float64)):
-        later = onsets[onsets > q0 + 1e-9]
-        q1 = float(later[0]) if later.size else total_qn
+    rows = b[b["trial_type"] == "fermata"]
+    ends = rows["end_qn"].to_numpy(dtype=np.float64) if "end_qn" in rows else np.full(len(rows), np.nan)
+    spans = {}
+    for q0, q_end in zip(rows["score_qn"].to_numpy(dtype=np.float64), ends):
+        if np.isfinite(q_end) and q_end > q0:
+            q1 = float(q_end)
+        else:
+            later = onsets[onsets > q0 + 1e-9]
+            q1 = float(later[0]) if later.size else total_qn
         if q1 > q0:
-            spans.append((float(q0), q1))
-    return spans
+            spans[float(q0)] = max(q1, spans.get(float(q0), q1))
+    return sorted(spans.items())
 
 
 def _validate(score: ScoreModel, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s):
@@ -165,7 +174,7 @@ def perform(
     seed: int,
     drift: float = 0.25,
     phrase_rit: float = 0.35,
-    fermata_factor: float = 1.6,
+    fermata_factor: float = 1.3,
     jitter_s: float = 0.008,
     chord_spread_s: float = 0.015,
     start_s: float = 0.0,
@@ -183,7 +192,7 @@ def perform(
     phrase_rit : float
         Tempo loss at a phrase end (0.35: the last beat before the end is played at 65 % tempo).
     fermata_factor : float
-        Extra lengthening of a fermata note (the span to the next onset); 1 keeps the nominal hold.
+        Extra lengthening of a fermata span on top of the nominal hold; 1 keeps the nominal hold.
     jitter_s : float
         Standard deviation of the per-note Gaussian onset jitter, seconds.
     chord_spread_s : float
