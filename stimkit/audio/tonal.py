@@ -1,0 +1,132 @@
+"""Tonal descriptors: chroma, local key and key clarity, harmonic change, sensory roughness.
+
+What it computes
+----------------
+- :class:`ChromaStream` -- 12-bin chroma per STFT frame (librosa's STFT chroma filter bank, A440
+  tuning, C first), each frame scaled to a maximum of 1 (silent frames: zeros).
+- :func:`local_key` -- key and key clarity at given times: the chroma summed over a centred window
+  (``KEY_WINDOW_S``) is correlated (Pearson) with the 24 rotations of the Krumhansl-Kessler
+  probe-tone profiles; the best one names the key, its correlation is the key clarity.
+- :func:`harmonic_change` -- Harte, Sandler & Gasser's harmonic change detection function: the
+  6-D tonal centroid of each frame's L1-normalised chroma (``librosa.feature.tonnetz``), smoothed
+  over time with a Gaussian (sigma ``HCDF_SIGMA_FRAMES``), and the Euclidean distance between the
+  centroids of the frames before and after each frame.
+- :func:`roughness` -- sensory roughness per frame after Sethares (1993): the ``N_PEAKS``
+  strongest spectral peaks (magnitudes scaled so a full-scale sine is 1), summed over all pairs
+  of ``a_i * a_j * (exp(-3.5 s df) - exp(-5.75 s df))`` with
+  ``s = 0.24 / (0.0207 f_min + 18.96)`` (Plomp & Levelt's curve as parameterised by Sethares).
+
+Conventions
+-----------
+Frame times as in :mod:`stimkit.audio.spectral`. Key names: pitch class with the usual spelling
+(C, C#, D, Eb, E, F, F#, G, Ab, A, Bb, B) and "major"/"minor". Key clarity is a correlation
+(-1..1). Harmonic change is a distance in tonal-centroid space (no unit); roughness is in
+Sethares' dissonance units (no unit; grows with level squared).
+
+References
+----------
+C. L. Krumhansl (1990), Cognitive Foundations of Musical Pitch, Oxford UP (probe-tone profiles,
+key-finding algorithm with E. J. Kessler / M. A. Schmuckler). C. Harte, M. Sandler, M. Gasser
+(2006), Detecting harmonic change in musical audio, ACM AMCMM. W. A. Sethares (1993), Local
+consonance and the relationship between timbre and scale, JASA 94(3). R. Plomp, W. J. M. Levelt
+(1965), Tonal consonance and critical bandwidth, JASA 38(4).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["ChromaStream", "local_key", "harmonic_change", "roughness", "KEY_NAMES",
+           "PITCH_CLASSES", "KK_MAJOR", "KK_MINOR", "KEY_WINDOW_S", "N_PEAKS"]
+
+PITCH_CLASSES = ["C", "C#", "D", "Eb", "E", "F", "F#", "G", "Ab", "A", "Bb", "B"]
+KK_MAJOR = np.array([6.35, 2.23, 3.48, 2.33, 4.38, 4.09, 2.52, 5.19, 2.39, 3.66, 2.29, 2.88])
+KK_MINOR = np.array([6.33, 2.68, 3.52, 5.38, 2.60, 3.53, 2.54, 4.75, 3.98, 2.69, 3.34, 3.17])
+KEY_NAMES = [f"{p} major" for p in PITCH_CLASSES] + [f"{p} minor" for p in PITCH_CLASSES]
+KEY_WINDOW_S = 10.0
+HCDF_SIGMA_FRAMES = 8.0
+N_PEAKS = 20
+
+
+class ChromaStream:
+    """Chroma per frame from power spectra ``(frames, bins)``."""
+
+    def __init__(self, *, sr: int, n_fft: int):
+        import librosa
+
+        self.fb = librosa.filters.chroma(sr=sr, n_fft=n_fft, tuning=0.0, base_c=True).astype(np.float32)
+
+    def push(self, power: np.ndarray) -> np.ndarray:
+        raw = power @ self.fb.T  # (frames, 12)
+        mx = raw.max(axis=1, keepdims=True) if raw.shape[0] else raw
+        return np.where(mx > 1e-12, raw / np.where(mx > 1e-12, mx, 1.0), 0.0).astype(np.float32)
+
+
+def _key_templates() -> np.ndarray:
+    prof = np.stack([np.roll(KK_MAJOR, k) for k in range(12)] + [np.roll(KK_MINOR, k) for k in range(12)])
+    prof = prof - prof.mean(axis=1, keepdims=True)
+    return prof / np.linalg.norm(prof, axis=1, keepdims=True)  # (24, 12)
+
+
+def local_key(chroma: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray,
+              window_s: float = KEY_WINDOW_S) -> tuple[np.ndarray, np.ndarray]:
+    """Key index (0-23 into :data:`KEY_NAMES`, -1 if no energy) and clarity at ``centres_s``."""
+    ch = np.asarray(chroma, dtype=np.float64)
+    c = np.asarray(centres_s, dtype=np.float64)
+    cs = np.concatenate([np.zeros((1, 12)), np.cumsum(ch, axis=0)], axis=0)
+    n = ch.shape[0]
+    half = window_s / 2.0
+    i0 = np.clip(np.round((c - half) * frame_rate_hz).astype(np.int64), 0, n)
+    i1 = np.clip(np.round((c + half) * frame_rate_hz).astype(np.int64) + 1, 0, n)
+    i1 = np.maximum(i1, i0)
+    s = cs[i1] - cs[i0]  # (m, 12)
+    z = s - s.mean(axis=1, keepdims=True)
+    norm = np.linalg.norm(z, axis=1)
+    ok = norm > 1e-9
+    r = (z / np.where(ok, norm, 1.0)[:, None]) @ _key_templates().T  # (m, 24)
+    idx = np.argmax(r, axis=1)
+    clarity = r[np.arange(r.shape[0]), idx]
+    idx = np.where(ok, idx, -1)
+    clarity = np.where(ok, clarity, np.nan)
+    return idx, clarity
+
+
+def harmonic_change(chroma: np.ndarray) -> np.ndarray:
+    """Harte et al. (2006) harmonic change per frame (needs the whole chroma sequence)."""
+    import librosa
+    from scipy.ndimage import gaussian_filter1d
+
+    ch = np.asarray(chroma, dtype=np.float64)
+    if ch.shape[0] < 3:
+        return np.zeros(ch.shape[0])
+    tc = librosa.feature.tonnetz(chroma=ch.T)  # (6, frames), L1-normalised chroma inside
+    tc = np.nan_to_num(tc)
+    tc = gaussian_filter1d(tc, HCDF_SIGMA_FRAMES, axis=1, mode="nearest")
+    d = np.zeros(ch.shape[0])
+    d[1:-1] = np.linalg.norm(tc[:, 2:] - tc[:, :-2], axis=0)
+    return d
+
+
+def _sethares(f_lo: np.ndarray, f_hi: np.ndarray) -> np.ndarray:
+    s = 0.24 / (0.0207 * f_lo + 18.96)
+    df = f_hi - f_lo
+    return np.exp(-3.5 * s * df) - np.exp(-5.75 * s * df)
+
+
+def roughness(power: np.ndarray, *, freqs: np.ndarray, n_peaks: int = N_PEAKS) -> np.ndarray:
+    """Sethares (1993) roughness per frame from the strongest spectral peaks of ``power``."""
+    if power.shape[0] == 0:
+        return np.zeros(0)
+    mag = np.sqrt(power, dtype=np.float32)
+    is_peak = np.zeros_like(mag, dtype=bool)
+    is_peak[:, 1:-1] = (mag[:, 1:-1] > mag[:, :-2]) & (mag[:, 1:-1] >= mag[:, 2:])
+    pk = np.where(is_peak, mag, 0.0)
+    k = min(n_peaks, pk.shape[1])
+    idx = np.argpartition(-pk, k - 1, axis=1)[:, :k]
+    a = np.take_along_axis(pk, idx, axis=1).astype(np.float64)  # (frames, k)
+    f = freqs[idx]
+    iu, ju = np.triu_indices(k, 1)
+    fi, fj = f[:, iu], f[:, ju]
+    lo, hi = np.minimum(fi, fj), np.maximum(fi, fj)
+    d = _sethares(lo, hi)
+    return np.sum(a[:, iu] * a[:, ju] * d, axis=1)
