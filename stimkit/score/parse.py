@@ -190,7 +190,7 @@ def _part_names(parts) -> list[str]:
 
 def _volta_numbers(rb) -> tuple[int, ...]:
     try:
-        nums = rb.getNumberList()
+        nums = list(rb.numberRange)
     except Exception:
         nums = []
     return tuple(int(n) for n in nums if n is not None)
