@@ -4,8 +4,10 @@ What it draws
 -------------
 From top to bottom, each lane only when its data is there:
 
-1. *marks* -- the labels of all boundaries, staggered on up to ``label_rows`` rows; a label
-   that finds no free row is left out (counted in the lane title), but its line is always drawn;
+1. *marks* -- the labels of all boundaries, staggered on up to ``label_rows`` rows, placed in
+   priority order (sections, keys, meters and tempi before dynamics, detected changes last);
+   a label that finds no free row is left out (counted in the lane title), but its line is
+   always drawn in every lane;
 2. *waveform envelope* -- min/max of the signal per display column;
 3. *loudness* -- short-term loudness (LUFS), falling back to momentary loudness, then RMS dBFS;
 4. *tempo* -- local tempo (BPM);
@@ -47,13 +49,14 @@ import matplotlib
 import matplotlib.style
 import numpy as np
 import pandas as pd
-from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.backends.backend_agg import FigureCanvasAgg, RendererAgg
 from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
+from matplotlib.lines import Line2D
 
 from ..stats.roles import pick_column
 
-__all__ = ["overview_figure", "figure_png", "LANE_ROLES", "MARK_COLOURS"]
+__all__ = ["overview_figure", "figure_png", "LANE_ROLES", "MARK_COLOURS", "LABEL_PRIORITY"]
 
 #: Lane -> (role in :data:`stimkit.stats.roles.ROLE_CANDIDATES`, lane title, fallback unit).
 LANE_ROLES = (
@@ -71,6 +74,8 @@ MARK_COLOURS = {
     "key": "#3d8b4f", "meter": "#7aa84a", "section": "#222222",
     "feature_change": "#c49a00", "sync": "#a0306e", "_other": "#555555",
 }
+_DPI = 100
+_LEFT, _RIGHT = 0.07, 0.985
 _LABEL_PT = 6.5
 _LABEL_GAP_PX = 4.0
 _PIECE_TINTS = ("#e8eef4", "#f4efe6")
@@ -110,15 +115,29 @@ def _mark_text(row) -> str:
     return text if len(text) <= 22 else text[:21] + "\u2026"
 
 
-def _place_labels(times: np.ndarray, widths: np.ndarray, rows: int) -> np.ndarray:
-    """Greedy row per label (left to right); -1 when no row is free (label thinned)."""
-    right_edge = np.full(rows, -np.inf)
-    out = np.full(times.size, -1, dtype=int)
-    for i in np.argsort(times, kind="stable"):
+#: Label priority when space is short: structure first, detected changes last.
+LABEL_PRIORITY = ("section", "key", "meter", "tempo", "tempo_change", "pause", "fermata",
+                  "dynamic", "hairpin", "accent", "sync", "silence", "feature_change")
+
+
+def _place_labels(times: np.ndarray, widths: np.ndarray, rows: int, kinds=None) -> np.ndarray:
+    """Row per label, -1 when no row has room (label thinned; its line is still drawn).
+
+    Labels are placed in priority order (:data:`LABEL_PRIORITY`, then time), each in the
+    lowest row where its extent ``[t, t + width)`` overlaps no label already placed.
+    """
+    n = times.size
+    rank = {k: i for i, k in enumerate(LABEL_PRIORITY)}
+    pr = np.array([rank.get(str(k), len(rank)) for k in kinds]) if kinds is not None else np.zeros(n)
+    order = np.lexsort((times, pr))
+    placed: list[list[tuple[float, float]]] = [[] for _ in range(rows)]
+    out = np.full(n, -1, dtype=int)
+    for i in order:
+        a, b = times[i], times[i] + widths[i]
         for r in range(rows):
-            if times[i] >= right_edge[r]:
+            if all(b <= lo or a >= hi for lo, hi in placed[r]):
+                placed[r].append((a, b))
                 out[i] = r
-                right_edge[r] = times[i] + widths[i]
                 break
     return out
 
@@ -136,7 +155,7 @@ def overview_figure(
     clock_label: str = "recording time (s)",
     title: str | None = None,
     width_in: float = 12.0,
-    label_rows: int = 4,
+    label_rows: int = 8,
     columns: dict[str, str] | None = None,
 ) -> Figure:
     """Stacked feature lanes with every boundary marked (see the module notes).
@@ -170,7 +189,8 @@ def overview_figure(
     width_in : float
         Figure width in inches (height follows the number of lanes).
     label_rows : int
-        Rows available for boundary labels before labels are thinned.
+        Most rows for boundary labels; the lane uses only the rows needed, and a label that
+        finds no free row is left out (its line stays).
     columns : dict, optional
         Role -> column name overrides (e.g. ``{"tension": "roughness"}``).
 
@@ -248,13 +268,25 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
     mt = marks["_t"].to_numpy(np.float64)
     mark_groups = [(k, mt[kinds == k]) for k in sorted(set(kinds))]
 
-    heights = {"marks": 0.35 * label_rows + 0.3, "envelope": 0.9, "trace": 1.05, "sync": 0.7}
+    # place the labels first (measured with the Agg renderer at the output dpi; text and axes
+    # scale together at any other dpi), so the marks lane gets only the rows it needs
+    texts = [_mark_text(r) for _, r in marks.iterrows()]
+    axes_px = width_in * (_RIGHT - _LEFT) * _DPI
+    measure = RendererAgg(8, 8, _DPI)
+    prop = FontProperties(size=_LABEL_PT)
+    widths = np.array([(measure.get_text_width_height_descent(" " + s, prop, ismath=False)[0]
+                        + _LABEL_GAP_PX) * (x1 - x0) / axes_px for s in texts])
+    rowsel = _place_labels(mt, widths, max(1, label_rows), kinds)
+    rows = int(max(2, rowsel.max() + 1)) if rowsel.size else 2
+
+    heights = {"marks": 0.17 * rows + 0.45, "envelope": 0.9, "trace": 1.05, "sync": 0.7}
     hr = [heights[k] for k, _ in lanes]
-    fig = Figure(figsize=(width_in, sum(hr) + 0.9), dpi=100)
+    top_in, bottom_in = (0.45 if title else 0.2), (0.9 if mark_groups else 0.5)
+    total = sum(hr) + 0.35 * (len(lanes) - 1) + top_in + bottom_in
+    fig = Figure(figsize=(width_in, total), dpi=_DPI)
     FigureCanvasAgg(fig)
-    gs = fig.add_gridspec(len(lanes), 1, height_ratios=hr, hspace=0.35, left=0.07, right=0.985,
-                          top=1 - (0.6 if title else 0.35) / (sum(hr) + 0.9),
-                          bottom=0.55 / (sum(hr) + 0.9))
+    gs = fig.add_gridspec(len(lanes), 1, height_ratios=hr, hspace=0.35 * len(lanes) / sum(hr),
+                          left=_LEFT, right=_RIGHT, top=1 - top_in / total, bottom=bottom_in / total)
     axes = []
     for i, (kind, payload) in enumerate(lanes):
         ax = fig.add_subplot(gs[i, 0], sharex=axes[0] if axes else None)
@@ -273,7 +305,7 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
             ax.vlines(times, 0.0, 1.0, transform=ax.get_xaxis_transform(), colors=colour,
                       linewidths=0.6, linestyles=ls, alpha=0.8, zorder=1, label=f"_marks:{tt}")
         if kind == "marks":
-            _draw_marks(fig, ax, marks, pieces, x0, x1, label_rows, width_in)
+            _draw_marks(ax, mt, kinds, texts, rowsel, rows, pieces, x0)
         elif kind == "envelope":
             t, lo, hi = (np.asarray(a, dtype=np.float64) for a in payload)
             ax.fill_between(t, lo, hi, color=_TRACE, lw=0, alpha=0.85, zorder=2)
@@ -298,43 +330,32 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
             ax.tick_params(labelbottom=False)
     axes[-1].set_xlabel(clock_label)
     if title:
-        fig.suptitle(title, x=0.07, ha="left", va="top", fontsize=9.5, fontweight="bold",
-                     y=1 - 0.08 / (sum(hr) + 0.9))
-    if mark_groups:  # colour key of the boundary kinds, above the marks lane on the right
-        from matplotlib.lines import Line2D
-
+        fig.suptitle(title, x=_LEFT, ha="left", va="top", fontsize=9.5, fontweight="bold",
+                     y=1 - 0.08 / total)
+    if mark_groups:  # colour key of the boundary kinds, along the bottom edge
         handles = [Line2D([], [], color=MARK_COLOURS.get(k, MARK_COLOURS["_other"]), lw=1.2,
                           ls=(0, (3, 2)) if k == "feature_change" else "-") for k, _ in mark_groups]
-        axes[0].legend(handles, [k for k, _ in mark_groups], loc="lower right",
-                       bbox_to_anchor=(1.0, 1.0), ncol=len(handles), frameon=False, fontsize=6.5,
-                       handlelength=1.6, columnspacing=1.0, borderaxespad=0.1)
+        fig.legend(handles, [k for k, _ in mark_groups], loc="lower left",
+                   bbox_to_anchor=(_LEFT, 0.05 / total), ncol=min(len(handles), 9),
+                   frameon=False, fontsize=6.5, handlelength=1.6, columnspacing=1.2,
+                   borderaxespad=0.0, title="boundary kinds", title_fontsize=6.5,
+                   alignment="left")
     return fig
 
 
-def _draw_marks(fig, ax, marks, pieces, x0, x1, rows, width_in):
+def _draw_marks(ax, times, kinds, texts, rowsel, rows, pieces, x0):
     ax.set_ylim(0, rows + 1)
     ax.set_yticks([])
     ax.spines["left"].set_visible(False)
-    # piece names on the top row
-    if pieces is not None:
+    if pieces is not None:  # piece names on the top row
         for _, p in pieces.iterrows():
-            s, e = float(p["start"]), float(p["end"])
-            ax.text(max(s, x0), rows + 0.5, f" {p['piece']}", va="center", ha="left",
-                    fontsize=7.5, fontweight="bold", color="#333333", clip_on=True, zorder=3)
-    if not len(marks):
+            ax.text(max(float(p["start"]), x0), rows + 0.5, f" {p['piece']}", va="center",
+                    ha="left", fontsize=7.5, fontweight="bold", color="#333333", clip_on=True,
+                    zorder=3)
+    if not len(texts):
         ax.set_title("boundaries (none)", pad=2)
         return
-    # measure each label with the Agg renderer (same fonts and dpi as the saved PNG, where
-    # text and axes scale together), then convert pixels to seconds on this axis
-    renderer = fig.canvas.get_renderer()
-    s_per_px = (x1 - x0) / ax.get_window_extent(renderer).width
-    prop = FontProperties(size=_LABEL_PT)
-    texts = [_mark_text(r) for _, r in marks.iterrows()]
-    widths = np.array([(renderer.get_text_width_height_descent(" " + s, prop, ismath=False)[0]
-                        + _LABEL_GAP_PX) * s_per_px for s in texts])
-    times = marks["_t"].to_numpy(np.float64)
-    rowsel = _place_labels(times, widths, rows)
-    for t, s, r, tt in zip(times, texts, rowsel, marks.get("trial_type", [None] * len(texts))):
+    for t, s, r, tt in zip(times, texts, rowsel, kinds):
         if r < 0:
             continue
         ax.text(t, rows - 0.5 - r, " " + s, va="center", ha="left", fontsize=_LABEL_PT,
@@ -344,7 +365,7 @@ def _draw_marks(fig, ax, marks, pieces, x0, x1, rows, width_in):
     ax.set_title(note, pad=2)
 
 
-def figure_png(fig: Figure, *, dpi: int = 100) -> bytes:
+def figure_png(fig: Figure, *, dpi: int = _DPI) -> bytes:
     """PNG bytes of ``fig`` (Agg, fixed dpi, no software-version text chunk): deterministic."""
     buf = io.BytesIO()
     with _style(), matplotlib.rc_context(_RC):
