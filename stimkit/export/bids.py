@@ -24,8 +24,9 @@ from ..levels import COLUMN_INFO, EVENT_COLUMNS, HED_TAGS, TRIAL_TYPES
 from .tables import OutputSet
 
 __all__ = [
-    "bids_name", "write_stim", "events_sidecar", "hed_annotation", "prepare_events", "write_events", "write_beats",
-    "dataset_description", "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
+    "bids_name", "write_stim", "events_sidecar", "hed_annotation", "prepare_events",
+    "merge_simultaneous", "write_events", "write_beats", "dataset_description",
+    "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
 ]
 
 
@@ -129,8 +130,8 @@ def hed_annotation(level: str) -> str:
     tags at the same time (a dynamic and a hairpin, say) would repeat a tag, which HED rejects
     (``TAG_EXPRESSION_REPEATED``). One parenthesized group per row, made distinct by a
     ``Label`` tag naming the level, keeps simultaneous events of different kinds valid. Two
-    rows of the *same* kind at the same onset still repeat their group: merge them before
-    export (e.g. one row with ``part`` listing the parts).
+    rows of the *same* kind at the same onset would still repeat their group: :func:`write_events`
+    merges them (:func:`merge_simultaneous`).
     """
     return f"({HED_TAGS[level]}, Label/{level})"
 
@@ -267,6 +268,49 @@ def prepare_events(events: pd.DataFrame) -> pd.DataFrame:
     return events.loc[order].reset_index(drop=True)
 
 
+def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
+    """One row per (onset, trial_type): rows of the same kind at the same time are merged.
+
+    HED tools assemble all rows that share an onset into one event, and the same kind twice
+    there repeats its HED group (``TAG_EXPRESSION_REPEATED``), so a BIDS validator rejects the
+    dataset. Rows are taken as simultaneous when their onsets agree to the 6 written decimals.
+    In a merged row ``label``, ``part`` and ``source`` join the distinct values with `` + `` in
+    table order; ``duration`` is the longest; ``confidence`` the lowest (the cautious value);
+    every other column keeps the first row's value. ``events`` must already be sorted
+    (:func:`prepare_events`); the order of the remaining rows is kept.
+    """
+    if "trial_type" not in events.columns or len(events) < 2:
+        return events
+    key_on = np.round(events["onset"].to_numpy(np.float64), 6)
+    key_tt = events["trial_type"].map(lambda v: "" if pd.isna(v) else str(v)).to_numpy()
+    keys = list(zip(key_on.tolist(), key_tt.tolist()))
+    first: dict[tuple, int] = {}
+    groups: dict[int, list[int]] = {}
+    for i, k in enumerate(keys):
+        j = first.setdefault(k, i)
+        groups.setdefault(j, []).append(i)
+    if all(len(g) == 1 for g in groups.values()):
+        return events
+    rows = []
+    for j in sorted(groups):
+        idx = groups[j]
+        row = events.iloc[idx[0]].copy()
+        if len(idx) > 1:
+            sub = events.iloc[idx]
+            for c in ("label", "part", "source"):
+                if c in sub.columns:
+                    vals = [str(v) for v in sub[c] if not pd.isna(v)]
+                    row[c] = " + ".join(dict.fromkeys(vals)) if vals else None
+            if "duration" in sub.columns:
+                d = sub["duration"].to_numpy(np.float64)
+                row["duration"] = np.nanmax(d) if np.isfinite(d).any() else np.nan
+            if "confidence" in sub.columns:
+                cf = pd.to_numeric(sub["confidence"], errors="coerce").to_numpy(np.float64)
+                row["confidence"] = np.nanmin(cf) if np.isfinite(cf).any() else np.nan
+        rows.append(row)
+    return pd.DataFrame(rows, columns=events.columns).reset_index(drop=True)
+
+
 def _float_formats(df: pd.DataFrame) -> dict[str, str]:
     fmts = {}
     for c in df.columns:
@@ -286,13 +330,15 @@ def _integral_to_int(df: pd.DataFrame, cols) -> pd.DataFrame:
 
 
 def write_events(outs: OutputSet, base: str, events: pd.DataFrame, *, extra: dict | None = None,
-                 synchronized: bool | None = None) -> list:
+                 synchronized: bool | None = None, merge_same_kind: bool = True) -> list:
     """Stage ``<base>_events.tsv`` and ``<base>_events.json``.
 
     The table is validated and ordered by :func:`prepare_events`; seconds (``onset``,
     ``duration``, ``nominal``, ``recording``) and ``score_qn`` are written with 6 decimals, other
     floats with 6 significant digits, whole-number ``measure`` values as integers, booleans as
     ``true``/``false``, missing values as ``n/a``. The sidecar is :func:`events_sidecar`.
+    With ``merge_same_kind`` (default) rows of the same ``trial_type`` at the same onset become
+    one row (:func:`merge_simultaneous`), which keeps the file valid for HED validators.
 
     Returns
     -------
@@ -300,6 +346,8 @@ def write_events(outs: OutputSet, base: str, events: pd.DataFrame, *, extra: dic
         ``[tsv, json]`` (staged; they appear when the :class:`OutputSet` commits).
     """
     table = prepare_events(events)
+    if merge_same_kind:
+        table = merge_simultaneous(table)
     table = _integral_to_int(table, ["measure"])
     sidecar = events_sidecar(table, extra=extra, synchronized=synchronized)
     p1 = outs.write_tsv(f"{base}_events.tsv", table, column_formats=_float_formats(table))

@@ -25,7 +25,7 @@ import pandas as pd
 import pytest
 
 from stimkit.errors import WorkFailed
-from stimkit.export.bids import (BEAT_COLUMNS, HED_VERSION, dataset_description, events_sidecar,
+from stimkit.export.bids import (BEAT_COLUMNS, dataset_description, events_sidecar,
                                  write_beats, write_events, write_stim)
 from stimkit.export.tables import OutputSet
 from stimkit.levels import EVENT_COLUMNS, TRIAL_TYPES
@@ -46,6 +46,13 @@ def _events() -> pd.DataFrame:
         "recording": [61.0, 8.5, 8.5, 29.75, 0.0, 8.5, 43.5],
         "value": [np.nan, np.nan, 5.0, 1.7, np.nan, np.nan, 96.0],
     })
+
+
+@pytest.fixture(scope="module")
+def hed_schema():
+    """The HED standard schema declared by dataset_description (hedtools bundles it)."""
+    schema_mod = pytest.importorskip("hed.schema")
+    return schema_mod.load_schema_version(dataset_description(name="x")["HEDVersion"])
 
 
 @pytest.fixture(scope="module")
@@ -131,12 +138,11 @@ def test_bids_schema_rules(written):
             assert field in desc, field
 
 
-def test_hed_tags_valid(written, tmp_path):
-    hed_schema = pytest.importorskip("hed.schema")
+def test_hed_tags_valid(written, tmp_path, hed_schema):
     from hed.models import Sidecar, TabularInput
 
     out, _ = written
-    schema = hed_schema.load_schema_version(dataset_description(name="x")["HEDVersion"])
+    schema = hed_schema
     sidecar = Sidecar(str(out / f"{BASE}_events.json"))
     assert sidecar.validate(schema) == []            # hedtools: every tag in the schema
     # hedtools assembles rows sharing an onset (piece, dynamic, hairpin at 10 s): still valid
@@ -150,13 +156,12 @@ def test_hed_tags_valid(written, tmp_path):
     assert Sidecar(str(bad)).validate(schema) != []
 
 
-def test_all_levels_have_valid_hed():
-    hed_schema = pytest.importorskip("hed.schema")
+def test_all_levels_have_valid_hed(hed_schema):
     from hed import HedString
 
     from stimkit.export.bids import hed_annotation
 
-    schema = hed_schema.load_schema_version(HED_VERSION)
+    schema = hed_schema
     for level in TRIAL_TYPES:  # hedtools against the declared standard schema
         assert HedString(hed_annotation(level), schema).validate() == [], level
 
@@ -248,3 +253,33 @@ def test_dataset_description_declares_hed():
     assert re.match(r"^8\.\d+\.\d+$", desc["HEDVersion"])
     assert desc["BIDSVersion"].startswith("1.11")
     assert desc["GeneratedBy"][0]["Name"] == "stimkit"
+
+
+def test_same_kind_at_same_onset_is_merged_and_hed_valid(tmp_path, hed_schema):
+    ev = pd.DataFrame({
+        "onset": [20.0, 20.0, 20.0, 31.0],
+        "duration": [0.0, 0.0, 0.0, 0.0],
+        "trial_type": ["section", "section", "dynamic", "section"],
+        "label": ["rehearsal mark A", "repeat start", "mf", "double bar"],
+        "part": ["all", "all", "Violin", "all"],
+        "confidence": [0.9, 0.7, 0.8, 0.95],
+    })
+    with OutputSet(tmp_path) as outs:
+        write_events(outs, BASE, ev)
+    df = pd.read_csv(tmp_path / f"{BASE}_events.tsv", sep="\t", na_values="n/a", keep_default_na=False)
+    assert len(df) == 3
+    sec = df[(df["onset"] == 20.0) & (df["trial_type"] == "section")].iloc[0]
+    assert sec["label"] == "rehearsal mark A + repeat start" and sec["part"] == "all"
+    assert sec["confidence"] == pytest.approx(0.7)   # the cautious value
+    from hed.models import Sidecar, TabularInput
+
+    schema = hed_schema
+    sidecar = Sidecar(str(tmp_path / f"{BASE}_events.json"))
+    # hedtools: no repeated group at 20 s once merged ...
+    assert TabularInput(str(tmp_path / f"{BASE}_events.tsv"), sidecar=sidecar).validate(schema) == []
+    with OutputSet(tmp_path / "raw") as outs:
+        write_events(outs, BASE, ev, merge_same_kind=False)
+    raw = TabularInput(str(tmp_path / "raw" / f"{BASE}_events.tsv"),
+                       sidecar=Sidecar(str(tmp_path / "raw" / f"{BASE}_events.json"))).validate(schema)
+    # ... while the unmerged rows are rejected (the reason for merging)
+    assert any(i["code"] == "TAG_EXPRESSION_REPEATED" for i in raw)
