@@ -113,8 +113,8 @@ class ClockFit:
     def to_dict(self) -> dict:
         return {
             "method": self.method,
+            "formula": "onset = offset_s + (1 + drift_ppm * 1e-6) * recording",
             "offset_s": self.offset_s,
-            "slope": round(self.slope, 12),
             "drift_ppm": round(self.drift_ppm, 4),
             "points": [
                 {"recording_s": float(a), "recorder_s": float(p), "residual_s": float(r)}
