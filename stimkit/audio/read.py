@@ -81,7 +81,7 @@ def audio_info(path) -> AudioInfo:
     try:
         inf = sf.info(str(p))
     except Exception as exc:  # soundfile raises LibsndfileError/RuntimeError/TypeError
-        detail = " ".join(str(exc).split()).replace(str(p), "").strip(" :")
+        detail = " ".join(str(exc).split()).rsplit(":", 1)[-1].strip(" .")
         raise InputError(f"not a readable recording ({detail or 'unknown format'}); give a WAV, FLAC, "
                          "OGG/Vorbis or AIFF file", path=p) from None
     if inf.frames <= 0:

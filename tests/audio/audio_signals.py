@@ -1,0 +1,74 @@
+"""Synthesized test signals shared by the audio tests (no recordings needed)."""
+
+import numpy as np
+
+SR = 22050
+
+
+def clicks(bpm, *, seconds=12.0, sr=SR, start_s=0.2):
+    """A click track: 30 ms decaying 1.5 kHz clicks every beat."""
+    y = np.zeros(int(seconds * sr))
+    n = int(0.03 * sr)
+    tt = np.arange(n) / sr
+    c = np.sin(2 * np.pi * 1500 * tt) * np.exp(-tt * 150) * 0.5
+    for b in np.arange(start_s, seconds - 0.1, 60.0 / bpm):
+        i = int(b * sr)
+        y[i:i + n] += c[: len(y[i:i + n])]
+    return y
+
+
+def drum_pattern(bpm, *, seconds=12.0, sr=SR, seed=0):
+    """Kick on beats 1 and 3, snare on 2 and 4, closed hat on every beat."""
+    rng = np.random.default_rng(seed)
+    y = np.zeros(int(seconds * sr))
+    n = int(0.15 * sr)
+    tt = np.arange(n) / sr
+    kick = np.sin(2 * np.pi * np.cumsum(60 + 80 * np.exp(-tt * 30)) / sr) * np.exp(-tt * 20)
+    snare = rng.standard_normal(n) * np.exp(-tt * 35) * 0.5
+    hat = rng.standard_normal(n) * np.exp(-tt * 120) * 0.12
+    for k, b in enumerate(np.arange(0.2, seconds - 0.3, 60.0 / bpm)):
+        i = int(b * sr)
+        seg = slice(i, i + n)
+        m = len(y[seg])
+        y[seg] += (kick if k % 2 == 0 else snare)[:m] + hat[:m]
+    return y * 0.5
+
+
+def note_sequence(*, n_notes=40, sr=SR, seed=3):
+    """Harmonic notes of random pitch, length and level; returns (samples, onset times)."""
+    rng = np.random.default_rng(seed)
+    t = 0.3
+    onsets = []
+    parts = [np.zeros(int(0.3 * sr))]
+    for _ in range(n_notes):
+        f = 220 * 2 ** (rng.integers(0, 24) / 12)
+        d = rng.uniform(0.2, 0.5)
+        gap = rng.uniform(0.0, 0.2)
+        tt = np.arange(int(d * sr)) / sr
+        env = np.minimum(1, tt / 0.005) * np.exp(-tt * 6) * np.minimum(1, (d - tt) / 0.03)
+        tone = sum(np.sin(2 * np.pi * f * h * tt) / h for h in (1, 2, 3, 4)) * env * rng.uniform(0.2, 0.6)
+        onsets.append(sum(len(p) for p in parts) / sr)
+        parts += [tone, np.zeros(int(gap * sr))]
+    parts.append(np.zeros(int(0.5 * sr)))
+    return np.concatenate(parts), np.array(onsets)
+
+
+def chord(pitch_classes, bass_pc, seconds, *, sr=SR):
+    """Harmonic tones (5 partials, 1/h) on C4 + pitch class, with a bass on C2 + bass_pc."""
+    t = np.arange(int(seconds * sr)) / sr
+    y = np.zeros_like(t)
+    for pc in pitch_classes:
+        f = 261.63 * 2 ** (pc / 12)
+        y += sum(np.sin(2 * np.pi * f * h * t) / h for h in range(1, 6)) * 0.08
+    fb = 65.41 * 2 ** ((bass_pc % 12) / 12)
+    y += sum(np.sin(2 * np.pi * fb * h * t) / h for h in range(1, 6)) * 0.1
+    return y * np.minimum(1, t / 0.01) * np.minimum(1, (seconds - t) / 0.05)
+
+
+def cadence(tonic_pc, mode, *, sr=SR, repeats=2):
+    """I-IV-V7-I (major) or i-iv-V7-i (minor, raised leading tone), one second per chord."""
+    third = 4 if mode == "major" else 3
+    sixth = 9 if mode == "major" else 8
+    prog = [([0, third, 7], 0), ([5, sixth, 12], 5), ([7, 11, 14, 17], 7), ([0, third, 7], 0)]
+    one = [chord([p + tonic_pc for p in pcs], b + tonic_pc, 1.0, sr=sr) for pcs, b in prog]
+    return np.concatenate(one * repeats)
