@@ -71,7 +71,13 @@ def _n(sr: int, dur_s: float) -> int:
 
 
 def _set_rms(y: np.ndarray, level_db: float) -> np.ndarray:
-    rms = float(np.sqrt(np.mean(np.square(y, dtype=np.float64)))) if y.size else 0.0
+    """Scale ``y`` in place to RMS ``level_db`` dBFS (sum of squares in float64, by blocks)."""
+    block = 1 << 20
+    energy = 0.0
+    for s in range(0, y.size, block):
+        b = y[s:s + block].astype(np.float64)
+        energy += float(np.dot(b, b))
+    rms = float(np.sqrt(energy / y.size)) if y.size else 0.0
     if rms > 0:
         y *= np.float32(10.0 ** (level_db / 20.0) / rms)
     return y

@@ -265,6 +265,7 @@ def synthesize(
     tid = TIMBRES.index(timbre)
     n_fade = int(0.02 * sr)
 
+    scratch = np.empty(int(n_need.max()), dtype=np.float32)
     key = pitch * 64 + band
     order = np.lexsort((i0, key))
     keys, first = np.unique(key[order], return_index=True)
@@ -281,15 +282,17 @@ def synthesize(
         pk = float(np.max(np.abs(tmpl[: max(1, min(n_t, int(0.2 * sr)))])))
         tmpl /= max(pk, 1e-9)
         for i in idx:
-            s0 = i0[i]
+            s0 = int(i0[i])
             if s0 >= n_out:
                 continue
             n = int(min(n_need[i], n_out - s0))
-            seg = tmpl[:n] * gain[i]
-            h = int(n_hold[i])
+            h = min(int(n_hold[i]), n)
+            seg = scratch[:n]
+            np.multiply(tmpl[:n], gain[i], out=seg)
             if h < n:
-                seg[h:] *= release[: n - h]
-            out[s0:s0 + n] += seg
+                np.multiply(seg[h:], release[: n - h], out=seg[h:])
+            dst = out[s0:s0 + n]
+            np.add(dst, seg, out=dst)
     pk = float(np.max(np.abs(out)))
     if pk > PEAK_LIMIT:
         out *= np.float32(PEAK_LIMIT / pk)
