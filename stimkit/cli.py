@@ -159,14 +159,18 @@ def annotate(
         if not score or audio is None:
             raise InputError("give a session file, or both --score and --audio (see --template)")
         sess = session_from_files(score, audio, out_dir=out)
+        command = ["stimkit", "annotate"] + [a for s in score for a in ("--score", str(s))] + ["--audio", str(audio)]
     else:
         sess = load_session(session, out_dir=out)
+        command = ["stimkit", "annotate", str(session)]
+    if out is not None:
+        command += ["-o", str(out)]
     bar, update = _progress()
     if bar is not None:
         with bar:
-            result = annotate_session(sess, progress=update)
+            result = annotate_session(sess, progress=update, command=command)
     else:
-        result = annotate_session(sess)
+        result = annotate_session(sess, command=command)
     con = _console()
     for line in summary_lines(result):
         con.print(line)

@@ -455,11 +455,13 @@ score = "second-piece.musicxml"
 '''
 
 
-def annotate_session(session: Session, *, progress=None):
-    """Run the main job on a validated session; see :func:`stimkit.timeline.run.annotate`."""
+def annotate_session(session: Session, *, progress=None, command: list[str] | None = None):
+    """Run the main job on a validated session; see :func:`stimkit.timeline.run.annotate`.
+
+    ``command`` is recorded in ``provenance.json`` (default: an equivalent command line)."""
     from .timeline.run import annotate
 
-    return annotate(session, progress=progress)
+    return annotate(session, progress=progress, command=command)
 
 
 def summary_lines(result) -> list[str]:

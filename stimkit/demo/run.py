@@ -76,7 +76,7 @@ def run_demo(*, out_dir, progress=None) -> list[str]:
     from ..session import annotate_session, load_session, summary_lines
 
     session = load_session(demo_session_path(), out_dir=out_dir)
-    result = annotate_session(session, progress=progress)
+    result = annotate_session(session, progress=progress, command=["stimkit", "demo", "-o", str(out_dir)])
     lines = summary_lines(result)
     cmp = compare_to_truth(result)
     starts = ", ".join(f"{k} {v * 1000:+.0f} ms" for k, v in cmp["piece_start_errors_s"].items())
