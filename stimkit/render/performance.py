@@ -107,6 +107,23 @@ class Performance:
     duration_s: float
     settings: dict = field(default_factory=dict)
 
+    def positions(self) -> pd.DataFrame:
+        """Ground truth per distinct note-onset position (the rows an alignment reports).
+
+        Returns
+        -------
+        pandas.DataFrame
+            Sorted by ``score_qn``: ``score_qn, measure, pass, beat, n_notes``, ``onset_s`` (first
+            note of the position to sound), ``onset_mean_s`` (mean over its notes) and ``smooth_s``
+            (``timemap(score_qn)``, the tempo curve without jitter and chord spread).
+        """
+        g = self.notes.groupby("score_qn", sort=True)
+        out = g.agg(measure=("measure", "first"), pass_=("pass", "first"), beat=("beat", "first"),
+                    n_notes=("pitch", "size"), onset_s=("onset_s", "min"),
+                    onset_mean_s=("onset_s", "mean")).reset_index().rename(columns={"pass_": "pass"})
+        out["smooth_s"] = self.timemap(out["score_qn"].to_numpy(dtype=np.float64))
+        return out
+
 
 def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
     """Score positions where a phrase ends (sorted, unique, > 0)."""

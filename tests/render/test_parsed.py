@@ -70,3 +70,21 @@ def test_parsed_score_renders_with_exact_onsets(fermata_score):
     assert f >= 0.9
     assert y.size == int(round(perf.duration_s * 22050))
     assert perf.beats["measure"].tolist()[:5] == [1, 1, 1, 1, 2]
+
+
+def test_corpus_piece_positions_are_found_in_the_audio():
+    # music21 corpus (used in place): the Mozart K. 545 exposition, rendered with the piano timbre;
+    # every distinct onset position's first note is checked against librosa's detector with
+    # mir_eval's onset F-measure (50 ms window)
+    music21 = pytest.importorskip("music21")
+    score = load_score(music21.corpus.getWork("mozart/k545/movement1_exposition.mxl"))
+    y, perf = render_score(score, seed=2, timbre="piano")
+    pos = perf.positions()
+    assert len(pos) == score.notes["score_qn"].nunique()
+    est = librosa.onset.onset_detect(y=y, sr=22050, units="time")
+    f, _, _ = mir_eval.onset.f_measure(pos["onset_s"].to_numpy(), est, window=0.05)
+    assert f >= 0.9
+    # the performed first onset of each position is never later than its mean, and the smooth
+    # curve stays within the jitter + chord spread bound of it
+    assert np.all(pos["onset_s"] <= pos["onset_mean_s"] + 1e-12)
+    assert np.max(np.abs(pos["onset_s"] - pos["smooth_s"])) < 2.5 * 0.008 + 0.015 + 1e-9
