@@ -30,7 +30,7 @@ import pandas as pd
 from ..export.tables import OutputSet
 from ..levels import EVENT_COLUMNS
 
-__all__ = ["write_report", "report_html"]
+__all__ = ["write_report", "report_html", "HEADINGS"]
 
 _CSS = """
 :root { --ink:#1d2a36; --muted:#5b6875; --rule:#c9d2da; --band:#eef2f6; --accent:#2f6f8f; --warn:#8c2d1c; }
@@ -108,9 +108,29 @@ def _fmt(v, *, column: str = "") -> tuple[str, bool]:
     return str(v), False
 
 
+#: Column or key name -> heading shown to people (other names are shown as they are).
+HEADINGS = {
+    "duration_s": "duration (s)", "loudness_mean": "loudness mean", "loudness_sd": "loudness SD",
+    "lra_lu": "LRA (LU)", "tempo_mean_bpm": "tempo mean (BPM)", "tempo_sd_bpm": "tempo SD (BPM)",
+    "tempo_min_bpm": "tempo min (BPM)", "tempo_max_bpm": "tempo max (BPM)",
+    "onset_rate_mean_hz": "onsets per s", "loudness_column": "loudness feature",
+    "start": "start (s)", "end": "end (s)", "recording": "recording (s)", "onset": "onset (s)",
+    "offset_s": "offset (s)", "drift_ppm": "drift (ppm)", "max_residual_s": "largest residual (s)",
+    "recording_s": "recording (s)", "recorder_s": "recorder (s)", "residual_s": "residual (s)",
+    "residual_ms": "residual (ms)", "strength": "strength (SD)", "pre_mean": "mean before",
+    "post_mean": "mean after", "difference": "after - before", "observed_hits": "boundaries hit",
+    "expected_hits": "expected by chance", "p_value": "p", "tolerance_s": "tolerance (s)",
+}
+
+
+def _heading(name) -> str:
+    return HEADINGS.get(str(name), str(name))
+
+
 def _table(df: pd.DataFrame, *, max_rows: int | None = None) -> str:
     cols = [str(c) for c in df.columns]
-    out = ["<table>", "<thead><tr>" + "".join(f"<th>{_esc(c)}</th>" for c in cols) + "</tr></thead>",
+    out = ["<table>", "<thead><tr>" + "".join(f"<th>{_esc(_heading(c))}</th>" for c in cols)
+           + "</tr></thead>",
            "<tbody>"]
     rows = df if max_rows is None else df.head(max_rows)
     for rec in rows.itertuples(index=False, name=None):
@@ -125,13 +145,19 @@ def _table(df: pd.DataFrame, *, max_rows: int | None = None) -> str:
     return "\n".join(out)
 
 
+def _is_records(v) -> bool:
+    return isinstance(v, (list, tuple)) and len(v) > 0 and all(isinstance(x, dict) for x in v)
+
+
 def _facts(d: dict) -> str:
     items = []
     for k, v in d.items():
-        if isinstance(v, (dict, pd.DataFrame)):
+        if isinstance(v, (dict, pd.DataFrame)) or _is_records(v):
             continue
+        if isinstance(v, (list, tuple)) and not v:
+            v = "none"
         text, _ = _fmt(v, column=str(k))
-        items.append(f"<dt>{_esc(k)}</dt><dd>{_esc(text)}</dd>")
+        items.append(f"<dt>{_esc(_heading(k))}</dt><dd>{_esc(text)}</dd>")
     return '<dl class="facts">' + "".join(items) + "</dl>" if items else ""
 
 
@@ -142,7 +168,10 @@ def _block(value, *, max_rows: int) -> str:
         parts = [_facts(value)]
         for k, v in value.items():
             if isinstance(v, (dict, pd.DataFrame)):
-                parts.append(f"<h3>{_esc(k)}</h3>" + _block(v, max_rows=max_rows))
+                parts.append(f"<h3>{_esc(_heading(k))}</h3>" + _block(v, max_rows=max_rows))
+            elif _is_records(v):
+                parts.append(f"<h3>{_esc(_heading(k))}</h3>"
+                             + _table(pd.DataFrame(list(v)), max_rows=max_rows))
         return "\n".join(p for p in parts if p)
     text, _ = _fmt(value)
     return f"<p>{_esc(text)}</p>"

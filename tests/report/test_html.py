@@ -94,4 +94,16 @@ def test_well_formed_and_sections(written):
     c.feed(page)
     assert c.stack == []
     assert c.h2 == ["Overview", "Pieces", "Clock sync", "Statistics", "Events", "Warnings"]
-    assert "31.000" in page and "drift_ppm" in page   # the sync fit is listed
+    assert "31.000" in page and "drift (ppm)" in page   # the sync fit is listed
+
+
+def test_sync_points_become_a_table(tmp_path):
+    from stimkit.report.html import report_html
+
+    page = report_html(title="t", figure_png=b"\x89PNG\r\n\x1a\n", summary={}, pieces=None, events=None,
+                       stats=None, warnings=[],
+                       sync={"offset_s": 2.0, "points": [{"recording_s": 1.0, "residual_s": 0.001},
+                                                         {"recording_s": 250.0, "residual_s": -0.001}],
+                             "warnings": []})
+    assert "<th>recording (s)</th>" in page and "250.000" in page
+    assert "{" not in page.split("<body>")[1]        # no Python repr leaks into the page
