@@ -30,7 +30,26 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["count_hits", "boundary_coincidence"]
+__all__ = ["count_hits", "boundary_coincidence", "score_boundary_times", "DETECTED_KINDS"]
+
+#: Event kinds that come from the audio or the sync, not from the score.
+DETECTED_KINDS = frozenset({"piece", "silence", "feature_change", "sync"})
+
+
+def score_boundary_times(events: pd.DataFrame, *, time_column: str = "recording",
+                         kinds=None) -> np.ndarray:
+    """Sorted, distinct times of the score boundaries in an event table.
+
+    ``kinds`` defaults to every ``trial_type`` except those detected in the audio or the sync
+    (:data:`DETECTED_KINDS`) and whole pieces; rows without a finite ``time_column`` are
+    skipped.
+    """
+    if time_column not in events.columns or "trial_type" not in events.columns:
+        return np.array([])
+    tt = events["trial_type"].map(lambda v: None if pd.isna(v) else str(v))
+    keep = tt.isin(list(kinds)) if kinds is not None else (tt.notna() & ~tt.isin(list(DETECTED_KINDS)))
+    t = pd.to_numeric(events.loc[keep, time_column], errors="coerce").to_numpy(np.float64)
+    return np.unique(t[np.isfinite(t)])
 
 
 def count_hits(boundaries: np.ndarray, changes: np.ndarray, *, tolerance_s: float) -> int:

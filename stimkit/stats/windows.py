@@ -5,6 +5,8 @@ What it computes
 - :func:`event_windows`: for every event, the mean of each feature over a window before it and
   a window after it, and their difference (after minus before) -- the pre/post contrast of
   event-related physiology (common practice: 5 s before / 5 s after, the defaults here).
+- :func:`window_summary`: per event kind and feature, the number of events and the mean and
+  SD of the after-minus-before differences.
 - :func:`piece_summary`: per piece its duration, mean / SD of loudness, loudness range (LRA,
   EBU Tech 3342 on the short-term loudness column unless given), tempo mean / SD / range and
   mean onset rate.
@@ -33,7 +35,7 @@ import pandas as pd
 
 from .roles import pick_column
 
-__all__ = ["event_windows", "piece_summary", "loudness_range"]
+__all__ = ["event_windows", "window_summary", "piece_summary", "loudness_range"]
 
 
 def _numeric_columns(features: pd.DataFrame, columns) -> list[str]:
@@ -115,6 +117,33 @@ def event_windows(
     out = pd.concat(parts, ignore_index=True)
     out = out.sort_values(["event", "_k"], kind="mergesort").reset_index(drop=True)
     return out[columns_out]
+
+
+def window_summary(windows: pd.DataFrame) -> pd.DataFrame:
+    """Per ``trial_type`` x ``feature``: ``n_events``, ``mean_difference``, ``sd_difference``.
+
+    ``windows`` is the output of :func:`event_windows`; rows with a NaN difference are not
+    counted. Kinds in first-seen order, features in their order; SD with ddof 1 (NaN for one
+    event).
+    """
+    cols = ["trial_type", "feature", "n_events", "mean_difference", "sd_difference"]
+    if windows is None or not len(windows):
+        return pd.DataFrame(columns=cols)
+    w = windows[np.isfinite(windows["difference"].to_numpy(np.float64))]
+    kinds = list(dict.fromkeys(w["trial_type"].map(lambda v: "n/a" if pd.isna(v) else str(v))))
+    feats = list(dict.fromkeys(w["feature"]))
+    tt = w["trial_type"].map(lambda v: "n/a" if pd.isna(v) else str(v)).to_numpy()
+    ff = w["feature"].to_numpy()
+    d = w["difference"].to_numpy(np.float64)
+    rows = []
+    for k in kinds:
+        for f in feats:
+            x = d[(tt == k) & (ff == f)]
+            if x.size:
+                rows.append({"trial_type": k, "feature": f, "n_events": int(x.size),
+                             "mean_difference": float(x.mean()),
+                             "sd_difference": float(x.std(ddof=1)) if x.size > 1 else float("nan")})
+    return pd.DataFrame(rows, columns=cols)
 
 
 def loudness_range(short_term_lufs: np.ndarray) -> float:

@@ -56,3 +56,12 @@ def test_same_seed_same_result_and_shifts_stay_in_pieces(boundaries):
     b = boundary_coincidence(boundaries, boundaries + 0.2, spans=spans, seed=3)
     assert a == b
     assert a["n_changes"] == boundaries.size
+
+
+def test_score_boundary_times_skip_detected_kinds():
+    from stimkit.stats.coincidence import score_boundary_times
+
+    ev = pd.DataFrame({"recording": [0.0, 5.0, 5.0, 9.0, 12.0, np.nan, 20.0],
+                       "trial_type": ["piece", "dynamic", "key", "feature_change", "silence", "tempo", "sync"]})
+    assert score_boundary_times(ev).tolist() == [5.0]  # distinct times of score markings only
+    assert score_boundary_times(ev, kinds=["feature_change"]).tolist() == [9.0]

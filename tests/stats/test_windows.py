@@ -74,3 +74,17 @@ def test_piece_summary_numbers():
     assert np.isnan(s.loc["A", "lra_lu"])  # no short-term loudness, no LRA given
     s2 = piece_summary(f.drop(columns="tempo_bpm"), pieces, lra_lu={"A": 7.5}).set_index("piece")
     assert s2.loc["A", "lra_lu"] == 7.5 and np.isnan(s2.loc["A", "tempo_mean_bpm"])
+
+
+def test_window_summary_by_kind():
+    t = (np.arange(1200) + 0.5) / 10.0
+    x = np.floor(t / 30.0)  # a unit step every 30 s
+    f = pd.DataFrame({"x": x}, index=t)
+    ev = pd.DataFrame({"recording": [30.0, 60.0, 90.0, 45.0], "trial_type": ["section", "section", "section", "key"]})
+    from stimkit.stats.windows import window_summary
+
+    s = window_summary(event_windows(f, ev)).set_index("trial_type")
+    assert s.loc["section", "n_events"] == 3
+    assert s.loc["section", "mean_difference"] == pytest.approx(1.0)   # each step is 1
+    assert s.loc["section", "sd_difference"] == pytest.approx(0.0)
+    assert s.loc["key", "mean_difference"] == pytest.approx(0.0) and np.isnan(s.loc["key", "sd_difference"])
