@@ -185,7 +185,8 @@ def events_sidecar(events: pd.DataFrame, *, extra: dict | None = None,
             if units:
                 entry["Units"] = units
         else:
-            entry = {"LongName": c, "Description": f"Additional column '{c}' (not described by its producer)."}
+            entry = {"LongName": c,
+                     "Description": f"Additional column '{c}' (not described by its producer)."}
         if c == "onset" and synchronized is not None:
             entry["Description"] = entry["Description"] + " In this file: " + clock["Description"]
         if c == "trial_type":

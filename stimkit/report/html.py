@@ -63,6 +63,7 @@ footer { margin-top: 30px; color: var(--muted); font-size: 12px; }
 }
 """
 
+_ALT = "Overview of the session: features against time with every boundary marked"
 _SECONDS_HINT = ("onset", "duration", "nominal", "recording", "start", "end", "time", "duration_s",
                  "offset_s")
 
@@ -180,22 +181,17 @@ def _block(value, *, max_rows: int) -> str:
 def _events_section(events: pd.DataFrame, *, max_rows_per_kind: int) -> str:
     if events is None or not len(events):
         return "<p>No events.</p>"
-    parts = []
-    if "trial_type" in events.columns:
-        kinds = [k for k in dict.fromkeys(events["trial_type"].map(lambda v: "n/a" if _is_missing(v) else str(v)))]
-        counts = pd.DataFrame({"kind": kinds, "events": [
-            int((events["trial_type"].map(lambda v: "n/a" if _is_missing(v) else str(v)) == k).sum())
-            for k in kinds]})
-        parts.append(_table(counts))
-        order = [c for c in EVENT_COLUMNS if c in events.columns] + \
-            [c for c in events.columns if c not in EVENT_COLUMNS]
-        show = [c for c in order if c != "trial_type" and not events[c].map(_is_missing).all()]
-        for k in kinds:
-            sub = events[events["trial_type"].map(lambda v: "n/a" if _is_missing(v) else str(v)) == k]
-            parts.append(f"<h3>{_esc(k)}</h3>")
-            parts.append(_table(sub[show], max_rows=max_rows_per_kind))
-    else:
-        parts.append(_table(events, max_rows=max_rows_per_kind))
+    if "trial_type" not in events.columns:
+        return _table(events, max_rows=max_rows_per_kind)
+    kind = events["trial_type"].map(lambda v: "n/a" if _is_missing(v) else str(v)).to_numpy()
+    kinds = list(dict.fromkeys(kind))
+    parts = [_table(pd.DataFrame({"kind": kinds, "events": [int((kind == k).sum()) for k in kinds]}))]
+    order = [c for c in EVENT_COLUMNS if c in events.columns] + \
+        [c for c in events.columns if c not in EVENT_COLUMNS]
+    show = [c for c in order if c != "trial_type" and not events[c].map(_is_missing).all()]
+    for k in kinds:
+        parts.append(f"<h3>{_esc(k)}</h3>")
+        parts.append(_table(events.loc[kind == k, show], max_rows=max_rows_per_kind))
     return "\n".join(parts)
 
 
@@ -220,8 +216,7 @@ def report_html(
             '<p class="lead">Stimulus events and features of one listening session, on one clock.</p>',
             _facts(summary or {}),
             "<h2>Overview</h2>",
-            f'<figure><img alt="{_esc("Overview of the session: features against time with every boundary marked")}" '
-            f'src="data:image/png;base64,{img}">'
+            f'<figure><img alt="{_esc(_ALT)}" src="data:image/png;base64,{img}">'
             "<figcaption>Lanes share the time axis; vertical lines are boundaries (dashed: feature "
             "change points); tinted spans are pieces; hatched spans are low-confidence alignment."
             "</figcaption></figure>",

@@ -6,7 +6,6 @@ import base64
 import re
 from html.parser import HTMLParser
 
-import pandas as pd
 import pytest
 
 from stimkit.export.tables import OutputSet
