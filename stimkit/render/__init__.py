@@ -30,7 +30,8 @@ __all__ = [
 
 
 def render_score(score, *, seed: int, sr: int = 22050, timbre: str = "piano", room: bool = True,
-                 start_s: float = 0.0) -> tuple[np.ndarray, Performance]:
+                 start_s: float = 0.0, rt60_s: float = 0.8, wet: float = 0.25, noise_db: float = -60.0,
+                 perform_options: dict | None = None) -> tuple[np.ndarray, Performance]:
     """Perform, synthesize and (optionally) place in a room one score.
 
     Parameters
@@ -44,20 +45,32 @@ def render_score(score, *, seed: int, sr: int = 22050, timbre: str = "piano", ro
     timbre : str
         One of :data:`stimkit.render.synth.TIMBRES`.
     room : bool
-        Add reverberation (RT60 0.8 s, wet 0.25) and -60 dBFS noise.
+        Add reverberation and noise with :func:`stimkit.render.room.add_room`.
     start_s : float
         Silence before the first beat, seconds.
+    rt60_s, wet, noise_db : float
+        Room options (see :func:`stimkit.render.room.add_room`).
+    perform_options : dict, optional
+        Further keyword options of :func:`stimkit.render.performance.perform` (``drift``,
+        ``phrase_rit``, ``fermata_factor``, ``jitter_s``, ``chord_spread_s``).
 
     Returns
     -------
     y : numpy.ndarray
         float32 mono signal of ``round(perf.duration_s * sr)`` samples.
     perf : Performance
-        Timing and ground truth; ``perf.settings`` also records ``sr``, ``timbre`` and ``room``.
+        Timing and ground truth. Here ``notes.onset_s`` is snapped to the sample grid
+        (``k / sr``, ``k`` the note's first sample in ``y``), so it is exact; ``perf.settings``
+        also records ``sr``, ``timbre`` and the room options.
     """
-    perf = perform(score, seed=seed, start_s=start_s)
+    perf = perform(score, seed=seed, start_s=start_s, **(perform_options or {}))
+    perf.notes["onset_s"] = np.rint(perf.notes["onset_s"].to_numpy() * sr) / sr
+    on = perf.notes["onset_s"].to_numpy()
+    perf.notes["offset_s"] = np.maximum(perf.notes["offset_s"].to_numpy(), on + 1.0 / sr)
     y = synthesize(perf.notes, sr=sr, timbre=timbre, seed=seed + 1, duration_s=perf.duration_s)
     if room:
-        y = add_room(y, sr, seed=seed + 2)
+        y = add_room(y, sr, rt60_s=rt60_s, wet=wet, noise_db=noise_db, seed=seed + 2)
     perf.settings.update({"sr": int(sr), "timbre": timbre, "room": bool(room)})
+    if room:
+        perf.settings.update({"rt60_s": float(rt60_s), "wet": float(wet), "noise_db": float(noise_db)})
     return y, perf

@@ -24,9 +24,9 @@ The local duration of a quarter note is the nominal one divided by three factors
 2. **Phrase-final ritardando** -- over the last :data:`RIT_SPAN_QN` quarter notes before each
    phrase end the tempo falls linearly (in tempo) to ``1 - phrase_rit`` and returns at the next
    phrase; phrase ends are section boundaries (``trial_type`` ``section``/``pause``), rests of at
-   least one beat in all parts, every 8 bars, the end of the last note and the end of the piece. This follows the shape of
-   final ritards described by Friberg & Sundberg (1999) and phrase-arch timing (Todd 1992), in a
-   simplified linear form.
+   least one beat in all parts, every 8 bars, the end of the last note and the end of the piece.
+   This follows the shape of final ritards described by Friberg & Sundberg (1999) and
+   phrase-arch timing (Todd 1992), in a simplified linear form.
 3. **Fermata** -- the span of a fermata (``trial_type == "fermata"``: from its ``score_qn`` to
    its ``end_qn`` when the table has that column, else to the next note onset) is lengthened by
    ``fermata_factor`` on top of the hold the nominal tempo map already contains

@@ -196,7 +196,8 @@ def babble(sr: int, dur_s: float, *, seed: int, n_talkers: int = 4, level_db: fl
     return _set_rms(out, level_db)
 
 
-def applause(sr: int, dur_s: float, *, seed: int, n_clappers: int = 40, level_db: float = -20.0) -> np.ndarray:
+def applause(sr: int, dur_s: float, *, seed: int, n_clappers: int = 40,
+             level_db: float = -20.0) -> np.ndarray:
     """Applause of ``n_clappers`` people with a rise and a decay, RMS ``level_db`` dBFS.
 
     See the module docstring for the method.

@@ -124,7 +124,8 @@ def _piano_template(pitch: int, vel: float, n_samp: int, sr: int, rng) -> np.nda
     fac = (1.0 + f / 2500.0).astype(np.float32)[:, None]                     # high partials decay faster
     phase = rng.uniform(0, 2 * np.pi, f.size).astype(np.float32)[:, None]
     osc = np.cos(np.float32(2 * np.pi) * f.astype(np.float32)[:, None] * t[None, :] + phase)
-    env = 0.7 * np.exp(-(t[None, :] * fac) / np.float32(tau1)) + 0.3 * np.exp(-(t[None, :] * fac) / np.float32(tau2))
+    tf = t[None, :] * fac
+    env = 0.7 * np.exp(-tf / np.float32(tau1)) + 0.3 * np.exp(-tf / np.float32(tau2))
     y = (a.astype(np.float32) @ (osc * env)).astype(np.float32)
     # hammer: band-passed noise burst, brighter when louder
     v = vel / 127.0
@@ -132,7 +133,8 @@ def _piano_template(pitch: int, vel: float, n_samp: int, sr: int, rng) -> np.nda
     hi = min(1500.0 + 5000.0 * v, 0.45 * sr)
     sos = butter(2, [300.0, hi], btype="bandpass", fs=sr, output="sos")
     burst = sosfilt(sos, rng.standard_normal(n_h)) * np.exp(-np.arange(n_h) / (0.005 * sr))
-    y[:n_h] += (0.25 + 0.35 * v) * np.max(np.abs(y[: max(n_h, 1)])) * burst / max(np.max(np.abs(burst)), 1e-12)
+    level = (0.25 + 0.35 * v) * np.max(np.abs(y[: max(n_h, 1)]))
+    y[:n_h] += level * burst / max(np.max(np.abs(burst)), 1e-12)
     return y
 
 

@@ -151,3 +151,14 @@ def test_bad_input_is_refused():
         synthesize(_one(60), timbre="kazoo")
     with pytest.raises(InputError):
         synthesize(pd.DataFrame({"onset_s": [0.0], "pitch": [60]}))
+
+
+def test_render_score_ground_truth_is_on_the_sample_grid(melody_score):
+    # render_score snaps onset_s to k / sr; without the room, sample k is the note's first
+    # non-zero sample (checked for the first note, which sounds alone)
+    y, perf = render_score(melody_score, seed=8, room=False, start_s=0.25)
+    k = perf.notes["onset_s"].to_numpy() * SR
+    np.testing.assert_allclose(k, np.rint(k), atol=1e-6)
+    first = int(round(k[0]))
+    assert np.all(y[:first] == 0) and y[first] != 0
+    assert perf.settings["sr"] == SR and perf.settings["timbre"] == "piano"
