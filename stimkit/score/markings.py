@@ -131,10 +131,11 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
     model, ev = ctx.model, ctx.events
     meas = model.measures
     cands = []
+    beat_qn_of = meas["beat_qn"].to_numpy(dtype=float)
     if not ev.empty:
         sel = ev[ev["kind"].isin(["metronome", "words"])].sort_values(["score_qn", "part"], kind="mergesort")
         for r in sel.itertuples(index=False):
-            beat_qn = float(meas["beat_qn"].iloc[int(r.perf)])
+            beat_qn = float(beat_qn_of[int(r.perf)])
             if r.kind == "metronome":
                 num, snd, rq = r.num, r.num2, r.ref_ql if np.isfinite(r.ref_ql) else 1.0
                 written = float(num) * rq if np.isfinite(num) else np.nan
@@ -384,6 +385,7 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
     glob: list[dict] = []  # merged with GLOBAL_SAME_PLACE_QN
     end_q = model.total_qn
     note_end = float((notes["score_qn"] + notes["dur"]).max())
+    bar_len_of = meas["duration_qn"].to_numpy(dtype=float)
     first_q = float(notes["score_qn"].min())
 
     # piece
@@ -423,7 +425,7 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
             if t in _HAIRPIN_WORDS:
                 # ends at the part's next dynamic, else after one bar
                 dd = d[(d["part"] == r.part) & (d["score_qn"] > r.score_qn + 1e-6)]
-                bar_len = float(meas["duration_qn"].iloc[int(r.perf)])
+                bar_len = float(bar_len_of[int(r.perf)])
                 e = float(dd["score_qn"].min()) if not dd.empty else r.score_qn + bar_len
                 lab = "crescendo" if _HAIRPIN_WORDS[t] > 0 else "diminuendo"
                 local.append(_row("hairpin", lab, r.score_qn, part=r.part_name, value=_HAIRPIN_WORDS[t],
@@ -452,7 +454,7 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
             nice = {"DaCapo": "D.C.", "DaCapoAlFine": "D.C. al Fine", "DaCapoAlCoda": "D.C. al Coda",
                     "DalSegno": "D.S.", "DalSegnoAlFine": "D.S. al Fine", "DalSegnoAlCoda": "D.S. al Coda",
                     "AlSegno": "al Segno", "Segno": "segno", "Coda": "coda", "Fine": "Fine"}
-            bar_len = float(meas["duration_qn"].iloc[int(r.perf)])
+            bar_len = float(bar_len_of[int(r.perf)])
             glob.append(_row("section", nice.get(r.text, r.text), r.score_qn, part=r.part_name,
                              detail="repeat instruction", at_end=r.off >= bar_len - 1e-9 and r.off > 0))
         for r in ev[ev["kind"] == "barline"].itertuples(index=False):

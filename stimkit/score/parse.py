@@ -235,7 +235,8 @@ def collect_printed(score, *, path: Path) -> PrintedScore:
     ts_cur = None
     rows = []
     for i, m in enumerate(ref):
-        ts = m.timeSignature
+        # Measure.timeSignature, read from the bar's own elements (fast and never the previous meter)
+        ts = next((el for el in m.elements if isinstance(el, meter.TimeSignature)), None)
         if ts is None and ts_cur is None:
             ts = m.getContextByClass(meter.TimeSignature)
         if ts is not None:
@@ -291,24 +292,19 @@ def collect_printed(score, *, path: Path) -> PrintedScore:
                 btype = getattr(bl, "type", None)
                 add("barline", k, i, 0.0 if side == "left" else float(bars.at[i, "duration_qn"]),
                     text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
-            ksig = m.keySignature
-            if ksig is not None:
-                mode = getattr(ksig, "mode", None) if isinstance(ksig, key.Key) else None
-                tonic = ksig.tonic.name if isinstance(ksig, key.Key) else None
-                add("key", k, i, 0.0, num=float(ksig.sharps), text=mode or "", text2=tonic or "")
-                key_cur = ksig
-            elif key_cur is None and i == pm[0][0]:
-                ctx = m.getContextByClass(key.KeySignature)
-                if ctx is not None:
-                    key_cur = ctx
-                    mode = getattr(ctx, "mode", None) if isinstance(ctx, key.Key) else None
-                    tonic = ctx.tonic.name if isinstance(ctx, key.Key) else None
-                    add("key", k, i, 0.0, num=float(ctx.sharps), text=mode or "", text2=tonic or "")
+            key_here = False
             stack = [(m, 0.0)]
             while stack:
                 container, base = stack.pop()
-                for el in container:
-                    off = base + float(el.offset)
+                for el in container.elements:
+                    off = base + float(container.elementOffset(el))
+                    if isinstance(el, key.KeySignature):
+                        mode = getattr(el, "mode", None) if isinstance(el, key.Key) else None
+                        tonic = el.tonic.name if isinstance(el, key.Key) else None
+                        add("key", k, i, off, num=float(el.sharps), text=mode or "", text2=tonic or "")
+                        key_cur = el
+                        key_here = True
+                        continue
                     if isinstance(el, stream.Voice):
                         stack.append((el, off))
                         continue
@@ -375,6 +371,13 @@ def collect_printed(score, *, path: Path) -> PrintedScore:
                         add("rehearsal", k, i, off, text=str(el.content))
                     elif isinstance(el, expressions.TextExpression):
                         add("words", k, i, off, text=str(el.content or ""))
+            if key_cur is None and not key_here and i == pm[0][0]:
+                ctx = m.getContextByClass(key.KeySignature)
+                if ctx is not None:
+                    key_cur = ctx
+                    mode = getattr(ctx, "mode", None) if isinstance(ctx, key.Key) else None
+                    tonic = ctx.tonic.name if isinstance(ctx, key.Key) else None
+                    add("key", k, i, 0.0, num=float(ctx.sharps), text=mode or "", text2=tonic or "")
     # marks from later parts collapse to one entry per bar (the union is what matters)
     for b in marks:
         if b.coda > 2:

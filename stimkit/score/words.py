@@ -35,6 +35,7 @@ from __future__ import annotations
 
 import re
 import unicodedata
+from functools import lru_cache
 from dataclasses import dataclass
 
 __all__ = ["TempoWord", "classify_tempo_text", "word_quarter_bpm", "ABSOLUTE_WORDS",
@@ -145,20 +146,29 @@ def _table(d):
     return sorted(((_fold(k), v) for k, v in d.items()), key=lambda kv: -len(kv[0]))
 
 
-_ABS = _table(ABSOLUTE_WORDS)
-_RAMP = _table(RAMP_WORDS)
-_REL = _table(RELATIVE_WORDS)
-_RET = _table(RETURN_WORDS)
+def _compile(table):
+    """One alternation per table, longest phrase first, matched on word boundaries."""
+    alts = [re.escape(k) + (r"(?![a-z])" if k[-1].isalnum() else "") for k, _ in table]
+    return re.compile(r"(?<![a-z])(?:" + "|".join(f"({a})" for a in alts) + ")"), table
 
 
-def _find(text: str, table) -> tuple[str, object] | None:
-    for key, val in table:
-        pat = r"(?<![a-z])" + re.escape(key) + (r"(?![a-z])" if key[-1].isalnum() else "")
-        if re.search(pat, text):
-            return key, val
-    return None
+_ABS = _compile(_table(ABSOLUTE_WORDS))
+_RAMP = _compile(_table(RAMP_WORDS))
+_REL = _compile(_table(RELATIVE_WORDS))
+_RET = _compile(_table(RETURN_WORDS))
 
 
+def _find(text: str, compiled) -> tuple[str, object] | None:
+    rx, table = compiled
+    best = None
+    for mt in rx.finditer(text):
+        k = mt.lastindex - 1
+        if best is None or len(table[k][0]) > len(table[best][0]):
+            best = k
+    return None if best is None else table[best]
+
+
+@lru_cache(maxsize=4096)
 def classify_tempo_text(text: str) -> TempoWord | None:
     """Classify a score text as a tempo word, a tempo change, or ``None``.
 
