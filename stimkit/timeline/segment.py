@@ -113,12 +113,23 @@ def _score_chroma(score, *, hop_s: float):
     return C, float(off.max())
 
 
-def locate_by_chroma(score, audio_path, *, search_span_s=(0.0, None), hop_s: float = 0.25):
-    """``(start_s, end_s, cost)`` of the best match of ``score`` inside the search span."""
+def locate_by_chroma(score, audio_path, *, search_span_s=(0.0, None), hop_s: float = 0.25,
+                     audio_chroma: np.ndarray | None = None):
+    """``(start_s, end_s, cost)`` of the best match of ``score`` inside the search span.
+
+    ``audio_chroma`` may hold the chroma of the whole recording at ``hop_s`` (frame k covering
+    ``[k * hop_s, (k + 1) * hop_s)``), computed once for several pieces.
+    """
     import librosa
 
     lo, hi = search_span_s
-    A, _ = _audio_chroma(audio_path, hop_s=hop_s, start_s=float(lo), end_s=hi)
+    if audio_chroma is None:
+        A, _ = _audio_chroma(audio_path, hop_s=hop_s, start_s=float(lo), end_s=hi)
+    else:
+        k0 = int(round(float(lo) / hop_s))
+        k1 = audio_chroma.shape[1] if hi is None else int(float(hi) / hop_s)
+        A = audio_chroma[:, k0:k1]
+        lo = k0 * hop_s
     S, dur = _score_chroma(score, hop_s=hop_s)
     if A.shape[1] < max(4, S.shape[1] // 2 + 1):
         return float(lo), float(lo), 1.0
@@ -169,6 +180,10 @@ def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: flo
     """
     rough_starts = rough_starts or [None] * len(scores)
     locate = _locator()
+    # built-in matcher: the recording's chroma once for all pieces (coarser for long recordings,
+    # to keep the subsequence-DTW matrix small)
+    hop_s = 0.25 if duration_s <= 1800 else 0.5
+    chroma = None if locate is not None else _audio_chroma(audio_path, hop_s=hop_s, start_s=0.0, end_s=None)[0]
     spans: list[PieceSpan] = []
     floor = 0.0
     for k, (score, name, rough) in enumerate(zip(scores, names, rough_starts)):
@@ -191,7 +206,8 @@ def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: flo
                 raise WorkFailed(f"piece '{name}' was not found in the recording ({exc})") from None
         else:
             method = "chroma subsequence DTW"
-            start, end, cost = locate_by_chroma(score, audio_path, search_span_s=(lo, hi))
+            start, end, cost = locate_by_chroma(score, audio_path, search_span_s=(lo, hi), hop_s=hop_s,
+                                                audio_chroma=chroma)
             if cost > max_cost:
                 raise WorkFailed(f"piece '{name}' was not found in the recording between {lo:.0f} s "
                                  f"and {hi:.0f} s (best match cost {cost:.2f} > {max_cost:.2f}); check "
