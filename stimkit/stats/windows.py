@@ -66,6 +66,7 @@ def event_windows(
     pre_s: float = 5.0,
     post_s: float = 5.0,
     columns: list[str] | None = None,
+    spans: pd.DataFrame | None = None,
 ) -> pd.DataFrame:
     """Pre/post feature means around each event (long format: one row per event x feature).
 
@@ -81,6 +82,11 @@ def event_windows(
         Window lengths before and after the event (default 5 s each, common practice).
     columns : list of str, optional
         Features to use (default every numeric column).
+    spans : DataFrame, optional
+        ``start``, ``end`` of the pieces (s, same clock): the windows of an event inside a piece
+        are cut at that piece's edges, so a window never reaches into the applause or the
+        silence around it (an event at a piece's first note then has no pre window: NaN).
+        Events outside every span keep full windows.
 
     Returns
     -------
@@ -100,10 +106,16 @@ def event_windows(
     meta = {}
     for c in ("trial_type", "piece", "label"):
         meta[c] = events[c].to_numpy(object)[keep] if c in events.columns else np.full(len(keep), None)
+    lo_pre, hi_post = te - pre_s, te + post_s
+    if spans is not None and len(spans):
+        for s0, s1 in zip(spans["start"].to_numpy(np.float64), spans["end"].to_numpy(np.float64)):
+            inside = (te >= s0) & (te <= s1)
+            lo_pre = np.where(inside, np.maximum(lo_pre, s0), lo_pre)
+            hi_post = np.where(inside, np.minimum(hi_post, s1), hi_post)
     for c in cols:
         v = pd.to_numeric(features[c], errors="coerce").to_numpy(np.float64)
-        pre, npre = _window_means(t, v, te - pre_s, te)
-        post, npost = _window_means(t, v, te, te + post_s)
+        pre, npre = _window_means(t, v, lo_pre, te)
+        post, npost = _window_means(t, v, te, hi_post)
         parts.append(pd.DataFrame({
             "event": keep, "trial_type": meta["trial_type"], "piece": meta["piece"],
             "label": meta["label"], "time": te, "feature": c, "pre_mean": pre, "post_mean": post,

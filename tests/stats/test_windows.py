@@ -88,3 +88,16 @@ def test_window_summary_by_kind():
     assert s.loc["section", "mean_difference"] == pytest.approx(1.0)   # each step is 1
     assert s.loc["section", "sd_difference"] == pytest.approx(0.0)
     assert s.loc["key", "mean_difference"] == pytest.approx(0.0) and np.isnan(s.loc["key", "sd_difference"])
+
+
+def test_windows_cut_at_piece_edges():
+    t = (np.arange(600) + 0.5) / 10.0
+    f = pd.DataFrame({"x": np.where((t >= 20.0) & (t < 50.0), 1.0, 9.0)}, index=t)  # 9 = applause
+    ev = pd.DataFrame({"recording": [20.0, 22.0, 48.0], "trial_type": ["piece", "dynamic", "dynamic"]})
+    spans = pd.DataFrame({"start": [20.0], "end": [50.0]})
+    w = event_windows(f, ev, spans=spans).set_index("event")
+    assert np.isnan(w.loc[0, "pre_mean"]) and w.loc[0, "pre_n"] == 0  # nothing before the piece
+    assert w.loc[1, "pre_mean"] == pytest.approx(1.0) and w.loc[1, "pre_n"] == 20  # 2 s x 10 Hz
+    assert w.loc[2, "post_mean"] == pytest.approx(1.0) and w.loc[2, "post_n"] == 20
+    full = event_windows(f, ev).set_index("event")
+    assert full.loc[1, "pre_mean"] == pytest.approx((30 * 9.0 + 20 * 1.0) / 50)  # uncut: applause in
