@@ -72,6 +72,8 @@ from .warp import (
     RATIO_BAD,
     RATIO_GOOD,
     flag_runs,
+    merge_regions,
+    mismatch_regions,
     local_ratio,
     path_to_timemap,
     ratio_to_confidence,
@@ -106,6 +108,8 @@ LONG_FACTOR = 3.0
 #: Mean local-cost ratio a one-axis run needs to be flagged (a held chord matched to a longer hold
 #: runs flat at low cost and is not a cut).
 FLAG_MIN_RATIO = 0.6
+#: Smoothed path-cost ratio above which a stretch of recording counts as not matching.
+MISMATCH_RATIO = 0.8
 FACTORS = (50, 5, 1)
 RADII = (0, 10, 25)
 ONSET_WEIGHT = 1.0
@@ -316,20 +320,27 @@ def align_score(
     local_qn = np.asarray(inv_tempo(S.start_s + ui / rate), dtype=np.float64)
     local = pd.DataFrame({"score_qn": local_qn, "ratio": lr, "confidence": ratio_to_confidence(lr)})
 
-    # flagged regions: one-axis runs with a high local cost
-    regions = []
+    # flagged regions: one-axis runs with a high local cost, and stretches of high cost
+    found = []
     lr_at = dict(zip(ui.tolist(), lr.tolist()))
     for reg in flag_runs(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
                          min_s=FLAG_MIN_S, score_start_s=S.start_s):
-        if reg["score_qn_end"] <= 0 or reg["score_qn_start"] >= score.total_qn:
-            continue  # within the template's silent lead-in or tail
         sel = (path[:, 1] >= round((reg["start"] - A.start_s) * rate)) & \
               (path[:, 1] <= round((reg["end"] - A.start_s) * rate))
         rows = np.unique(path[sel, 0])
         run_cost = float(np.mean([lr_at.get(int(r), 0.0) for r in rows])) if rows.size else 0.0
-        if run_cost < FLAG_MIN_RATIO:
-            continue
-        reg["cost_ratio"] = run_cost
+        if run_cost >= FLAG_MIN_RATIO:
+            reg["cost_ratio"] = run_cost
+            found.append(reg)
+    found += mismatch_regions(path, costs, ref_cost=ref, rate_hz=rate, rec_start_s=A.start_s,
+                              score_start_s=S.start_s, tempo_map=score.tempo_map,
+                              min_ratio=MISMATCH_RATIO, min_s=FLAG_MIN_S)
+    regions = []
+    for reg in merge_regions(found):
+        if reg["score_qn_end"] <= 0 or reg["score_qn_start"] >= score.total_qn:
+            continue  # within the template's silent lead-in or tail
+        for key in ("start", "end", "duration_s", "cost_ratio"):
+            reg[key] = float(reg[key])
         regions.append(reg)
         warnings.append(reg["reason"])
 
@@ -372,6 +383,8 @@ def align_score(
         "key_refuse_ratio": KEY_REFUSE_RATIO,
         "confidence_ratio_good_bad": [RATIO_GOOD, RATIO_BAD],
         "flag_min_s": FLAG_MIN_S,
+        "flag_min_ratio": FLAG_MIN_RATIO,
+        "mismatch_ratio": MISMATCH_RATIO,
         "tempo_window_beats": TEMPO_WINDOW_BEATS,
         "score_template": "from the notes (harmonic model), lead-in 1 s",
     }

@@ -43,6 +43,8 @@ __all__ = [
     "tempo_curve",
     "local_ratio",
     "flag_runs",
+    "mismatch_regions",
+    "merge_regions",
 ]
 
 #: Raffel--Ellis ratio treated as a certain match (confidence 1) and as no match (confidence 0);
@@ -192,4 +194,91 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
                             "score_qn_end": qb, "duration_s": dur, "reason": reason})
             k = max(e, k + 1)
     out.sort(key=lambda r: (r["start"], r["kind"]))
+    return out
+
+
+def mismatch_regions(path, costs, *, ref_cost: float, rate_hz: float, rec_start_s: float,
+                     score_start_s: float, tempo_map: TimeMap, min_ratio: float = 0.8,
+                     min_s: float = 2.0, window_s: float = 2.0):
+    """Stretches of recording where the path cost stays high, classified by the path's slope.
+
+    The path cost per recording frame (mean over the path cells of that frame) is smoothed over
+    ``window_s`` and divided by ``ref_cost``; runs above ``min_ratio`` longer than ``min_s``
+    are kept. A run is an ``insertion`` when it covers more than 1.5 times (and ``min_s`` more
+    than) the recording time its score span takes at the piece's mean tempo, a ``cut`` in the
+    opposite case, else a
+    ``mismatch`` (played differently, or not matched reliably). Same dict keys as
+    :func:`flag_runs`.
+    """
+    p = np.asarray(path, dtype=np.int64)
+    j = p[:, 1]
+    uj, start = np.unique(j, return_index=True)
+    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(j)))
+    n = max(int(round(window_s * rate_hz)), 1)
+    if n > 1 and len(c) > 1:
+        w = np.hanning(n + 2)[1:-1]
+        w /= w.sum()
+        pad = len(w) // 2
+        c = np.convolve(np.pad(c, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
+    r = c / max(ref_cost, 1e-9)
+    high = r > min_ratio
+    inv = tempo_map.inverse()
+    nominal_span = (p[-1, 0] - p[0, 0]) / rate_hz
+    slope = max((p[-1, 1] - p[0, 1]) / rate_hz, 1e-9) / max(nominal_span, 1e-9)  # rec s per nominal s
+    out = []
+    k = 0
+    while k < len(high):
+        if not high[k]:
+            k += 1
+            continue
+        e = k
+        while e + 1 < len(high) and high[e + 1]:
+            e += 1
+        ja, jb = uj[k], uj[e]
+        if (jb - ja) / rate_hz > min_s:
+            rows = p[(j >= ja) & (j <= jb), 0]
+            ia, ib = int(rows.min()), int(rows.max())
+            rec_len = (jb - ja) / rate_hz
+            exp_len = slope * (ib - ia) / rate_hz     # recording time the score span should take
+            ra, rb = rec_start_s + ja / rate_hz, rec_start_s + jb / rate_hz
+            qa = float(inv(score_start_s + ia / rate_hz))
+            qb = float(inv(score_start_s + ib / rate_hz))
+            if rec_len > 1.5 * exp_len and rec_len - exp_len > min_s:
+                kind, dur = "insertion", rec_len - exp_len
+                reason = (f"{rec_len:.1f} s of recording ({ra:.2f}-{rb:.2f} s) match the score poorly and "
+                          f"take {rec_len / max(exp_len, 1e-9):.1f} times the expected time: an inserted "
+                          "passage or an interruption")
+            elif exp_len > 1.5 * rec_len and exp_len - rec_len > min_s:
+                kind, dur = "cut", exp_len - rec_len
+                reason = (f"score_qn {qa:.2f}-{qb:.2f} is squeezed into {rec_len:.1f} s of recording near "
+                          f"{ra:.2f} s: a cut, or a repeat not taken")
+            else:
+                kind, dur = "mismatch", rec_len
+                reason = (f"{rec_len:.1f} s of recording ({ra:.2f}-{rb:.2f} s, score_qn {qa:.2f}-{qb:.2f}) "
+                          "match the score poorly")
+            out.append({"kind": kind, "start": ra, "end": rb, "score_qn_start": qa, "score_qn_end": qb,
+                        "duration_s": float(dur), "reason": reason, "cost_ratio": float(r[k:e + 1].mean())})
+        k = e + 1
+    return out
+
+
+def merge_regions(regions, *, gap_s: float = 1.0):
+    """Merge regions that overlap or lie within ``gap_s`` in recording time; the longer one's
+    kind and reason win. Returns a new sorted list."""
+    regs = sorted((dict(r) for r in regions), key=lambda r: (r["start"], r["end"]))
+    out = []
+    for r in regs:
+        if out and r["start"] <= out[-1]["end"] + gap_s and (
+                r["kind"] == out[-1]["kind"] or "mismatch" in (r["kind"], out[-1]["kind"])
+                or r["start"] <= out[-1]["end"]):
+            o = out[-1]
+            keep = o if (o["end"] - o["start"]) >= (r["end"] - r["start"]) else r
+            merged = dict(keep)
+            merged["start"] = min(o["start"], r["start"])
+            merged["end"] = max(o["end"], r["end"])
+            merged["score_qn_start"] = min(o["score_qn_start"], r["score_qn_start"])
+            merged["score_qn_end"] = max(o["score_qn_end"], r["score_qn_end"])
+            out[-1] = merged
+        else:
+            out.append(r)
     return out

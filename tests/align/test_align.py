@@ -1,0 +1,230 @@
+"""Alignment API: DTW core against librosa, anchors, refusals, flagged cuts, bad input, outputs.
+
+Recordings are rendered by the project's renderer from music21 corpus pieces used in place.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+import soundfile as sf
+
+from _render import SR, render
+from stimkit.errors import InputError, WorkFailed
+
+
+@pytest.fixture(scope="module")
+def scores():
+    import music21
+
+    from stimkit.score.parse import load_score
+
+    return {k: load_score(music21.corpus.getWork(w)) for k, w in
+            [("chorale", "bach/bwv66.6"), ("sonata", "mozart/k545/movement1_exposition.mxl"),
+             ("prayer", "beach/prayer_of_a_tired_child.musicxml")]}
+
+
+@pytest.fixture(scope="module")
+def recordings(scores, tmp_path_factory):
+    d = tmp_path_factory.mktemp("align_api")
+    out = {}
+    for k, seed in (("chorale", 3), ("sonata", 4), ("prayer", 31)):
+        perf, y = render(scores[k], d / f"{k}.wav", seed=seed, timbre="piano")
+        out[k] = (d / f"{k}.wav", perf, y)
+    out["dir"] = d
+    return out
+
+
+@pytest.fixture(scope="module")
+def chorale_result(scores, recordings):
+    from stimkit.align.run import align_score
+
+    return align_score(scores["chorale"], recordings["chorale"][0])
+
+
+# -- DTW core ---------------------------------------------------------------------------------
+
+def test_full_band_dtw_matches_librosa_cost():
+    """Closed-end DTW over the whole matrix equals librosa.sequence.dtw with the same steps/weights."""
+    import librosa
+
+    from stimkit.align.dtw import StepWeights, banded_dtw, full_band
+
+    rng = np.random.default_rng(0)
+    a = rng.random((60, 12))
+    b = rng.random((75, 12))
+    a /= np.linalg.norm(a, axis=1, keepdims=True)
+    b /= np.linalg.norm(b, axis=1, keepdims=True)
+    w = StepWeights()
+    lo, hi = full_band(60, 75)
+    path, cost = banded_dtw(a, b, lo, hi, weights=w, open_start=False, open_end=False)
+    C = 1.0 - a @ b.T
+    D, wp = librosa.sequence.dtw(C=C, step_sizes_sigma=np.array([[1, 1], [1, 0], [0, 1]]),
+                                 weights_add=np.zeros(3), weights_mul=np.array([w.diag, w.score, w.rec]))
+    assert cost == pytest.approx(D[-1, -1], rel=1e-9)   # librosa is the reference DTW
+    assert tuple(path[0]) == (0, 0) and tuple(path[-1]) == (59, 74)
+
+
+def test_multiscale_recovers_synthetic_warp_with_small_band():
+    """A warped, padded copy of a chroma sequence is recovered; band cells stay far below N*M."""
+    from stimkit.align.dtw import multiscale_dtw
+
+    rng = np.random.default_rng(1)
+    n = 6000
+    seg = np.repeat(rng.random((n // 25 + 1, 12)) ** 4, 25, axis=0)[:n]
+    s = seg / np.linalg.norm(seg, axis=1, keepdims=True)
+    warp = lambda t: 300 + 1.15 * t + 60 * np.sin(t / 700)  # noqa: E731
+    m = int(warp(n)) + 300
+    src = np.interp(np.arange(m), warp(np.arange(n)), np.arange(n), left=-1, right=-1)
+    r = np.where(src[:, None] >= 0, s[np.clip(np.round(src).astype(int), 0, n - 1)], 1 / np.sqrt(12))
+    r = r + 0.03 * rng.random(r.shape)
+    r /= np.linalg.norm(r, axis=1, keepdims=True)
+    res = multiscale_dtw(s, r, onset_weight=0.0)
+    p = res["path"]
+    err = np.abs(p[:, 1] - warp(p[:, 0]))
+    inner = (p[:, 0] > 100) & (p[:, 0] < n - 100)
+    assert np.median(err[inner]) <= 2.0            # frames; the warp is known by construction
+    assert res["band_cells"] < n * m / 20          # memory bounded by the band, not N*M
+    assert np.all(np.diff(p[:, 0]) >= 0) and np.all(np.diff(p[:, 1]) >= 0)
+
+
+# -- anchors ----------------------------------------------------------------------------------
+
+def test_parse_anchor_syntax(scores):
+    from stimkit.align.run import parse_anchor
+
+    assert parse_anchor("3.2=12.5") == (3, 2.0, 12.5)
+    assert parse_anchor("3=12") == (3, 1.0, 12.0)
+    assert parse_anchor("3.2@2=12.5") == (3, 2.0, 12.5, 2)
+    for bad in ("3.2", "x=1", "3.2=abc", ""):
+        with pytest.raises(InputError):
+            parse_anchor(bad)
+    with pytest.raises(InputError):
+        parse_anchor("999=10", scores["chorale"])  # bar not in the score
+
+
+def test_anchor_moves_the_path(scores, recordings, chorale_result):
+    from stimkit.align.run import align_score
+
+    score = scores["chorale"]
+    qn = score.qn_at(5, 1.0)
+    free = float(chorale_result.timemap(qn))
+    pinned = free + 0.8
+    res = align_score(score, recordings["chorale"][0], anchors=[f"5.1={pinned:.3f}"])
+    # the path passes through the anchor (within one 49 Hz frame, the path resolution)
+    assert float(res.timemap(qn)) == pytest.approx(pinned, abs=1.5 / 49.2)
+    assert res.settings["anchors"][0]["recording"] == pytest.approx(pinned, abs=1e-3)
+
+
+def test_anchors_out_of_order_are_refused(scores, recordings):
+    from stimkit.align.run import align_score
+
+    with pytest.raises(InputError):
+        align_score(scores["chorale"], recordings["chorale"][0], anchors=["5=20", "6=10"])
+
+
+# -- refusals and flags -----------------------------------------------------------------------
+
+def test_wrong_piece_is_refused(scores, recordings):
+    from stimkit.align.run import align_score
+
+    with pytest.raises(WorkFailed):
+        align_score(scores["chorale"], recordings["sonata"][0])
+    with pytest.raises(WorkFailed):
+        align_score(scores["sonata"], recordings["chorale"][0])
+    forced = align_score(scores["sonata"], recordings["chorale"][0], force=True)
+    assert any("different piece" in w for w in forced.warnings)
+    assert forced.confidence["overall"] < 0.5
+
+
+def test_right_piece_is_confident(chorale_result):
+    c = chorale_result.confidence
+    assert c["overall"] > 0.5 and c["key_ratio"] < 0.8 and c["best_key_shift"] == 0
+
+
+def test_cut_is_flagged_at_its_place(scores, recordings, tmp_path):
+    from stimkit.align.run import align_score
+
+    wav, perf, y = recordings["prayer"]
+    c0 = 30.0
+    cut = np.concatenate([y[: int(c0 * SR)], y[int((c0 + 20) * SR):]])
+    sf.write(tmp_path / "cut.wav", cut, SR)
+    res = align_score(scores["prayer"], tmp_path / "cut.wav")
+    cuts = [r for r in res.regions if r["kind"] == "cut"]
+    assert cuts, res.regions
+    assert any(abs(r["start"] - c0) <= 3.0 or abs(r["end"] - c0) <= 3.0 for r in cuts)  # task: ± 3 s
+    assert not [r for r in align_score(scores["prayer"], wav).regions if r["kind"] == "cut"]
+
+
+# -- bad input --------------------------------------------------------------------------------
+
+def test_score_without_notes(scores, recordings):
+    from stimkit.align.run import align_score
+
+    s = scores["chorale"]
+    empty = type(s)(name="empty", path=s.path, notes=s.notes.iloc[:0], measures=s.measures,
+                    boundaries=s.boundaries, tempo_map=s.tempo_map)
+    with pytest.raises(InputError):
+        align_score(empty, recordings["chorale"][0])
+
+
+def test_short_and_silent_audio(scores, tmp_path):
+    from stimkit.align.run import align_score
+
+    sf.write(tmp_path / "short.wav", np.full(int(0.5 * SR), 0.1, np.float32), SR)
+    with pytest.raises(InputError, match="at least"):
+        align_score(scores["chorale"], tmp_path / "short.wav")
+    sf.write(tmp_path / "silent.wav", np.zeros(5 * SR, np.float32), SR)
+    with pytest.raises(InputError, match="silent"):
+        align_score(scores["chorale"], tmp_path / "silent.wav")
+
+
+def test_recording_ten_times_longer_is_searched(scores, recordings, tmp_path):
+    """Stated behaviour: the piece is searched for inside a much longer recording, with a warning."""
+    from stimkit.align.run import align_score
+
+    score = scores["chorale"]
+    _, perf, y = recordings["chorale"]
+    rng = np.random.default_rng(2)
+    n_total = int(10 * score.nominal_duration_s * SR)
+    pre = int(40 * SR)
+    long = (0.003 * rng.standard_normal(n_total)).astype(np.float32)
+    long[pre:pre + len(y)] += y
+    sf.write(tmp_path / "long.wav", long, SR)
+    res = align_score(score, tmp_path / "long.wav")
+    assert any("searched" in w for w in res.warnings)
+    first = perf.notes["onset_s"].min() + 40.0
+    assert float(res.timemap(0.0)) == pytest.approx(first, abs=0.1)
+
+
+# -- outputs ----------------------------------------------------------------------------------
+
+def test_write_alignment_deterministic_and_atomic(chorale_result, tmp_path):
+    from stimkit.align.run import NOTE_TABLE_COLUMNS, write_alignment
+
+    a = write_alignment(chorale_result, out_dir=tmp_path / "a")
+    b = write_alignment(chorale_result, out_dir=tmp_path / "b")
+    assert [p.name for p in a] == ["chorale.alignment.tsv", "chorale.alignment.json"]
+    for pa, pb in zip(a, b):
+        assert pa.read_bytes() == pb.read_bytes()
+    t = pd.read_csv(a[0], sep="\t")
+    assert list(t.columns) == NOTE_TABLE_COLUMNS
+    assert np.all(np.diff(t["recording"]) > 0) and np.all(np.diff(t["score_qn"]) > 0)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(InputError):
+        write_alignment(chorale_result, out_dir=tmp_path / "file")
+
+
+def test_tables_and_tempo(chorale_result, scores):
+    from stimkit.align.run import confidence_at
+
+    r = chorale_result
+    assert len(r.notes) == r.score.notes["score_qn"].nunique()
+    assert len(r.beats) == len(scores["chorale"].beat_grid())
+    assert np.all(np.diff(r.beats["recording"]) > 0)
+    c = confidence_at(r, r.notes["score_qn"])
+    assert np.all((c >= 0) & (c <= 1))
+    # the renderer's drift is bounded by ±25 % (its default) plus ritardandi: tempo stays near nominal
+    nominal_qpm = 60.0 / np.diff(scores["chorale"].tempo_map([0.0, 1.0]))[0]
+    assert 0.4 * nominal_qpm < np.median(r.tempo["quarter_bpm"]) < 1.6 * nominal_qpm
