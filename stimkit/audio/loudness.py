@@ -61,7 +61,7 @@ ABSOLUTE_GATE_LUFS = -70.0
 RELATIVE_GATE_LU = -10.0
 LRA_RELATIVE_GATE_LU = -20.0
 LRA_HOP_S = 0.1
-CLIP_LEVEL = 1.0 - 2.0 ** -15  # a sample this close to full scale counts as clipped
+CLIP_LEVEL = 1.0 - 2.0 ** -15  # a sample frame with any channel this close to full scale counts as clipped
 
 # analog prototype of the K-weighting filter (reproduces BS.1770 Tables 1-2 at 48 kHz)
 _SHELF_F0_HZ = 1681.974450955533
@@ -142,16 +142,18 @@ class EnergyGrid:
         ks = np.arange(self._k, k_last + 1)
         ends = self._bound(ks + 1)
         ks, ends = ks[ends <= s1], ends[ends <= s1]
-        c = np.concatenate([[0.0], np.cumsum(v)])
         if ks.size:
-            starts = np.maximum(self._bound(ks), s0)
-            sums = c[ends - s0] - c[starts - s0]
+            starts = np.maximum(self._bound(ks), s0) - s0
+            sums = np.add.reduceat(v, starts)[: ks.size] if starts[0] < m else np.zeros(ks.size)
+            # reduceat gives v[starts[i]:starts[i+1]]; the last closed sub-block ends at ends[-1]
+            last_end = int(ends[-1]) - s0
+            sums[-1] -= v[last_end:].sum() if last_end < m else 0.0
             sums[0] += self._carry
             self._chunks.append(sums)
             self._k = int(ks[-1]) + 1
-            self._carry = float(c[-1] - c[ends[-1] - s0])
+            self._carry = float(v[last_end:].sum())
         else:
-            self._carry += float(c[-1])
+            self._carry += float(v.sum())
         self.n = s1
 
     def finish(self) -> tuple[np.ndarray, np.ndarray]:
@@ -277,10 +279,10 @@ class LoudnessMeter:
         y, self._zi = signal.sosfilt(self._sos, x, axis=0, zi=self._zi)
         self.grid.push((y * y) @ self.weights)
         a = np.abs(x)
-        self.clipped_samples += int(np.count_nonzero(a >= CLIP_LEVEL))
         amax = a[:, 0].copy()
         for c in range(1, a.shape[1]):
             np.maximum(amax, a[:, c], out=amax)
+        self.clipped_samples += int(np.count_nonzero(amax >= CLIP_LEVEL))
         self.sample_peak = max(self.sample_peak, float(amax.max()))
         if self._tp:
             self._true_peak_block(x, amax)
@@ -293,18 +295,26 @@ class LoudnessMeter:
         at most ``L1 * max|x[i-T+1..i]|`` (``L1`` the largest per-phase tap sum), so only the
         positions whose bound exceeds the running peak are computed.
         """
-        from scipy.ndimage import maximum_filter1d
-
         T = self._taps_phase
         seg = np.concatenate([self._hist, x], axis=0)  # T-1 samples of history first
         absx = np.concatenate([self._hist_abs, amax])
         self._hist = seg[-(T - 1):].copy()
         self._hist_abs = absx[-(T - 1):].copy()
         self.true_peak = max(self.true_peak, float(amax.max()))
-        # centred[k] is the max over [k - T//2, k - T//2 + T - 1]; we need [i - T + 1, i]
-        centred = maximum_filter1d(absx, size=T, mode="constant", cval=0.0)
-        wmax = centred[T // 2: T // 2 + absx.shape[0] - T + 1]  # for i = T-1 .. end
-        cand = np.flatnonzero(wmax > self.true_peak / self._l1) + (T - 1)
+        # bound per chunk of 64 outputs positions i: max |x| over the chunk and the one before
+        # (the T - 1 = 11 samples of history of any i lie there)
+        C = 64
+        n_in = absx.shape[0]
+        nch = -(-n_in // C)
+        padded = np.zeros(nch * C)
+        padded[:n_in] = absx
+        cmax = padded.reshape(nch, C).max(axis=1)
+        bound = np.maximum(cmax, np.concatenate([[0.0], cmax[:-1]]))
+        hot = np.flatnonzero(bound > self.true_peak / self._l1)
+        if hot.size == 0:
+            return
+        cand = (hot[:, None] * C + np.arange(C)[None, :]).ravel()
+        cand = cand[(cand >= T - 1) & (cand < n_in)]
         if cand.size == 0:
             return
         hp = self._hphase  # (T, up): hp[j, p] = h[up*j + p]

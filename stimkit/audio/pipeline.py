@@ -25,7 +25,8 @@ Conventions
   above ~43 Hz) the value is linearly interpolated at the frame centre. Onset rate, tempo and key
   are windowed around the frame centre (windows stated in the column descriptions). With rates
   above 4 Hz, tempo is evaluated at 4 Hz and each frame takes the nearest value.
-- Memory is bounded by the block length (10 s) plus a few floats per STFT frame and per 5 ms.
+- Memory is bounded by the block length (10 s, two blocks decoded ahead in a reader thread) plus
+  a few floats per STFT frame and per 5 ms. The loudness path runs in a second thread.
 
 References
 ----------
@@ -131,6 +132,9 @@ class _Analyser:
         self.freqs = spectral.frequencies()
         self.onset = rhythm.OnsetStrengthStream(sr=spectral.ANALYSIS_SR, n_fft=spectral.N_FFT)
         self.chroma = tonal.ChromaStream(sr=spectral.ANALYSIS_SR, n_fft=spectral.N_FFT)
+        from concurrent.futures import ThreadPoolExecutor
+
+        self._pool = ThreadPoolExecutor(max_workers=1)
         self._prev_mag = None
         self._env, self._desc, self._chroma, self._rough = [], [], [], []
 
@@ -147,17 +151,62 @@ class _Analyser:
         x = np.asarray(block, dtype=np.float64)
         if x.ndim == 1:
             x = x[:, None]
-        self.loud.push(x)
-        mono = x @ np.full(x.shape[1], 1.0 / x.shape[1]) if x.shape[1] > 1 else x[:, 0]
-        self.rms.push(mono * mono)
-        self._spectra(self.stft.push(self.res.push(mono)))
+        # the native-rate loudness path runs in a worker thread while this one does the spectra
+        fut = self._pool.submit(self.loud.push, x)
+        try:
+            mono = x @ np.full(x.shape[1], 1.0 / x.shape[1]) if x.shape[1] > 1 else x[:, 0]
+            self.rms.push(mono * mono)
+            self._spectra(self.stft.push(self.res.push(mono)))
+        finally:
+            fut.result()
 
     def finish(self):
+        self._pool.shutdown(wait=True)
         self._spectra(self.stft.push(self.res.push(np.zeros(0), last=True)))
         self._spectra(self.stft.finish())
         cat = lambda xs, shape: np.concatenate(xs, axis=0) if xs else np.zeros(shape, np.float32)
         return (cat(self._env, (0,)), cat(self._desc, (0, 5)), cat(self._chroma, (0, 12)),
                 cat(self._rough, (0,)))
+
+
+def _prefetch(iterable, depth: int = 2):
+    """Iterate ``iterable`` in a background thread, at most ``depth`` items ahead (decoding
+    overlaps analysis; memory stays bounded). Errors in the producer are re-raised here."""
+    import queue
+    import threading
+
+    q: queue.Queue = queue.Queue(maxsize=depth)
+    stop = threading.Event()
+    end = object()
+
+    def produce():
+        try:
+            for item in iterable:
+                while not stop.is_set():
+                    try:
+                        q.put(item, timeout=0.1)
+                        break
+                    except queue.Full:
+                        continue
+                if stop.is_set():
+                    return
+            q.put(end)
+        except BaseException as exc:  # handed to the consumer
+            q.put(exc)
+
+    th = threading.Thread(target=produce, daemon=True)
+    th.start()
+    try:
+        while True:
+            item = q.get()
+            if item is end:
+                return
+            if isinstance(item, BaseException):
+                raise item
+            yield item
+    finally:
+        stop.set()
+        th.join(timeout=5)
 
 
 def _aggregate(values: np.ndarray, *, times_s: np.ndarray, rate_hz: float, n_frames: int) -> np.ndarray:
@@ -314,8 +363,8 @@ def compute_features(path, *, rate_hz: float = 1.0, progress: Callable | None = 
                          path=info.path)
     counts: dict = {}
     n_samples = int(round((stop - start_s) * info.sample_rate_hz))
-    blocks = (b for _, b in iter_blocks(info.path, block_s=block_s, start_s=start_s, end_s=end_s,
-                                        counts=counts))
+    blocks = _prefetch(b for _, b in iter_blocks(info.path, block_s=block_s, start_s=start_s,
+                                                 end_s=end_s, counts=counts))
     frame, summary = _run(blocks, sample_rate_hz=info.sample_rate_hz, channels=info.channels,
                           n_samples=n_samples, rate_hz=rate, progress=progress, counts=counts,
                           start_s=start_s)

@@ -2,7 +2,8 @@
 
 What it computes
 ----------------
-:func:`silence_segments` takes a level curve (loudness in LUFS, or RMS in dBFS) sampled at
+:func:`file_silences` streams a recording through the BS.1770 meter (no other features; fast) and
+returns its silent segments; :func:`silence_segments` takes a level curve (loudness in LUFS, or RMS in dBFS) sampled at
 regular window centres and returns ``(start_s, end_s)`` segments in which every window is below
 ``threshold_db`` for at least ``min_length_s``. :func:`silence_mask` marks given times that fall
 inside such segments.
@@ -27,7 +28,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["silence_segments", "silence_mask", "SILENCE_THRESHOLD_DB", "SILENCE_MIN_LENGTH_S",
+__all__ = ["silence_segments", "silence_mask", "file_silences", "SILENCE_THRESHOLD_DB", "SILENCE_MIN_LENGTH_S",
            "SILENCE_WINDOW_S"]
 
 SILENCE_THRESHOLD_DB = -50.0
@@ -64,3 +65,26 @@ def silence_mask(segments, times_s) -> np.ndarray:
     for s, e in segments:
         m[(t >= s) & (t < e)] = 1
     return m
+
+
+def file_silences(path, *, threshold_lufs: float = SILENCE_THRESHOLD_DB,
+                  min_length_s: float = SILENCE_MIN_LENGTH_S, window_s: float = SILENCE_WINDOW_S,
+                  block_s: float = 10.0) -> list[tuple[float, float]]:
+    """Silent segments of a recording file: K-weighted loudness (BS.1770 channel weights) over
+    ``window_s`` windows on the 5 ms grid below ``threshold_lufs`` for at least ``min_length_s``.
+
+    Streams the file (memory does not grow with length); times are ``recording`` seconds.
+    Raises :class:`stimkit.errors.InputError` for a file that is not a readable recording.
+    """
+    from .loudness import GRID_STEP_S, LoudnessMeter
+    from .read import audio_info, iter_blocks
+
+    info = audio_info(path)
+    meter = LoudnessMeter(sample_rate_hz=info.sample_rate_hz, channels=info.channels, true_peak=False)
+    for _, block in iter_blocks(info.path, block_s=block_s):
+        meter.push(block)
+    duration = meter.duration_s
+    centres = np.arange(int(np.floor(duration / GRID_STEP_S)) + 1) * GRID_STEP_S
+    level = meter.level(centres, window_s=window_s)
+    return silence_segments(level, step_s=GRID_STEP_S, window_s=window_s, threshold_db=threshold_lufs,
+                            min_length_s=min_length_s, duration_s=duration)

@@ -92,18 +92,21 @@ def spectral_descriptors(power: np.ndarray, *, prev_mag: np.ndarray | None, freq
     Silent frames give centroid/bandwidth/roll-off 0 and flatness 1 is replaced by 0.
     """
     mag = np.sqrt(power, dtype=np.float32)
-    total = mag.sum(axis=1)
+    f32 = freqs.astype(np.float32)
+    total = mag.sum(axis=1, dtype=np.float64)
     safe = np.where(total > 0, total, 1.0)
-    centroid = (mag @ freqs) / safe
-    dev = (freqs[None, :] - centroid[:, None]) ** 2
-    bandwidth = np.sqrt(np.einsum("ij,ij->i", mag, dev) / safe)
+    m1 = (mag @ f32).astype(np.float64)
+    m2 = (mag @ (f32 * f32)).astype(np.float64)
+    centroid = m1 / safe
+    # sum m (f - c)^2 = sum m f^2 - 2 c sum m f + c^2 sum m
+    var = np.maximum(m2 / safe - centroid * centroid, 0.0)
+    bandwidth = np.sqrt(var)
     cum = np.cumsum(mag, axis=1)
-    thresh = roll_percent * total
+    thresh = (roll_percent * total).astype(np.float32)
     ridx = np.argmax(cum >= thresh[:, None], axis=1)
     rolloff = freqs[ridx]
-    amin = 1e-10
-    p = np.maximum(power.astype(np.float64), amin)
-    flatness = np.exp(np.mean(np.log(p), axis=1)) / np.mean(p, axis=1)
+    p = np.maximum(power, np.float32(1e-10))
+    flatness = np.exp(np.mean(np.log(p), axis=1, dtype=np.float64)) / np.mean(p, axis=1, dtype=np.float64)
     silent = total <= 0
     if prev_mag is None:
         prev = np.concatenate([mag[:1], mag[:-1]], axis=0)

@@ -12,7 +12,7 @@ What it computes
   over time with a Gaussian (sigma ``HCDF_SIGMA_FRAMES``), and the Euclidean distance between the
   centroids of the frames before and after each frame.
 - :func:`roughness` -- sensory roughness per frame after Sethares (1993): the ``N_PEAKS``
-  strongest spectral peaks (magnitudes scaled so a full-scale sine is 1), summed over all pairs
+  strongest spectral peaks below 5 kHz (where nearly all of the roughness of musical sounds lies) (magnitudes scaled so a full-scale sine is 1), summed over all pairs
   of ``a_i * a_j * (exp(-3.5 s df) - exp(-5.75 s df))`` with
   ``s = 0.24 / (0.0207 f_min + 18.96)`` (Plomp & Levelt's curve as parameterised by Sethares).
 
@@ -46,6 +46,7 @@ KEY_NAMES = [f"{p} major" for p in PITCH_CLASSES] + [f"{p} minor" for p in PITCH
 KEY_WINDOW_S = 10.0
 HCDF_SIGMA_FRAMES = 8.0
 N_PEAKS = 20
+ROUGHNESS_MAX_HZ = 5000.0
 
 
 class ChromaStream:
@@ -117,7 +118,9 @@ def roughness(power: np.ndarray, *, freqs: np.ndarray, n_peaks: int = N_PEAKS) -
     """Sethares (1993) roughness per frame from the strongest spectral peaks of ``power``."""
     if power.shape[0] == 0:
         return np.zeros(0)
-    mag = np.sqrt(power, dtype=np.float32)
+    nb = int(np.searchsorted(freqs, ROUGHNESS_MAX_HZ)) + 2
+    mag = np.sqrt(power[:, :nb], dtype=np.float32)
+    freqs = freqs[:nb]
     is_peak = np.zeros_like(mag, dtype=bool)
     is_peak[:, 1:-1] = (mag[:, 1:-1] > mag[:, :-2]) & (mag[:, 1:-1] >= mag[:, 2:])
     pk = np.where(is_peak, mag, 0.0)

@@ -6,7 +6,7 @@ import pytest
 
 from stimkit.audio import rhythm
 from stimkit.audio.pipeline import _Analyser, features_from_array
-from stimkit.audio.silence import silence_segments
+from stimkit.audio.silence import file_silences, silence_segments
 
 from audio_signals import SR, cadence, clicks, drum_pattern, note_sequence
 
@@ -81,7 +81,7 @@ def test_key_agrees_with_music21_krumhansl():
     assert fr.iloc[len(fr) // 2]["key"] == ref == "D major"
 
 
-def test_silence_segments_within_50ms():
+def test_silence_segments_within_50ms(tmp_path):
     # pauses of known position and length between tone bursts; requirement: edges within 50 ms
     sr = SR
     t = np.arange(int(12 * sr)) / sr
@@ -96,6 +96,13 @@ def test_silence_segments_within_50ms():
     segs = res.summary["silence_segments"]
     assert len(segs) == len(gaps)
     for (a, b), (ea, eb) in zip(gaps, segs):
+        assert abs(ea - a) <= 0.05 and abs(eb - b) <= 0.05
+    # the file-level helper (loudness only, streaming) finds the same segments
+    import soundfile as sf
+
+    p = tmp_path / "pauses.wav"
+    sf.write(p, np.stack([y, y], axis=1), sr, subtype="FLOAT")
+    for (a, b), (ea, eb) in zip(gaps, file_silences(p, block_s=0.7)):
         assert abs(ea - a) <= 0.05 and abs(eb - b) <= 0.05
     fr = res.frame
     assert fr.loc[(fr.index > 2.1) & (fr.index < 3.4), "silent"].eq(1).all()
