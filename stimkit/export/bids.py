@@ -292,24 +292,28 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
         groups.setdefault(j, []).append(i)
     if all(len(g) == 1 for g in groups.values()):
         return events
-    rows = []
-    for j in sorted(groups):
+    firsts = sorted(groups)
+    out = events.iloc[firsts].copy()
+    out.index = firsts
+    for c in ("label", "part", "source", "confidence"):
+        if c in out.columns:
+            out[c] = out[c].astype(object)
+    for j in firsts:
         idx = groups[j]
-        row = events.iloc[idx[0]].copy()
-        if len(idx) > 1:
-            sub = events.iloc[idx]
-            for c in ("label", "part", "source"):
-                if c in sub.columns:
-                    vals = [str(v) for v in sub[c] if not pd.isna(v)]
-                    row[c] = " + ".join(dict.fromkeys(vals)) if vals else None
-            if "duration" in sub.columns:
-                d = sub["duration"].to_numpy(np.float64)
-                row["duration"] = np.nanmax(d) if np.isfinite(d).any() else np.nan
-            if "confidence" in sub.columns:
-                cf = pd.to_numeric(sub["confidence"], errors="coerce").to_numpy(np.float64)
-                row["confidence"] = np.nanmin(cf) if np.isfinite(cf).any() else np.nan
-        rows.append(row)
-    return pd.DataFrame(rows, columns=events.columns).reset_index(drop=True)
+        if len(idx) == 1:
+            continue
+        sub = events.iloc[idx]
+        for c in ("label", "part", "source"):
+            if c in sub.columns:
+                vals = [str(v) for v in sub[c] if not pd.isna(v)]
+                out.at[j, c] = " + ".join(dict.fromkeys(vals)) if vals else None
+        if "duration" in sub.columns:
+            d = sub["duration"].to_numpy(np.float64)
+            out.at[j, "duration"] = np.nanmax(d) if np.isfinite(d).any() else np.nan
+        if "confidence" in sub.columns:
+            cf = pd.to_numeric(sub["confidence"], errors="coerce").to_numpy(np.float64)
+            out.at[j, "confidence"] = float(np.nanmin(cf)) if np.isfinite(cf).any() else np.nan
+    return out.reset_index(drop=True)
 
 
 def _float_formats(df: pd.DataFrame) -> dict[str, str]:
