@@ -62,11 +62,16 @@ def _num(v, fmt="{:g}") -> str:
     return "" if not math.isfinite(f) else fmt.format(f)
 
 
-def change_text(table: pd.DataFrame) -> list[str]:
-    """For each row, a short 'what changes' text using the previous row of the same kind."""
+def change_text(table: pd.DataFrame, *, end_bars=None) -> list[str]:
+    """For each row, a short 'what changes' text using the previous row of the same kind.
+
+    ``end_bars`` (optional, one per row) is the printed bar where a spanning marking ends.
+    """
     prev: dict[str, object] = {}
     out = []
-    for r in table.itertuples(index=False):
+    if end_bars is None:
+        end_bars = [None] * len(table)
+    for r, end_bar in zip(table.itertuples(index=False), end_bars):
         k, lab, val = r.trial_type, str(r.label), r.value
         if k == "dynamic":
             txt = f"{prev.get(k, '?')} \u2192 {lab}" if k in prev else f"starts {lab}"
@@ -83,7 +88,8 @@ def change_text(table: pd.DataFrame) -> list[str]:
             txt = f"{prev.get(k)} \u2192 {lab}" if k in prev else lab
             prev[k] = lab
         elif k == "hairpin":
-            txt = f"{lab} until {_t(r.nominal_end)} (bar {r.measure})" if not math.isnan(r.nominal_end) else lab
+            where = f" (bar {end_bar})" if end_bar is not None else ""
+            txt = f"{lab} until {_t(r.nominal_end)}{where}" if math.isfinite(r.nominal_end) else lab
         elif k in ("pause", "fermata"):
             dur = (r.nominal_end - r.nominal) if math.isfinite(r.nominal_end) else float("nan")
             txt = f"{lab}, {dur:.1f} s" if math.isfinite(dur) else lab
@@ -111,7 +117,8 @@ def cue_sheet_html(*, models, names, tables: dict, programme: pd.DataFrame, gap_
         tab = tables[nm]
         prow = programme.iloc[k]
         parts.append('<section class="piece">')
-        parts.append(f"<h2>{k + 1}. {e(nm)}</h2>")
+        title = f" — {m.title}" if getattr(m, "title", "") else ""
+        parts.append(f"<h2>{k + 1}. {e(nm)}{e(title)}</h2>")
         info = (f"file {m.path.name}; {len(m.measures)} bars performed; nominal {_t(prow['duration'])}"
                 + (f"; starts at {_t(prow['start'])} in the programme" if several else "")
                 + ("" if m.repeats_expanded else "; repeats not expanded"))
@@ -122,7 +129,15 @@ def cue_sheet_html(*, models, names, tables: dict, programme: pd.DataFrame, gap_
                ["kind", "what changes", "part"]
         parts.append("<table><thead><tr>" + "".join(f"<th>{e(h)}</th>" for h in head)
                      + "</tr></thead><tbody>")
-        changes = change_text(tab)
+        endq = tab["end_qn"].to_numpy(dtype=float)
+        ends = [None] * len(tab)
+        fin = [i for i, v in enumerate(endq) if math.isfinite(v)]
+        if fin:
+            # the bar holding the last moment of the span
+            loc = m.locate([max(endq[i] - 1e-6, 0.0) for i in fin])
+            for i, bar_no in zip(fin, loc["measure"].tolist()):
+                ends[i] = int(bar_no)
+        changes = change_text(tab, end_bars=ends)
         for r, ch in zip(tab.itertuples(index=False), changes):
             cells = ['<td class="box">\u2610</td>', f'<td class="num">{int(r.measure)}</td>',
                      f'<td class="num">{_num(r.beat, "{:.2f}").rstrip("0").rstrip(".")}</td>',

@@ -170,12 +170,12 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
         ids = _cluster(np.array([c["qn"] for c in cdf]), GLOBAL_SAME_PLACE_QN)
         for cid in np.unique(ids):
             group = [c for c, g in zip(cdf, ids) if g == cid]
-            numbered = {c["word"].strip().lower() for c in group if c["kind"] == "tempo" and c["prio"] <= 2}
+            numbered = any(c["kind"] == "tempo" and c["prio"] <= 2 for c in group)
             for kind in ("tempo", "relative", "return", "ramp"):
                 gk = [c for c in group if c["kind"] == kind]
-                if kind in ("relative", "return"):
-                    # "Tempo I (q = 84)": the number rules, the word is its label
-                    gk = [c for c in gk if c["word"].strip().lower() not in numbered]
+                if kind in ("relative", "return") and numbered:
+                    # "Tempo I, q = 84" or "più mosso, q = 120": the number rules, the word labels it
+                    gk = []
                 if not gk:
                     continue
                 best = min(gk, key=lambda c: (c["prio"], c["qn"]))
@@ -196,7 +196,9 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
                         model.warnings.append(
                             f"bar {best['measure']}: metronome mark {best['label']} but sound tempo "
                             f"{_fmt_bpm(snd)}; the written mark is used")
-                    word_text = next((w for w in words if w), "")
+                    word_text = ", ".join(dict.fromkeys(
+                        c["word"].strip() for c in group
+                        if c.get("word") and c["kind"] != "ramp" and c["word"].strip()))
                     if best["prio"] < 3 and word_text:
                         e["label"] = f"{word_text} ({best['label']})"
                     e["detail"] = (f"{best['source']}; quarter = {_fmt_bpm(best['bpm'])}"
@@ -263,7 +265,6 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
     vel = np.full(len(pn), float(VELOCITY[DEFAULT_LEVEL]))
     q_all = pn["score_qn"].to_numpy(dtype=float)
     part_all = pn["part_name"].to_numpy()
-    midi_given = None
     for part in np.unique(part_all):
         idx = np.flatnonzero(part_all == part)
         q = q_all[idx]
@@ -307,6 +308,9 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
         acc = pn["accent"].to_numpy()[idx]
         v = v + np.where(acc == 2, 16, np.where(acc == 1, 10, 0))
         vel[idx] = v
+    if getattr(ctx.printed, "is_midi", False) and "vel" in pn:
+        given = pn["vel"].to_numpy(dtype=float)
+        vel = np.where(np.isfinite(given), given, vel)  # a MIDI file's own velocities
     vel = np.clip(np.round(vel), 1, 127).astype(int)
     loc = model.locate(q_all) if len(pn) else pd.DataFrame({"measure": [], "pass": [], "beat": []})
     out = pd.DataFrame({
@@ -319,8 +323,6 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
         "pass": pn["pass_"].to_numpy(dtype=int),
         "beat": loc["beat"].to_numpy(dtype=float),
     })
-    if midi_given is not None:
-        out["velocity"] = midi_given
     out = out.sort_values(["score_qn", "pitch", "part"], kind="mergesort").reset_index(drop=True)
     return out[NOTE_COLUMNS]
 

@@ -53,6 +53,7 @@ class ScoreModel:
     warnings: list[str] = field(default_factory=list)
     repeats_expanded: bool = True
     parts: list[str] = field(default_factory=list)
+    title: str = ""  # the score's own title (metadata), "" when it has none
 
     @property
     def total_qn(self) -> float:

@@ -16,7 +16,8 @@ Conventions
   first ending and its repeat both resolve); grace notes get ``GRACE_QN`` quarter notes; chords
   give one row per pitch; unpitched notes are left out.
 - Velocity: the dynamic in force in the note's part (:data:`stimkit.score.markings.VELOCITY`,
-  default ``mf`` before the first dynamic), ramped through hairpins, raised on accents.
+  default ``mf`` before the first dynamic), ramped through hairpins, raised on accents; a MIDI
+  file's own note velocities are kept. MIDI files carry tempo, meter and key markings only.
 - Safety: XML is parsed with :mod:`defusedxml` (DOCTYPE entity declarations are refused) and the
   checked tree is handed to music21's MusicXML importer, so the file is read once.
 - Known music21 pitfalls handled here (measured on music21 10.5.1): ``<other-dynamics>`` loses its
@@ -171,7 +172,13 @@ class PrintedScore:
 def _part_names(parts) -> list[str]:
     names = []
     for k, p in enumerate(parts):
-        nm = (getattr(p, "partName", None) or "").strip() or str(p.id or f"part {k + 1}")
+        nm = (getattr(p, "partName", None) or "").strip()
+        if not nm:
+            inst = p.getInstrument(returnDefault=False) if hasattr(p, "getInstrument") else None
+            nm = ((getattr(inst, "partName", None) or getattr(inst, "instrumentName", None) or "")
+                  if inst is not None else "").strip()
+        if not nm:
+            nm = p.id if isinstance(p.id, str) and p.id else f"part {k + 1}"
         names.append(nm)
     # PartStaff objects of one instrument share a name: keep it (a part = an instrument);
     # distinct Parts with equal names are told apart by a number
@@ -196,8 +203,12 @@ def _volta_numbers(rb) -> tuple[int, ...]:
     return tuple(int(n) for n in nums if n is not None)
 
 
-def collect_printed(score, *, path: Path) -> PrintedScore:
-    """Read bars, notes and markings of a music21 score in printed order."""
+def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> PrintedScore:
+    """Read bars, notes and markings of a music21 score in printed order.
+
+    ``keep_velocity`` records each note's own velocity (column ``vel``, NaN when absent), used for
+    MIDI files, whose notes carry a played velocity rather than notated dynamics.
+    """
     from music21 import (bar, chord, dynamics, expressions, key, meter, note, repeat, spanner,
                          stream, tempo, articulations)
 
@@ -327,15 +338,19 @@ def collect_printed(score, *, path: Path) -> PrintedScore:
                                 acc = max(acc, 2)
                             elif isinstance(a, articulations.Accent):
                                 acc = max(acc, 1)
+                        vel = np.nan
+                        if keep_velocity:
+                            v = getattr(el.volume, "velocity", None)
+                            vel = float(v) if v is not None else np.nan
                         if isinstance(el, chord.Chord):
                             for cn in el.notes:
                                 t = cn.tie if cn.tie is not None else el.tie
                                 note_rows.append((k, i, off, dur, int(cn.pitch.midi),
-                                                  t.type if t is not None else "", acc))
+                                                  t.type if t is not None else "", acc, vel))
                         elif isinstance(el, note.Note):
                             t = el.tie
                             note_rows.append((k, i, off, dur, int(el.pitch.midi),
-                                              t.type if t is not None else "", acc))
+                                              t.type if t is not None else "", acc, vel))
                         continue
                     if isinstance(el, dynamics.Dynamic):
                         add("dynamic", k, i, off, text=str(el.value))
@@ -403,7 +418,7 @@ def collect_printed(score, *, path: Path) -> PrintedScore:
                         if mm is m and (i, nums) not in seen_volta:
                             seen_volta.add((i, nums))
                             marks[i].voltas = tuple(sorted(set(marks[i].voltas) | set(nums)))
-    notes = pd.DataFrame(note_rows, columns=["part", "bar", "off", "dur", "pitch", "tie", "accent"])
+    notes = pd.DataFrame(note_rows, columns=["part", "bar", "off", "dur", "pitch", "tie", "accent", "vel"])
     events = pd.DataFrame(ev)
     for c in ("text", "text2"):
         if c not in events:
@@ -508,8 +523,9 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
 
     path = Path(path)
     score = read_music21(path)
-    printed = collect_printed(score, path=path)
-    printed.is_midi = path.suffix.lower() in MIDI_SUFFIXES
+    is_midi = path.suffix.lower() in MIDI_SUFFIXES
+    printed = collect_printed(score, path=path, keep_velocity=is_midi)
+    printed.is_midi = is_midi
     if printed.notes.empty:
         raise InputError("score has no notes; nothing to plan", path=path)
     perf, warns = performed_bars(printed, expand_repeats=expand_repeats)
@@ -556,6 +572,9 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     model_tmp.notes = notes
     model_tmp.boundaries = markings.boundaries(ctx, tempo_events=tempo_events)
     model_tmp.warnings[:] = list(dict.fromkeys(model_tmp.warnings))
+    md = getattr(score, "metadata", None)
+    title = (getattr(md, "title", None) or getattr(md, "movementName", None) or "") if md is not None else ""
+    model_tmp.title = " ".join(str(title).split())
     return model_tmp
 
 

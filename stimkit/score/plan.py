@@ -145,6 +145,7 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
     tm = model.tempo_map
     return {
         "Piece": name,
+        "Title": model.title,
         "SourceFile": model.path.name,
         "RepeatsExpanded": bool(model.repeats_expanded),
         "Parts": list(model.parts),

@@ -275,3 +275,32 @@ def test_hairpin_words_and_grace_notes(tmp_path):
     assert h["label"].tolist() == ["crescendo"] and h["end_qn"].iloc[0] == pytest.approx(4.0)
     assert (m.notes["duration_qn"] > 0).all()  # grace notes get a small positive length
     assert len(m.notes) == 3
+
+
+def test_midi_file_markings_and_velocities(tmp_path):
+    from music21 import key, meter, note, stream, tempo
+
+    s, p = stream.Score(), stream.Part()
+    p.append(tempo.MetronomeMark(number=90))
+    p.append(meter.TimeSignature("3/4"))
+    p.append(key.KeySignature(2))
+    for i in range(12):
+        n = note.Note(62 + (i % 5), quarterLength=1)
+        n.volume.velocity = 40 + 5 * i
+        p.append(n)
+    p.insert(12, tempo.MetronomeMark(number=60))
+    for _ in range(6):
+        p.append(note.Note(60, quarterLength=1))
+    s.insert(0, p)
+    path = tmp_path / "t.mid"
+    s.write("midi", fp=str(path))
+    m = load_score(path)
+    # Standard MIDI File: set-tempo, time-signature and key-signature meta events survive
+    assert rows(m, "tempo")["value"].tolist() == [90.0, 60.0]
+    assert rows(m, "meter")["label"].tolist() == ["3/4"]
+    assert rows(m, "key")["value"].tolist() == [2]
+    # 12 quarters at 90 + 6 at 60 = 8 s + 6 s (hand computed)
+    assert m.nominal_duration_s == pytest.approx(14.0)
+    # the file's own velocities are kept (MIDI velocity 40, 45, ...)
+    assert m.notes["velocity"].iloc[:3].tolist() == [40, 45, 50]
+    assert len(m.parts) == 1 and not m.parts[0].isdigit()  # a readable name, not an object id
