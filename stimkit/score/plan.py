@@ -262,7 +262,10 @@ def summary_tables(result: PlanResult) -> list:
 
     t1 = Table(title="Programme (nominal)")
     for c in ("#", "piece", "start", "duration", "bars", "boundaries", "warnings"):
-        t1.add_column(c, justify="right" if c not in ("piece",) else "left")
+        if c == "piece":
+            t1.add_column(c, overflow="fold")
+        else:
+            t1.add_column(c, justify="right", no_wrap=True)
     for r in result.programme.itertuples(index=False):
         t1.add_row(str(r.order), r.piece, _mmss(r.start), _mmss(r.duration), str(r.bars),
                    str(r.boundaries), str(r.warnings))
@@ -277,8 +280,8 @@ def summary_tables(result: PlanResult) -> list:
     warn = [(nm, w) for nm, m in zip(result.names, result.models) for w in m.warnings]
     if warn:
         t3 = Table(title="Warnings")
-        t3.add_column("piece")
-        t3.add_column("warning")
+        t3.add_column("piece", overflow="fold")
+        t3.add_column("warning", overflow="fold")
         for nm, w in warn:
             t3.add_row(nm, w)
         out.append(t3)
