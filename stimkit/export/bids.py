@@ -277,7 +277,9 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
     dataset. Rows are taken as simultaneous when their onsets agree to the 6 written decimals.
     In a merged row ``label``, ``part`` and ``source`` join the distinct values with `` + `` in
     table order; ``duration`` is the longest; ``confidence`` the lowest (the cautious value);
-    every other column keeps the first row's value. ``events`` must already be sorted
+    every other column (``measure``, ``beat``, ...) comes from the row that starts a bar -- the
+    lowest ``beat``, so "double bar" at bar 25 beat 5 and "rehearsal mark C" at bar 26 beat 1
+    give bar 26 beat 1 -- or the first row when no beat is known. ``events`` must already be sorted
     (:func:`prepare_events`); the order of the remaining rows is kept.
     """
     if "trial_type" not in events.columns or len(events) < 2:
@@ -293,7 +295,14 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
     if all(len(g) == 1 for g in groups.values()):
         return events
     firsts = sorted(groups)
-    out = events.iloc[firsts].copy()
+    # the representative row of a group: the one that starts a bar (lowest beat), so an
+    # end-of-bar marking (double bar, repeat end: "bar 8, beat 5") yields to the bar that
+    # begins at that instant ("bar 1, beat 1" of the repeat); ties keep the first
+    beat = pd.to_numeric(events["beat"], errors="coerce").to_numpy(np.float64) \
+        if "beat" in events.columns else np.full(len(events), np.nan)
+    beat = np.where(np.isfinite(beat), beat, np.inf)
+    reps = [groups[j][int(np.argmin(beat[groups[j]]))] for j in firsts]
+    out = events.iloc[reps].copy()
     out.index = firsts
     for c in ("label", "part", "source", "confidence"):
         if c in out.columns:

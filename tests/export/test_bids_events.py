@@ -260,7 +260,9 @@ def test_same_kind_at_same_onset_is_merged_and_hed_valid(tmp_path, hed_schema):
         "onset": [20.0, 20.0, 20.0, 31.0],
         "duration": [0.0, 0.0, 0.0, 0.0],
         "trial_type": ["section", "section", "dynamic", "section"],
-        "label": ["rehearsal mark A", "repeat start", "mf", "double bar"],
+        "label": ["double bar", "rehearsal mark C", "mf", "final bar"],
+        "measure": [25, 26, 26, 30],
+        "beat": [5.0, 1.0, 1.0, 5.0],
         "part": ["all", "all", "Violin", "all"],
         "confidence": [0.9, 0.7, 0.8, 0.95],
     })
@@ -269,7 +271,8 @@ def test_same_kind_at_same_onset_is_merged_and_hed_valid(tmp_path, hed_schema):
     df = pd.read_csv(tmp_path / f"{BASE}_events.tsv", sep="\t", na_values="n/a", keep_default_na=False)
     assert len(df) == 3
     sec = df[(df["onset"] == 20.0) & (df["trial_type"] == "section")].iloc[0]
-    assert sec["label"] == "rehearsal mark A + repeat start" and sec["part"] == "all"
+    assert sec["label"] == "double bar + rehearsal mark C" and sec["part"] == "all"
+    assert sec["measure"] == 26 and sec["beat"] == 1   # the bar that starts at this instant
     assert sec["confidence"] == pytest.approx(0.7)   # the cautious value
     from hed.models import Sidecar, TabularInput
 
