@@ -11,7 +11,15 @@
 - ``dataset_description.json`` with ``HEDVersion`` (:func:`dataset_description`).
 
 Conventions: every frame's time is its window centre; a continuous file's rows are at
-``StartTime + k / SamplingFrequency``.
+``StartTime + k / SamplingFrequency``. Event rows are sorted by onset, then kind, then label;
+seconds carry 6 decimals; the same table gives the same bytes.
+
+References
+----------
+Brain Imaging Data Structure specification 1.11: "Common principles -- Tabular files",
+"Modality agnostic files -- Task events", "Continuous recordings" (and its machine-readable
+schema, as read by ``bidsschematools``).
+HED Working Group, HED specification 3 and HED standard schema 8.3.0 ("BIDS sidecars").
 """
 
 from __future__ import annotations

@@ -10,6 +10,10 @@ Conventions
   kept under the separate key ``"timings_s"`` (rounded to 0.01 s) and :func:`write_provenance`
   writes them only when asked (``with_timings=True``); by default the file is byte-identical
   across reruns.
+
+References
+----------
+NIST FIPS 180-4 (2015), Secure Hash Standard (SHA-256).
 """
 
 from __future__ import annotations
