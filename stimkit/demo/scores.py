@@ -115,7 +115,7 @@ def _accomp(key_obj, figure, bar_qn, style, *, lo=40):
 def _make_piece(spec, *, title, seed):
     """Build a two-staff piano score from a section spec list."""
     from music21 import (bar, clef, dynamics, expressions, instrument, key, layout, meter, metadata,
-                         note, chord, stream, tempo)
+                         note, chord, stream)
 
     rng = random.Random(seed)
     sc = stream.Score()

@@ -183,7 +183,6 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
                 e = dict(best)
                 e["parts"] = parts
                 e["qn"] = min(c["qn"] for c in gk)
-                words = [c["word"] for c in group if c.get("word")]
                 if kind == "tempo":
                     vals = sorted({round(c["bpm"], 3) for c in gk if c["prio"] <= 2})
                     if len(vals) > 1:

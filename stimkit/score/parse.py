@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import InputError
-from .model import BOUNDARY_COLUMNS, MEASURE_COLUMNS, NOTE_COLUMNS, ScoreModel
+from .model import BOUNDARY_COLUMNS, NOTE_COLUMNS, ScoreModel
 from .repeats import BarMarks, RepeatError, performed_order
 
 __all__ = ["load_score", "SCORE_SUFFIXES", "GRACE_QN", "read_music21", "PrintedScore", "collect_printed"]

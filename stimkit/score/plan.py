@@ -28,7 +28,6 @@ import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from ..errors import InputError
