@@ -40,7 +40,7 @@ SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
 _TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "force", "bids", "sync", "piece"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
-_SYNC_KEYS = {"frequency_hz", "duration_s", "recorder_times_s", "recorder_file", "recorder_column",
+_SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
 _PIECE_KEYS = {"score", "name", "start_s", "anchors"}
 
@@ -76,6 +76,7 @@ class SyncSpec:
     mode: str = "none"
     frequency_hz: float = 1000.0
     duration_s: float = 0.02
+    kind: str | None = None  # "burst" or "click"; None: from duration_s
     recorder_s: list[float] | None = None
     recorder_file: Path | None = None
     recorder_column: str = "onset"
@@ -290,6 +291,12 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
                 else:
                     bad(f"[sync] missing {k} (the sync marks' tone {'frequency' if k == 'frequency_hz' else 'length'})",
                         "sync")
+            if "kind" in sy:
+                if sy["kind"] not in ("burst", "click"):
+                    bad("[sync] kind must be \"burst\" (a steady tone) or \"click\" (a short decaying tone)",
+                        "sync", 0, "kind")
+                else:
+                    sync.kind = sy["kind"]
             for k in ("search_start_s", "search_end_s"):
                 if k in sy:
                     if not _is_number(sy[k]) or float(sy[k]) < 0:
@@ -432,6 +439,8 @@ run = 1
 [sync]
 frequency_hz = 1000          # tone of the marks
 duration_s = 0.02            # length of one mark
+# kind = "burst"             # "burst" (steady tone) or "click" (short decaying tone);
+#                            # default: click below 10 ms, burst from 10 ms
 recorder_times_s = [12.500, 1840.250]   # recorder clock, one per mark, in order
 #    or read them from a column of the recorder's CSV/TSV export instead of recorder_times_s:
 # recorder_file = "recorder-sync.tsv"

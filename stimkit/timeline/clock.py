@@ -184,7 +184,9 @@ def detect_sync_marks(
     *,
     frequency_hz: float,
     duration_s: float,
+    kind: str | None = None,
     min_score: float = 0.7,
+    min_jump_db: float = 20.0,
     min_level_db: float = -60.0,
     min_gap_s: float = 1.0,
     block_s: float = 30.0,
@@ -194,8 +196,11 @@ def detect_sync_marks(
 ) -> list[SyncMark]:
     """Sync marks (tone bursts / clicks at ``frequency_hz``) in a recording, in time order.
 
-    Detection: quadrature matched filter over ``duration_s`` (normalised correlation at least
-    ``min_score`` and level at least ``min_level_db``), one mark per ``min_gap_s``. Timing: the
+    Detection of a ``"burst"`` (a steady tone, default when ``duration_s >= 10 ms``): quadrature
+    matched filter over ``duration_s``, normalised correlation at least ``min_score``. Detection
+    of a ``"click"`` (a short decaying tone, default below 10 ms): the envelope at
+    ``frequency_hz`` jumps by at least ``min_jump_db`` over its mean of the preceding 200 ms.
+    Both need a level of at least ``min_level_db``; one mark per ``min_gap_s``. Timing: the
     half-rise point of the demodulated envelope (:func:`half_rise_onset`), which for a burst
     that starts abruptly is its first sample.
 
@@ -204,7 +209,9 @@ def detect_sync_marks(
     path : path to the recording (any format soundfile reads); channels are averaged.
     frequency_hz : centre frequency of the burst or click.
     duration_s : stated length of the burst.
-    min_score : smallest normalised correlation (0..1) that counts as a mark.
+    kind : ``"burst"`` or ``"click"`` (default from ``duration_s``, see above).
+    min_score : smallest normalised correlation (0..1) that counts as a burst.
+    min_jump_db : smallest rise of the envelope over its recent mean that counts as a click.
     min_level_db : smallest RMS under the burst (dB re full scale) that counts as a mark.
     min_gap_s : marks closer than this are one mark (the stronger wins).
     block_s : length of the streamed blocks.
@@ -225,11 +232,24 @@ def detect_sync_marks(
     if not 0 < frequency_hz < sr / 2:
         raise InputError(f"sync mark frequency {frequency_hz} Hz is not below half the sample rate "
                          f"({sr / 2:g} Hz); state the burst's real frequency", path=path)
+    kind = kind or ("burst" if duration_s >= 0.01 else "click")
+    if kind not in ("burst", "click"):
+        raise InputError(f"unknown sync mark kind '{kind}'; use 'burst' or 'click'")
     tmpl = burst_template(frequency_hz=frequency_hz, duration_s=duration_s, sr=sr)
     n = tmpl.size
     kernel = np.conj(tmpl[::-1])
-    block_frames = max(int(block_s * sr), 16 * n)
-    overlap = 3 * n + int(0.02 * sr)
+    # envelope smoother and background window of the click detector
+    L = max(int(round(max(0.001, 2.0 / frequency_hz) * sr)) | 1, 3)
+    hann = scipy.signal.windows.hann(L + 2)[1:-1]
+    hann /= hann.sum()
+    bg_n, bg_gap = int(0.2 * sr), int(0.003 * sr) + L
+    # consecutive blocks overlap by pre + post samples; a block owns the marks found between
+    # its first pre and last post samples (the first and last block own their outer edges), so
+    # every mark is seen once, with pre samples of context before it and post after it
+    pre = bg_n + bg_gap + 2 * n
+    post = 2 * n + int(0.02 * sr)
+    overlap = pre + post
+    block_frames = max(int(block_s * sr), 16 * n, 4 * overlap)
     first = int(max(start_s, 0.0) * sr)
     last = info.frames if end_s is None else min(info.frames, int(end_s * sr) + n)
     total = max(last - first, 1)
@@ -237,19 +257,30 @@ def detect_sync_marks(
     for b0, x in _blocks(path, first=first, last=last, sr=sr, block_frames=block_frames, overlap_frames=overlap):
         if x.size < n + 2:
             break
-        # corr[k] = |sum_j x[k + j] * conj(tmpl[j])| for k = 0 .. len(x) - n
-        corr = np.abs(scipy.signal.fftconvolve(x, kernel, mode="valid"))
-        c = np.concatenate([[0.0], np.cumsum(x * x)])
-        energy = c[n:] - c[:-n]
-        # Cauchy-Schwarz bounds corr by sqrt(energy); a real tone reaches half of it on the
-        # analytic template (its negative-frequency half is not matched), hence sqrt(2)
-        score = np.minimum(np.sqrt(2.0) * corr / np.sqrt(np.maximum(energy, 1e-20)), 1.0)
-        level_db = 10 * np.log10(np.maximum(energy / n, 1e-20))
-        ok = (score >= min_score) & (level_db >= min_level_db)
-        # the overlap (but its first n samples) belongs to the next block, unless this is the
-        # last one; both blocks then see a mark with context on both sides
-        own_end = corr.size if b0 + x.size >= last else x.size - overlap + n
-        own_start = overlap - n if b0 > first else 0
+        if kind == "burst":
+            # corr[k] = |sum_j x[k + j] * conj(tmpl[j])| for k = 0 .. len(x) - n
+            corr = np.abs(scipy.signal.fftconvolve(x, kernel, mode="valid"))
+            c = np.concatenate([[0.0], np.cumsum(x * x)])
+            energy = c[n:] - c[:-n]
+            # Cauchy-Schwarz bounds corr by sqrt(energy); a real tone reaches half of it on the
+            # analytic template (its negative-frequency half is not matched), hence sqrt(2)
+            score = np.minimum(np.sqrt(2.0) * corr / np.sqrt(np.maximum(energy, 1e-20)), 1.0)
+            level_db = 10 * np.log10(np.maximum(energy / n, 1e-20))
+            ok = (score >= min_score) & (level_db >= min_level_db)
+        else:
+            idx = np.arange(b0, b0 + x.size)
+            env = np.abs(np.convolve(x * np.exp(-2j * np.pi * frequency_hz * idx / sr), hann, mode="same"))
+            c = np.concatenate([[0.0], np.cumsum(env)])
+            k = np.arange(env.size)
+            a0, a1 = np.clip(k - bg_gap - bg_n, 0, None), np.clip(k - bg_gap, 0, None)
+            bg = (c[a1] - c[a0]) / np.maximum(a1 - a0, 1)
+            jump_db = 20 * np.log10(np.maximum(env, 1e-12) / np.maximum(bg, 1e-12))
+            corr = env
+            score = np.clip(1.0 - bg / np.maximum(env, 1e-12), 0.0, 1.0)
+            level_db = 20 * np.log10(np.maximum(2.0 * env, 1e-12))  # peak level of the tone
+            ok = (jump_db >= min_jump_db) & (level_db >= min_level_db) & (a1 - a0 >= int(0.02 * sr))
+        own_end = ok.size if b0 + x.size >= last else x.size - post
+        own_start = pre if b0 > first else 0
         ok[own_end:] = False
         ok[:own_start] = False
         if ok.any():

@@ -101,7 +101,7 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
         raise InputError("the recorder sync times must increase (one per mark, in order)",
                          path=sy.recorder_file or where)
     marks = detect_sync_marks(session.recording, frequency_hz=sy.frequency_hz, duration_s=sy.duration_s,
-                              start_s=sy.search_start_s, end_s=sy.search_end_s, progress=progress)
+                              kind=sy.kind, start_s=sy.search_start_s, end_s=sy.search_end_s, progress=progress)
     found = np.array([m.recording_s for m in marks])
     if found.size == 0:
         raise WorkFailed(f"no sync mark at {sy.frequency_hz:g} Hz ({sy.duration_s * 1000:g} ms) was found "
@@ -414,7 +414,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         "recording": str(session.recording),
         "pieces": [{"name": p.name, "score": str(p.score), "start_s": p.start_s, "anchors": p.anchors}
                    for p in session.pieces],
-        "sync": {"mode": session.sync.mode, "frequency_hz": session.sync.frequency_hz,
+        "sync": {"mode": session.sync.mode, "kind": session.sync.kind, "frequency_hz": session.sync.frequency_hz,
                  "duration_s": session.sync.duration_s, "recorder_s": session.sync.recorder_s,
                  "recorder_file": None if session.sync.recorder_file is None else str(session.sync.recorder_file),
                  "recorder_column": session.sync.recorder_column, "offset_s": session.sync.offset_s,

@@ -57,12 +57,14 @@ def test_marks_found_within_one_millisecond(marked_file):
     assert all(m.score > 0.8 for m in marks)
 
 
-def test_marks_across_block_edges(marked_file):
-    # block_s = 1.5 s cuts the file into ~42 overlapping blocks; the streamed scan must give
-    # the same marks as one block holding the whole file
+@pytest.mark.parametrize("block_s", [1.5, 3.7])
+@pytest.mark.parametrize("kind", ["burst", "click"])
+def test_marks_across_block_edges(marked_file, block_s, kind):
+    # small blocks cut the file into many overlapping pieces; the streamed scan must give the
+    # same marks as one block holding the whole file, whatever the cuts
     path, truth = marked_file
-    small = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=1.5)
-    big = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=120.0)
+    small = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=block_s, kind=kind)
+    big = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.02, block_s=120.0, kind=kind)
     assert len(small) == len(big) == len(truth)
     np.testing.assert_allclose([m.recording_s for m in small], [m.recording_s for m in big], atol=1e-6)
 
@@ -83,6 +85,35 @@ def test_search_window(marked_file):
 def test_frequency_above_nyquist_is_input_error(marked_file):
     with pytest.raises(InputError):
         detect_sync_marks(marked_file[0], frequency_hz=20000.0, duration_s=0.02)
+
+
+def test_clicks_among_claps_found_within_one_millisecond(tmp_path):
+    # clicks: a 2 kHz cosine under a 0.5 ms exponential decay; "claps": band-passed noise bursts
+    # (800-2500 Hz, 4-9 ms decay), the kind of sound a click detector must not trust
+    from scipy.signal import butter, sosfilt
+
+    rng = np.random.default_rng(5)
+    n = int(40 * SR)
+    x = 0.003 * rng.standard_normal(n)
+    sos = butter(2, [800, 2500], btype="bandpass", fs=SR, output="sos")
+    for t0 in np.sort(rng.uniform(12, 28, 60)):
+        k = int(t0 * SR)
+        m = int(0.04 * SR)
+        x[k:k + m] += 0.3 * sosfilt(sos, rng.standard_normal(m)) * np.exp(-np.arange(m) / SR / 0.006)
+    truth = np.array([2.0, 20.00005, 37.5])
+    m = int(0.005 * SR)
+    for t0 in truth:
+        i0 = int(np.ceil(t0 * SR))
+        tb = np.arange(m) / SR
+        x[i0:i0 + m] += 0.7 * np.cos(2 * np.pi * 2000 * tb) * np.exp(-tb / 0.0005)
+    path = tmp_path / "clicks.wav"
+    sf.write(path, x.astype(np.float32), SR)
+    marks = detect_sync_marks(path, frequency_hz=2000.0, duration_s=0.005)  # click by duration
+    from stimkit.timeline.clock import pair_marks
+
+    got, missing = pair_marks([mk.recording_s for mk in marks], 5.0 + truth * (1 + 30e-6))
+    assert missing == []
+    assert np.max(np.abs(got - np.ceil(truth * SR) / SR)) < 0.001  # task requirement: +-1 ms
 
 
 def test_pairing_ignores_extra_detections():
