@@ -22,8 +22,10 @@ Conventions
   checked tree is handed to music21's MusicXML importer, so the file is read once.
 - Known music21 pitfalls handled here (measured on music21 10.5.1): ``<other-dynamics>`` loses its
   text (the tag is renamed before import); ``getContextByClass(TimeSignature)`` returns the
-  previous meter on a bar that changes meter (``Measure.timeSignature`` is read first); wedge ends
-  point to the last note *start* (its duration is added); ``expandRepeats`` is not used.
+  previous meter on a bar that changes meter (the bar's own elements are read first); wedges are
+  bound to the note after their start and end at the last note's *start*, so their written
+  positions are read from the XML tree (:func:`xml_wedges`; music21's wedges, with the last
+  note's duration added, are the fallback); ``expandRepeats`` is not used.
 
 References
 ----------
@@ -147,10 +149,58 @@ def read_music21(path: str | Path):
     try:
         imp = MusicXMLImporter()
         imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
-        return imp.stream
+        sc = imp.stream
     except Exception as exc:
         raise InputError(f"music21 cannot import this MusicXML ({type(exc).__name__}: {exc})",
                          path=path) from None
+    try:
+        sc._stimkit_wedges = xml_wedges(root)  # written wedge positions (see xml_wedges)
+    except Exception:  # a best-effort refinement; music21's wedges are used without it
+        sc._stimkit_wedges = None
+    return sc
+
+
+def xml_wedges(root) -> list[dict]:
+    """Wedges at their written positions, read from the MusicXML tree.
+
+    music21 binds a wedge to the note *after* its start and ends it at the last note's start;
+    here the ``<direction><wedge>`` elements are placed by walking each ``<part>`` with its
+    ``<divisions>``, ``<backup>``, ``<forward>`` and note durations (chord and grace notes do
+    not advance; a direction's ``<offset>`` is added). Returns dicts with ``part`` (index of the
+    ``<part>``), ``part_id``, ``kind``, ``bar``/``off`` (start: printed bar index, quarters into the bar) and
+    ``end_bar``/``end_off``.
+    """
+    out = []
+    for pk, part in enumerate(root.findall("part")):
+        div = 1.0
+        open_: dict[str, tuple] = {}
+        for bi, meas in enumerate(part.findall("measure")):
+            pos = 0.0
+            for el in meas:
+                tag = el.tag
+                if tag == "attributes":
+                    d = el.findtext("divisions")
+                    if d:
+                        div = float(d)
+                elif tag == "note":
+                    if el.find("chord") is None and el.find("grace") is None:
+                        pos += float(el.findtext("duration") or 0) / div
+                elif tag == "backup":
+                    pos -= float(el.findtext("duration") or 0) / div
+                elif tag == "forward":
+                    pos += float(el.findtext("duration") or 0) / div
+                elif tag == "direction":
+                    shift = float(el.findtext("offset") or 0) / div
+                    for w in el.iter("wedge"):
+                        typ, num = w.get("type"), w.get("number", "1")
+                        at = max(pos + shift, 0.0)
+                        if typ in ("crescendo", "diminuendo"):
+                            open_[num] = (typ, bi, at)
+                        elif typ == "stop" and num in open_:
+                            typ0, b0, o0 = open_.pop(num)
+                            out.append(dict(part=pk, part_id=part.get("id") or "", kind=typ0, bar=b0,
+                                            off=o0, end_bar=bi, end_off=at))
+    return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -400,8 +450,19 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
 
     # --- spanners: wedges and voltas -----------------------------------------------------------
     seen_volta = set()
+    raw_wedges = getattr(score, "_stimkit_wedges", None)
+    if raw_wedges:
+        # <part> index -> the first music21 part (staff) built from it
+        xml_ids = [str(getattr(p, "id", "")) for p in parts]
+        for w in raw_wedges:
+            pid = w["part_id"]
+            k = next((j for j, x in enumerate(xml_ids) if pid and (x == pid or x.startswith(pid + "-Staff"))), None)
+            if k is None:
+                k = min(w["part"], len(parts) - 1)
+            if w["bar"] < n and w["end_bar"] < n:
+                add("wedge", k, w["bar"], w["off"], text=w["kind"], end_bar=w["end_bar"], end_off=w["end_off"])
     for sp in score.spannerBundle:
-        if isinstance(sp, dynamics.DynamicWedge):
+        if isinstance(sp, dynamics.DynamicWedge) and not raw_wedges:
             first, last = sp.getFirst(), sp.getLast()
             a, b_ = where.get(id(first)), where.get(id(last))
             if a is None or b_ is None:

@@ -304,3 +304,17 @@ def test_midi_file_markings_and_velocities(tmp_path):
     # the file's own velocities are kept (MIDI velocity 40, 45, ...)
     assert m.notes["velocity"].iloc[:3].tolist() == [40, 45, 50]
     assert len(m.parts) == 1 and not m.parts[0].isdigit()  # a readable name, not an object id
+
+
+def test_wedge_starting_inside_a_held_note(tmp_path):
+    # MusicXML <offset> (in divisions, here 8 = 2 quarters) places the wedge start half-way through
+    # a whole note; music21 binds it to the next note (qn 4) -- the written start is qn 2
+    start = ('<direction><direction-type><wedge type="crescendo"/></direction-type>'
+             "<offset>8</offset></direction>")
+    ms = [measure(1, A44 + start + note("C", 5, 4)),
+          measure(2, note("D", 5, 4) + direction('<wedge type="stop"/>')),
+          whole(3, dyn("f"))]
+    m = load_score(write(tmp_path, "wo.musicxml", score([("P", ms)])))
+    h = rows(m, "hairpin")
+    assert h["score_qn"].tolist() == [2.0] and h["end_qn"].tolist() == [8.0]
+    assert h["measure"].tolist() == [1] and h["beat"].tolist() == [3.0]
