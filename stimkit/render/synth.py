@@ -59,6 +59,7 @@ TIMBRES = ("piano", "organ", "strings")
 PEAK_LIMIT = 0.98
 _MASTER = 0.25          # gain of one velocity-127 note
 _BAND = 16              # velocity band width for templates
+_BLOCK = 2048           # block length of the piano partial bank, samples
 _NEEDED = ("onset_s", "offset_s", "pitch", "velocity")
 
 # (release time constant s, longest template s, attack s)
@@ -116,26 +117,50 @@ def piano_partials(pitch: float, *, sr: int, velocity: float = 80.0):
     return f, a / a.max()
 
 
-def _piano_template(pitch: int, vel: float, n_samp: int, sr: int, rng) -> np.ndarray:
-    f, a = piano_partials(pitch, sr=sr, velocity=vel)
-    t = np.arange(n_samp, dtype=np.float32) / np.float32(sr)
+def _piano_templates(pitch: int, vels: list[float], n_samps: list[int], sr: int,
+                     rng_phase, rngs_noise) -> list[np.ndarray]:
+    """Piano tones of one pitch at several velocities (one float32 array each).
+
+    Every partial is a sum of two decaying complex exponentials (prompt sound and aftersound).
+    The signal is built in blocks of :data:`_BLOCK` samples: inside a block each partial is its
+    value at the block start times a precomputed block-long decaying phasor, so a block of all
+    velocities is two small complex matrix products.
+    """
+    f, _ = piano_partials(pitch, sr=sr)
+    amps = np.stack([piano_partials(pitch, sr=sr, velocity=v)[1] for v in vels])   # bands x partials
     tau2 = float(np.clip(9.0 * 2.0 ** (-(pitch - 21) / 22.0), 0.35, 9.0))   # aftersound, s
     tau1 = tau2 / 7.0                                                        # prompt sound, s
-    fac = (1.0 + f / 2500.0).astype(np.float32)[:, None]                     # high partials decay faster
-    phase = rng.uniform(0, 2 * np.pi, f.size).astype(np.float32)[:, None]
-    osc = np.cos(np.float32(2 * np.pi) * f.astype(np.float32)[:, None] * t[None, :] + phase)
-    tf = t[None, :] * fac
-    env = 0.7 * np.exp(-tf / np.float32(tau1)) + 0.3 * np.exp(-tf / np.float32(tau2))
-    y = (a.astype(np.float32) @ (osc * env)).astype(np.float32)
-    # hammer: band-passed noise burst, brighter when louder
-    v = vel / 127.0
-    n_h = min(n_samp, int(0.03 * sr))
-    hi = min(1500.0 + 5000.0 * v, 0.45 * sr)
-    sos = butter(2, [300.0, hi], btype="bandpass", fs=sr, output="sos")
-    burst = sosfilt(sos, rng.standard_normal(n_h)) * np.exp(-np.arange(n_h) / (0.005 * sr))
-    level = (0.25 + 0.35 * v) * np.max(np.abs(y[: max(n_h, 1)]))
-    y[:n_h] += level * burst / max(np.max(np.abs(burst)), 1e-12)
-    return y
+    fac = 1.0 + f / 2500.0                                                   # high partials decay faster
+    w = 2 * np.pi * f
+    k1, k2 = fac / tau1, fac / tau2
+    phase = rng_phase.uniform(0, 2 * np.pi, f.size)
+    tau = np.arange(_BLOCK) / sr
+    # block-long decaying phasors of both stages, stacked: (2 partials, block)
+    bank = np.concatenate([np.exp((1j * w[:, None] - k[:, None]) * tau[None, :]) for k in (k1, k2)])
+    n_max = max(n_samps)
+    n_blk = -(-n_max // _BLOCK)
+    t0 = (np.arange(n_blk) * _BLOCK / sr)[:, None]                           # block starts, s
+    rot = np.exp(1j * (w[None, :] * t0 + phase[None, :]))                    # (blocks, partials)
+    start = np.concatenate([0.7 * np.exp(-k1[None, :] * t0) * rot, 0.3 * np.exp(-k2[None, :] * t0) * rot],
+                           axis=1)                                           # (blocks, 2 partials)
+    amps2 = np.concatenate([amps, amps], axis=1)                             # (bands, 2 partials)
+    coef = (start[:, None, :] * amps2[None, :, :]).reshape(n_blk * len(vels), -1)
+    # one matrix product for every block and velocity: (blocks * bands, block)
+    y = (coef.astype(np.complex64) @ bank.astype(np.complex64)).real
+    y = y.reshape(n_blk, len(vels), _BLOCK).transpose(1, 0, 2).reshape(len(vels), n_blk * _BLOCK)
+    out = []
+    for row, vel, n_samp, rng in zip(y, vels, n_samps, rngs_noise):
+        tone = row[:n_samp].copy()
+        # hammer: band-passed noise burst, brighter when louder
+        v = vel / 127.0
+        n_h = min(n_samp, int(0.03 * sr))
+        hi = min(1500.0 + 5000.0 * v, 0.45 * sr)
+        sos = butter(2, [300.0, hi], btype="bandpass", fs=sr, output="sos")
+        burst = sosfilt(sos, rng.standard_normal(n_h)) * np.exp(-np.arange(n_h) / (0.005 * sr))
+        level = (0.25 + 0.35 * v) * np.max(np.abs(tone[: max(n_h, 1)]))
+        tone[:n_h] += level * burst / max(np.max(np.abs(burst)), 1e-12)
+        out.append(tone)
+    return out
 
 
 def _organ_template(pitch: int, vel: float, n_samp: int, sr: int, rng) -> np.ndarray:
@@ -259,11 +284,14 @@ def synthesize(
     n_hold = np.maximum(np.rint((off - on) * sr).astype(np.int64), 1)
     n_rel = int(round(5 * rel_s * sr))
     cap = int(round(cap_s * sr))
-    band = np.clip((vel - 1) // _BAND, 0, 127 // _BAND).astype(np.int64)
+    if timbre == "piano":   # brightness follows velocity: one template per velocity band
+        band = np.clip((vel - 1) // _BAND, 0, 127 // _BAND).astype(np.int64)
+    else:                   # spectrum independent of velocity: one template per pitch
+        band = np.zeros(vel.size, dtype=np.int64)
     gain = (_MASTER * (vel / 127.0) ** 2).astype(np.float32)
     n_need = np.minimum(n_hold + n_rel, cap)
     release = np.exp(-np.arange(n_rel, dtype=np.float32) / np.float32(rel_s * sr))
-    make = {"piano": _piano_template, "organ": _organ_template, "strings": _strings_template}[timbre]
+    make = {"organ": _organ_template, "strings": _strings_template}.get(timbre)
     tid = TIMBRES.index(timbre)
     n_fade = int(0.02 * sr)
 
@@ -272,17 +300,31 @@ def synthesize(
     order = np.lexsort((i0, key))
     keys, first = np.unique(key[order], return_index=True)
     bounds = np.r_[first, order.size]
+    n_key = np.maximum.reduceat(n_need[order], first)   # longest sound needed per key
+    seed32 = int(seed) & 0xFFFFFFFF
+    att_n = int(round(att_s * sr))
+    templates: dict[int, np.ndarray] = {}
     for j, k in enumerate(keys):
         idx = order[bounds[j]:bounds[j + 1]]
-        p, b = int(k // 64), int(k % 64)
-        n_t = int(n_need[idx].max())
-        rng = np.random.default_rng([int(seed) & 0xFFFFFFFF, p, b, tid])
-        tmpl = make(p, float(min(b * _BAND + _BAND / 2 + 1, 127)), n_t, sr, rng)
-        _attack(tmpl, int(round(att_s * sr)))
-        m = min(n_fade, n_t)
-        tmpl[n_t - m:] *= np.linspace(1.0, 0.0, m, dtype=np.float32)   # templates never end abruptly
-        pk = float(np.max(np.abs(tmpl[: max(1, min(n_t, int(0.2 * sr)))])))
-        tmpl /= max(pk, 1e-9)
+        p = int(k // 64)
+        if int(k) not in templates:   # keys are sorted by pitch: build all bands of a pitch at once
+            templates.clear()
+            todo = [(int(kk), int(n_key[jj])) for jj, kk in enumerate(keys) if int(kk // 64) == p]
+            centres = [float(min((kk % 64) * _BAND + _BAND / 2 + 1, 127)) for kk, _ in todo]
+            rngs = [np.random.default_rng([seed32, p, kk % 64, tid]) for kk, _ in todo]
+            if timbre == "piano":
+                tones = _piano_templates(p, centres, [n for _, n in todo], sr,
+                                         np.random.default_rng([seed32, p, tid]), rngs)
+            else:
+                tones = [make(p, c, n, sr, r) for (_, n), c, r in zip(todo, centres, rngs)]
+            for (kk, n_t), tmpl in zip(todo, tones):
+                _attack(tmpl, att_n)
+                m = min(n_fade, n_t)
+                tmpl[n_t - m:] *= np.linspace(1.0, 0.0, m, dtype=np.float32)   # never end abruptly
+                pk = float(np.max(np.abs(tmpl[: max(1, min(n_t, int(0.2 * sr)))])))
+                tmpl /= max(pk, 1e-9)
+                templates[kk] = tmpl
+        tmpl = templates[int(k)]
         for i in idx:
             s0 = int(i0[i])
             if s0 >= n_out:
