@@ -291,8 +291,11 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         next_start = spans[k + 1].start_s if k + 1 < len(spans) else duration_s
         lo = max(prev_end, sp.start_s - SPAN_PAD_S, 0.0)
         hi = min(next_start, sp.end_s + SPAN_PAD_S, duration_s)
-        res = align_score(sc, session.recording, anchors=list(p.anchors), force=session.force,
-                          span_s=(lo, hi), progress=progress)
+        try:
+            res = align_score(sc, session.recording, anchors=list(p.anchors), force=session.force,
+                              span_s=(lo, hi), progress=progress)
+        except WorkFailed as exc:
+            raise WorkFailed(f"piece '{p.name}' ({lo:.1f}-{hi:.1f} s of the recording): {exc}") from None
         aligned.append(res)
         warnings.extend(f"{p.name}: {w}" for w in getattr(res, "warnings", []) or [])
     lap("alignment")
