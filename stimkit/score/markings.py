@@ -46,7 +46,7 @@ import pandas as pd
 
 from ..errors import InputError
 from ..levels import TRIAL_TYPES
-from .model import BOUNDARY_COLUMNS, NOTE_COLUMNS, ScoreModel
+from .model import BOUNDARY_COLUMNS, BOUNDARY_EXTRA_COLUMNS, NOTE_COLUMNS, ScoreModel
 from .words import classify_tempo_text, word_quarter_bpm
 
 __all__ = ["MarkingContext", "tempo_events", "note_table", "boundaries", "DYNAMIC_LEVELS",
@@ -64,7 +64,6 @@ DEFAULT_LEVEL = 6
 LONG_SILENCE_S = 2.0
 SAME_PLACE_QN = 0.26
 GLOBAL_SAME_PLACE_QN = 1.01
-BOUNDARY_EXTRA_COLUMNS = ["end_qn", "nominal", "nominal_end"]
 BOUNDARY_TABLE_COLUMNS = BOUNDARY_COLUMNS + BOUNDARY_EXTRA_COLUMNS
 _HAIRPIN_WORDS = {"cresc": 1, "cresc.": 1, "crescendo": 1, "dim": -1, "dim.": -1, "diminuendo": -1,
                   "decresc": -1, "decresc.": -1, "decrescendo": -1, "poco a poco cresc.": 1}

@@ -18,7 +18,11 @@ Tables (pandas DataFrames)
     numerator, denominator, beat_qn, first_beat`` (beat number of the bar's first sounding
     position: 1, or e.g. 3 for a 4/4 pickup of two beats).
 ``boundaries``: one row per structural marking (see :mod:`stimkit.score.markings`), columns
-    ``trial_type, label, score_qn, measure, pass, beat, part, value, detail``.
+    ``trial_type, label, score_qn, measure, pass, beat, part, value, detail`` followed by
+    :data:`BOUNDARY_EXTRA_COLUMNS` ``end_qn`` (end of a spanning marking, NaN for a point),
+    ``nominal`` and ``nominal_end`` (seconds of the tempo map at ``score_qn`` / ``end_qn``).
+    ``measures`` from :func:`stimkit.score.parse.load_score` also carries ``label`` (printed
+    number with suffix) and ``index`` (position of the bar in printed order).
 """
 
 from __future__ import annotations
@@ -31,13 +35,14 @@ import pandas as pd
 
 from ..timemap import TimeMap
 
-__all__ = ["ScoreModel", "NOTE_COLUMNS", "MEASURE_COLUMNS", "BOUNDARY_COLUMNS"]
+__all__ = ["ScoreModel", "NOTE_COLUMNS", "MEASURE_COLUMNS", "BOUNDARY_COLUMNS", "BOUNDARY_EXTRA_COLUMNS"]
 
 NOTE_COLUMNS = ["score_qn", "duration_qn", "pitch", "velocity", "part", "measure", "pass", "beat"]
 MEASURE_COLUMNS = [
     "measure", "pass", "score_qn", "duration_qn", "numerator", "denominator", "beat_qn", "first_beat",
 ]
 BOUNDARY_COLUMNS = ["trial_type", "label", "score_qn", "measure", "pass", "beat", "part", "value", "detail"]
+BOUNDARY_EXTRA_COLUMNS = ["end_qn", "nominal", "nominal_end"]
 
 
 @dataclass
