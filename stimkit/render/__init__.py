@@ -62,6 +62,12 @@ def render_score(score, *, seed: int, sr: int = 22050, timbre: str = "piano", ro
         Timing and ground truth. Here ``notes.onset_s`` is snapped to the sample grid
         (``k / sr``, ``k`` the note's first sample in ``y``), so it is exact; ``perf.settings``
         also records ``sr``, ``timbre`` and the room options.
+
+    Examples
+    --------
+    >>> from stimkit.score.parse import load_score          # doctest: +SKIP
+    >>> y, perf = render_score(load_score("song.musicxml"), seed=1, timbre="organ")  # doctest: +SKIP
+    >>> perf.positions()[["score_qn", "onset_s"]].head()     # doctest: +SKIP
     """
     perf = perform(score, seed=seed, start_s=start_s, **(perform_options or {}))
     perf.notes["onset_s"] = np.rint(perf.notes["onset_s"].to_numpy() * sr) / sr

@@ -225,6 +225,12 @@ def perform(
     ------
     stimkit.errors.InputError
         An option out of range, or a score without bars.
+
+    Examples
+    --------
+    >>> perf = perform(score, seed=3, drift=0.1)                  # doctest: +SKIP
+    >>> perf.notes[["score_qn", "pitch", "onset_s"]].head()       # doctest: +SKIP
+    >>> perf.timemap(8.0)   # recording second of score_qn 8      # doctest: +SKIP
     """
     _validate(score, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s)
     rng = np.random.default_rng(seed)

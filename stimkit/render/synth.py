@@ -266,6 +266,14 @@ def synthesize(
     ------
     stimkit.errors.InputError
         Unknown timbre, missing columns or impossible note times.
+
+    Examples
+    --------
+    >>> import pandas as pd
+    >>> notes = pd.DataFrame({"onset_s": [0.5], "offset_s": [1.5], "pitch": [69], "velocity": [90]})
+    >>> y = synthesize(notes, sr=22050, timbre="piano")
+    >>> int(np.flatnonzero(y)[0])   # the note starts on sample round(0.5 * 22050)
+    11025
     """
     _validate(notes, sr, timbre, duration_s)
     rel_s, cap_s, att_s = _SHAPE[timbre]
