@@ -11,9 +11,13 @@ Conventions
   (dampers); its tail is cut after five time constants.
 - The level of a note scales with ``(velocity / 127) ** 2``; the whole signal is scaled down only
   if its peak would exceed :data:`PEAK_LIMIT` (one gain for the whole signal, no limiter).
-- Each (pitch, velocity band) is rendered once as a template and overlap-added at every onset
-  (rendering cost grows with the number of distinct pitches, not notes). Templates are seeded from
-  ``(seed, pitch, band, timbre)``, so a note sounds the same whatever else is in the list.
+- Each pitch (piano: each pitch and velocity band of 16) is rendered once as a template and
+  overlap-added at every onset (rendering cost grows with the number of distinct pitches, not
+  notes). Templates are seeded from ``(seed, pitch, timbre)`` (partial phases) and ``(seed,
+  pitch, band, timbre)`` (noise), so a note sounds the same whatever else is in the list.
+- Piano partials are computed in blocks of 2048 samples as decaying complex phasors (the value
+  at each block start times one precomputed block of phasors), which is exact up to float32
+  rounding and costs one matrix product per pitch.
 
 Timbres
 -------
@@ -39,7 +43,7 @@ References
 ----------
 .. [1] H. Fletcher, E. D. Blackham and R. Stratton, "Quality of piano tones", JASA 34(6), 1962.
 .. [2] N. H. Fletcher and T. D. Rossing, *The Physics of Musical Instruments*, 2nd ed., Springer,
-   1998, ch. 12 (piano) and ch. 17 (organ pipes).
+   1998, ch. 10 (bowed strings), ch. 12 (piano) and ch. 17 (organ pipes).
 .. [3] G. Weinreich, "Coupled piano strings", JASA 62(6), 1977.
 .. [4] O. L. Railsback, "Scale temperament as applied to piano tuning", JASA 9(3), 1938.
 """
