@@ -318,3 +318,22 @@ def test_wedge_starting_inside_a_held_note(tmp_path):
     h = rows(m, "hairpin")
     assert h["score_qn"].tolist() == [2.0] and h["end_qn"].tolist() == [8.0]
     assert h["measure"].tolist() == [1] and h["beat"].tolist() == [3.0]
+
+
+def test_long_silence_shorter_than_a_bar(tmp_path):
+    # at quarter = 30 a two-quarter rest lasts 4 s: not a whole bar, but a long silence (>= 2 s)
+    ms = [whole(1, A44 + metronome("quarter", 30)), measure(2, note("C", 5, 2) + rest(2)), whole(3)]
+    m = load_score(write(tmp_path, "ls.musicxml", score([("P", ms)])))
+    p = rows(m, "pause")
+    assert p["label"].tolist() == ["long silence"]
+    assert p["nominal_end"].iloc[0] - p["nominal"].iloc[0] == pytest.approx(4.0)
+
+
+def test_three_eight_is_one_beat(tmp_path):
+    # music21 counts 3/8 as one beat of a dotted quarter; at dotted quarter = 60 a bar lasts 1 s
+    ms = bars_of(6, first_attrs=attributes(beats=3, beat_type=8, fifths=0)
+                 + metronome("quarter", 60, dotted=True), note_q=0.5, per_bar=3)
+    m = load_score(write(tmp_path, "t38.musicxml", score([("P", ms)])))
+    assert m.measures["beat_qn"].iloc[0] == pytest.approx(1.5)
+    assert m.nominal_duration_s == pytest.approx(6.0)
+    assert m.notes["beat"].iloc[1] == pytest.approx(1 + 0.5 / 1.5)
