@@ -134,7 +134,10 @@ def read_music21(path: str | Path):
         if path.stat().st_size > MAX_XML_BYTES:
             raise InputError("score file is larger than 200 MB; refused", path=path)
         data = path.read_bytes()
-    if not data.lstrip()[:1] == b"<" and not data.startswith(b"\xef\xbb\xbf"):
+    if data.startswith(b"PK\x03\x04"):
+        raise InputError("this is a compressed MusicXML (zip) file; rename it to .mxl", path=path)
+    head = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
+    if not (head.lstrip()[:1] == b"<" or data.startswith((b"\xff\xfe", b"\xfe\xff"))):
         raise InputError("not an XML file; give a MusicXML export (.musicxml, .xml, .mxl)", path=path)
     root = _safe_xml(data, path)
     if root.tag == "score-timewise":

@@ -179,3 +179,22 @@ def test_negative_gap_refused(tmp_path, capsys):
     a = good_score(tmp_path)
     rc, _, err = run(["plan", str(a), "-o", str(tmp_path / "o"), "--gap", "-5"], capsys)
     assert_refused(rc, err, tmp_path / "o")
+
+
+def test_utf16_and_bom_musicxml_load(tmp_path):
+    text = score([("P", bars_of(2, first_attrs=A34, per_bar=3))])
+    p16 = tmp_path / "u16.musicxml"
+    p16.write_bytes(text.replace('encoding="UTF-8"', 'encoding="UTF-16"').encode("utf-16"))
+    p8 = tmp_path / "bom.musicxml"
+    p8.write_bytes(b"\xef\xbb\xbf" + text.encode("utf-8"))
+    r = make_plan([p16, p8], out_dir=tmp_path / "o")
+    assert [len(m.notes) for m in r.models] == [6, 6]
+
+
+def test_zip_with_xml_extension_refused(tmp_path, capsys):
+    p = tmp_path / "zipped.musicxml"
+    with zipfile.ZipFile(p, "w") as zf:
+        zf.writestr("score.musicxml", "<score-partwise/>")
+    rc, _, err = run(["plan", str(p), "-o", str(tmp_path / "o")], capsys)
+    assert_refused(rc, err, tmp_path / "o")
+    assert ".mxl" in err
