@@ -222,6 +222,28 @@ def _envelope(path, *, t_map, columns: int = 2400):
     return np.asarray(t_map(t), dtype=np.float64), lo_a, hi_a
 
 
+ALIGNED_TEMPO = "aligned_tempo_bpm"
+
+
+def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
+    """Tempo of the performance from each piece's alignment (beats per minute in the bar's beat
+    unit, Hann-smoothed over a few beats by the alignment stage) at ``times_s`` (recording
+    seconds); NaN outside the pieces."""
+    out = np.full(times_s.size, np.nan)
+    for res, p in zip(aligned, pieces):
+        t = getattr(res, "tempo", None)
+        if not isinstance(t, pd.DataFrame) or len(t) < 2 or not {"recording", "bpm"} <= set(t.columns):
+            continue
+        r = t["recording"].to_numpy(dtype=np.float64)
+        b = t["bpm"].to_numpy(dtype=np.float64)
+        ok = np.isfinite(r) & np.isfinite(b)
+        if ok.sum() < 2:
+            continue
+        inside = (times_s >= p.start_recording_s) & (times_s <= p.end_recording_s)
+        out[inside] = np.interp(times_s[inside], r[ok], b[ok])
+    return out
+
+
 def _stim_frame(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
     """Numeric columns only (booleans as 0/1), so any numeric loader reads the file; returns the
     frame and the names of the text columns left out."""
@@ -348,6 +370,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         ch = changes.rename(columns={"features": "label"}) if "features" in changes.columns else changes
         tables.append(ev.change_events(ch, clock=clock))
     events = ev.merge_events(tables)
+    frame = frame.copy()
+    frame[ALIGNED_TEMPO] = _aligned_tempo(np.asarray(frame.index, dtype=np.float64), aligned, pieces_out)
+    units = dict(getattr(feats, "units", {}) or {})
+    units[ALIGNED_TEMPO] = "BPM"
+    descriptions = dict(getattr(feats, "descriptions", {}) or {})
+    descriptions[ALIGNED_TEMPO] = ("Tempo of the performance from the score alignment: beats per minute in "
+                                   "the bar's beat unit, smoothed over a few beats; n/a outside the pieces.")
     beat_df = pd.concat(beats, ignore_index=True) if beats else pd.DataFrame()
     lap("events")
 
@@ -385,7 +414,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     from ..report.html import write_report
 
     fig = overview_figure(
-        features=on_frame, units=dict(getattr(feats, "units", {}) or {}), events=events,
+        features=on_frame, units=units, events=events, columns={"tempo": ALIGNED_TEMPO},
         pieces=report_pieces, low_confidence=[(float(clock(a)), float(clock(b))) for a, b in low_conf],
         sync=sync_df, envelope=env, time_column="onset", clock_label=clock_label,
         title=f"{base}: {', '.join(names)}")
@@ -394,14 +423,14 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     try:
         from ..stats.windows import piece_summary
 
-        piece_table = piece_summary(on_frame, report_pieces)
+        piece_table = piece_summary(on_frame, report_pieces, tempo_column=ALIGNED_TEMPO)
     except Exception as exc:  # summary numbers are a convenience; the report says why they are missing
         warnings.append(f"piece summary skipped: {type(exc).__name__}: {exc}")
         piece_table = report_pieces
     if changes is not None and len(changes):
         stats_tables["feature change points (recording time)"] = changes
     summary = {
-        "recording": str(session.recording),
+        "recording file": str(session.recording),
         "duration (s)": round(duration_s, 3),
         "pieces": len(pieces_out),
         "boundaries placed": int(sum(p.n_boundaries for p in pieces_out)),
@@ -451,8 +480,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         written += bids.write_stim(outs, base, stim,
                                    sampling_hz=session.rate_hz / clock.slope,
                                    start_time_s=float(clock(t_frames[0])) if t_frames.size else 0.0,
-                                   units=dict(getattr(feats, "units", {}) or {}),
-                                   descriptions=dict(getattr(feats, "descriptions", {}) or {}),
+                                   units=units, descriptions=descriptions,
                                    extra=stim_extra)
         written += bids.write_beats(outs, base, beat_df)
         written.append(bids.write_dataset_description(outs, name=f"stimkit annotation of {base}"))
