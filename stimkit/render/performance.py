@@ -23,8 +23,9 @@ The local duration of a quarter note is the nominal one divided by three factors
    ``max |n| = 1``, so the drift stays within ``[1 - drift, 1 + drift]`` of the nominal tempo.
 2. **Phrase-final ritardando** -- over the last :data:`RIT_SPAN_QN` quarter notes before each
    phrase end the tempo falls linearly (in tempo) to ``1 - phrase_rit`` and returns at the next
-   phrase; phrase ends are section boundaries (``trial_type`` ``section``/``pause``), rests of at
-   least one beat in all parts, every 8 bars, the end of the last note and the end of the piece.
+   phrase. Section boundaries (``trial_type`` ``section``/``pause``), the end of the last note and
+   the end of the piece take the full ``phrase_rit``; inner phrase ends (rests of at least one
+   beat in all parts, every 8 bars) take :data:`INNER_RIT` of it.
    This follows the shape of final ritards described by Friberg & Sundberg (1999) and
    phrase-arch timing (Todd 1992), in a simplified linear form.
 3. **Fermata** -- the span of a fermata (``trial_type == "fermata"``: from its ``score_qn`` to
@@ -62,7 +63,8 @@ from ..errors import InputError
 from ..score.model import ScoreModel
 from ..timemap import TimeMap
 
-__all__ = ["Performance", "perform", "PERFORMANCE_NOTE_COLUMNS", "DRIFT_SIGMA_QN", "RIT_SPAN_QN"]
+__all__ = ["Performance", "perform", "PERFORMANCE_NOTE_COLUMNS", "DRIFT_SIGMA_QN", "RIT_SPAN_QN",
+           "PHRASE_BARS", "INNER_RIT"]
 
 PERFORMANCE_NOTE_COLUMNS = [
     "score_qn", "duration_qn", "pitch", "velocity", "part", "measure", "pass", "beat",
@@ -74,6 +76,8 @@ DRIFT_SIGMA_QN = 6.0
 RIT_SPAN_QN = 3.0
 #: Bars per phrase when the score gives no other phrase end.
 PHRASE_BARS = 8
+#: Share of ``phrase_rit`` used at inner phrase ends (every 8 bars, rests).
+INNER_RIT = 0.5
 #: Grid step (quarter notes) on which the tempo factors are evaluated.
 GRID_QN = 0.125
 #: Silence (seconds) kept after the last note's release in :attr:`Performance.duration_s`.
@@ -125,16 +129,24 @@ class Performance:
         return out
 
 
-def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
-    """Score positions where a phrase ends (sorted, unique, > 0)."""
-    ends = [total_qn]
+def _phrase_ends(score: ScoreModel, total_qn: float) -> tuple[np.ndarray, np.ndarray]:
+    """Score positions where a phrase ends (sorted, unique, > 0) and the depth of their ritardando:
+    1 at section boundaries, general pauses and the end; :data:`INNER_RIT` at inner phrase ends."""
+    ends = {}
+
+    def add(q, depth):
+        q = round(float(q), 9)
+        if 0 < q <= total_qn + 1e-9:
+            ends[q] = max(depth, ends.get(q, 0.0))
+
+    add(total_qn, 1.0)
     b = score.boundaries
     if b is not None and len(b):
-        sel = b["trial_type"].isin(["section", "pause"])
-        ends.extend(float(q) for q in b.loc[sel, "score_qn"])
+        for q in b.loc[b["trial_type"].isin(["section", "pause"]), "score_qn"]:
+            add(q, 1.0)
     m = score.measures
-    starts = m["score_qn"].to_numpy(dtype=np.float64)
-    ends.extend(starts[PHRASE_BARS::PHRASE_BARS].tolist())
+    for q in m["score_qn"].to_numpy(dtype=np.float64)[PHRASE_BARS::PHRASE_BARS]:
+        add(q, INNER_RIT)
     # rests of at least one beat in all parts: a gap between the sounding end so far and the next onset
     n = score.notes
     if len(n):
@@ -144,11 +156,11 @@ def _phrase_ends(score: ScoreModel, total_qn: float) -> np.ndarray:
         q, e = q[order], np.maximum.accumulate(e[order])
         nxt = np.r_[q[1:], np.inf]
         beat_qn = float(np.median(m["beat_qn"])) if len(m) else 1.0
-        gap = (nxt - e >= beat_qn - 1e-9) & np.isfinite(nxt)
-        ends.extend(e[gap].tolist())
-        ends.append(float(e[-1]))   # the end of the last sounding note
-    ends = np.unique(np.round(np.asarray(ends, dtype=np.float64), 9))
-    return ends[(ends > 0) & (ends <= total_qn + 1e-9)]
+        for x in e[(nxt - e >= beat_qn - 1e-9) & np.isfinite(nxt)]:
+            add(x, INNER_RIT)
+        add(e[-1], 1.0)   # the end of the last sounding note
+    pos = np.array(sorted(ends), dtype=np.float64)
+    return pos, np.array([ends[k] for k in sorted(ends)], dtype=np.float64)
 
 
 def _fermata_spans(score: ScoreModel, onsets: np.ndarray, total_qn: float) -> list[tuple[float, float]]:
@@ -207,7 +219,8 @@ def perform(
     drift : float
         Bound of the smooth random tempo drift, as a fraction of the nominal tempo (0.25 = ±25 %).
     phrase_rit : float
-        Tempo loss at a phrase end (0.35: the last beat before the end is played at 65 % tempo).
+        Tempo loss at a section end or the end of the piece (0.35: played at 65 % of the tempo
+        at the end); inner phrase ends lose ``INNER_RIT * phrase_rit``.
     fermata_factor : float
         Extra lengthening of a fermata span on top of the nominal hold; 1 keeps the nominal hold.
     jitter_s : float
@@ -240,7 +253,7 @@ def perform(
     q_off = q_on + notes["duration_qn"].to_numpy(dtype=np.float64)
     onset_pos = np.unique(q_on)
 
-    ends = _phrase_ends(score, total_qn)
+    ends, depths = _phrase_ends(score, total_qn)
     spans = _fermata_spans(score, onset_pos, total_qn)
 
     # knots: a regular grid plus every place where a factor or the nominal slope changes
@@ -265,10 +278,10 @@ def perform(
 
     # 2. phrase-final ritardando: linear fall of tempo to (1 - phrase_rit) at each end
     rit = np.ones_like(mid)
-    for e in ends:
+    for e, depth in zip(ends, depths):
         w = (mid - (e - RIT_SPAN_QN)) / RIT_SPAN_QN
         inside = (w > 0) & (mid < e)
-        rit[inside] = np.minimum(rit[inside], 1.0 - phrase_rit * w[inside])
+        rit[inside] = np.minimum(rit[inside], 1.0 - depth * phrase_rit * w[inside])
 
     # 3. fermata holds
     hold = np.ones_like(mid)
@@ -315,6 +328,7 @@ def perform(
         "chord_spread_s": float(chord_spread_s), "start_s": float(start_s),
         "drift_sigma_qn": DRIFT_SIGMA_QN, "rit_span_qn": RIT_SPAN_QN, "phrase_bars": PHRASE_BARS,
         "phrase_ends_qn": [round(float(e), 6) for e in ends],
+        "phrase_rit_depths": [float(d) for d in depths], "inner_rit": INNER_RIT,
         "fermata_spans_qn": [[round(a, 6), round(b, 6)] for a, b in spans],
     }
     return Performance(notes=out, timemap=timemap, beats=beats, duration_s=last + TAIL_S,

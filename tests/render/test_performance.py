@@ -51,6 +51,9 @@ def test_phrase_end_is_slower(melody_score):
     nominal = melody_score.tempo_map(end) - melody_score.tempo_map(end - 1)
     played = perf.timemap(end) - perf.timemap(end - 1)
     assert played / nominal > 1.0 / (1 - 0.4 * 2 / 3)   # mean of 1/(1 - 0.4 w) over w in [2/3, 1]
+    # an inner phrase end (the rest at qn 6) slows down too, but less than the end of the piece
+    inner = (perf.timemap(6.0) - perf.timemap(5.0)) / (melody_score.tempo_map(6.0) - melody_score.tempo_map(5.0))
+    assert 1.0 < inner < played / nominal
     # the middle of a phrase (bar 3, far from the phrase ends at qn 6 and 32) keeps the nominal tempo
     assert perf.timemap(11.0) - perf.timemap(10.0) == pytest.approx(
         melody_score.tempo_map(11.0) - melody_score.tempo_map(10.0))
