@@ -198,7 +198,7 @@ def audio_features(
     path,
     *,
     span_s: tuple[float, float] | None = None,
-    block_s: float = 60.0,
+    block_s: float = 300.0,
     progress=None,
 ) -> AlignFeatures:
     """Alignment features of a recording (see module docstring).
@@ -211,7 +211,8 @@ def audio_features(
         Only this part of the file, in ``recording`` seconds; frame times stay seconds from the
         first sample of the file.
     block_s : float
-        Seconds of audio per CQT block (memory stays bounded by the block, not the file).
+        Seconds of audio per CQT block (memory stays bounded by the block, not the file;
+        librosa rebuilds its filter bank per call, so blocks should not be short).
     """
     from ..audio.read import audio_info, iter_blocks
 

@@ -68,7 +68,7 @@ class StepWeights:
     rec: float = 1.25
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=True, inline="always")
 def _cell_cost(cs, cr, os_, or_, w_on, i, j):
     d = 0.0
     for k in range(cs.shape[1]):
@@ -83,7 +83,7 @@ def _cell_cost(cs, cr, os_, or_, w_on, i, j):
     return c
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=True)
 def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, open_end):
     """Accumulate over the band; return (steps uint8 per band cell, end column, total cost)."""
     n = lo.shape[0]
@@ -111,33 +111,52 @@ def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, o
                 code = 2
         cur[k] = best
         steps[offs[0] + k] = code
+    rowc = np.empty(width)
+    d_on = os_.shape[1] if w_on > 0.0 else 0
     for i in range(1, n):
         prev, cur = cur, prev
         plo, phi = lo[i - 1], hi[i - 1]
-        for k in range(width):
-            cur[k] = inf
-        for j in range(lo[i], hi[i] + 1):
-            c = _cell_cost(cs, cr, os_, or_, w_on, i, j)
-            k = j - lo[i]
-            best = inf
-            code = 255
-            if j - 1 >= plo and j - 1 <= phi:
-                v = prev[j - 1 - plo] + w_d * c
-                if v < best:
+        li = lo[i]
+        m = hi[i] - li + 1
+        for k in range(m):          # local costs of the row (tight loop, vectorised by LLVM)
+            j = li + k
+            d = 0.0
+            for q in range(cs.shape[1]):
+                d += cs[i, q] * cr[j, q]
+            c = 1.0 - d
+            if d_on > 0:
+                e = 0.0
+                for q in range(d_on):
+                    t = os_[i, q] - or_[j, q]
+                    e += t * t
+                c += w_on * np.sqrt(e)
+            rowc[k] = c
+        base = offs[i]
+        left = inf
+        for k in range(m):
+            j = li + k
+            c = rowc[k]
+            best = left + w_r * c
+            code = 2
+            jd = j - 1 - plo
+            if jd >= 0 and j - 1 <= phi:
+                v = prev[jd] + w_d * c
+                if v <= best:
                     best = v
                     code = 0
-            if j >= plo and j <= phi:
-                v = prev[j - plo] + w_s * c
+            jv = j - plo
+            if jv >= 0 and j <= phi:
+                v = prev[jv] + w_s * c
                 if v < best:
                     best = v
                     code = 1
-            if k > 0:
-                v = cur[k - 1] + w_r * c
-                if v < best:
-                    best = v
-                    code = 2
+            if best == inf:
+                code = 255
             cur[k] = best
-            steps[offs[i] + k] = code
+            left = best
+            steps[base + k] = code
+        for k in range(m, width):
+            cur[k] = inf
     last = n - 1
     end = -1
     best = inf

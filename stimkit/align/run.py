@@ -32,7 +32,7 @@ Conventions
   matrix, estimated at the finest rate from 20 000 cell pairs drawn with a fixed seed); overall
   and local (2 s of score) values mapped to 0..1 by :func:`stimkit.align.warp.ratio_to_confidence`.
   A second test compares the unshifted alignment with the 11 chroma rotations (``key_ratio``:
-  unshifted path cost ÷ best rotated path cost at about 2 Hz): the right piece aligns far better
+  unshifted path cost ÷ best rotated path cost at about 2 Hz, coarser for long pieces): the right piece aligns far better
   in its own key. A ratio above :data:`REFUSE_RATIO` or a key ratio above
   :data:`KEY_REFUSE_RATIO` is taken as a different piece and refused
   (:class:`~stimkit.errors.WorkFailed`) unless ``force=True``. The overall confidence is the
@@ -99,6 +99,7 @@ REFUSE_RATIO = 0.85
 #: Rendered tests: the right piece 0.4-0.65, a different piece 0.9-1.5; refused above this.
 KEY_REFUSE_RATIO = 0.8
 KEY_FACTOR = 25
+KEY_MAX_CELLS = 2_000_000
 #: Recordings (or spans) shorter than this are refused.
 MIN_AUDIO_S = 1.0
 #: Peak level under which a recording counts as silent (dBFS).
@@ -292,7 +293,10 @@ def align_score(
     costs = path_costs(path, S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset, onset_weight=ONSET_WEIGHT)
     ref = _ref_cost(S, A, ONSET_WEIGHT)
     ratio = float(costs.mean() / max(ref, 1e-9))
-    shifts = key_shift_costs(S.chroma, A.chroma, factor=KEY_FACTOR, weights=weights)
+    # about 2 Hz, coarser for long inputs so that each of the 12 alignments stays under
+    # KEY_MAX_CELLS cells
+    key_factor = max(KEY_FACTOR, int(np.ceil(np.sqrt(S.n_frames * A.n_frames / KEY_MAX_CELLS))))
+    shifts = key_shift_costs(S.chroma, A.chroma, factor=key_factor, weights=weights)
     key_ratio = float(shifts[0] / max(float(shifts[1:].min()), 1e-9))
     best_shift = int(np.argmin(shifts))
     overall = float(min(ratio_to_confidence(ratio),
@@ -381,6 +385,7 @@ def align_score(
         "band_cells_max": int(res["band_cells"]),
         "refuse_ratio": REFUSE_RATIO,
         "key_refuse_ratio": KEY_REFUSE_RATIO,
+        "key_test_rate_hz": rate / key_factor,
         "confidence_ratio_good_bad": [RATIO_GOOD, RATIO_BAD],
         "flag_min_s": FLAG_MIN_S,
         "flag_min_ratio": FLAG_MIN_RATIO,
