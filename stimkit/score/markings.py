@@ -86,6 +86,7 @@ class MarkingContext:
     notes: pd.DataFrame
     printed: object
     path: Path
+    jumps: list = None  # (qn after the jump, qn of the target bar's first pass, bar number)
 
 
 def _cluster(qns: np.ndarray, tol: float) -> np.ndarray:
@@ -220,6 +221,35 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
     return out, ferm
 
 
+def bpm_at(tmap, q: float) -> float:
+    """Quarter BPM in force at ``q`` from the tempo map's segments (fermatas not counted)."""
+    for s in tmap.meta.get("segments", []):
+        if s["from_qn"] - 1e-9 <= q < s["to_qn"] - 1e-9:
+            f = (q - s["from_qn"]) / max(s["to_qn"] - s["from_qn"], 1e-12)
+            return s["bpm_start"] + f * (s["bpm_end"] - s["bpm_start"])
+    segs = tmap.meta.get("segments", [])
+    return segs[-1]["bpm_end"] if segs else float("nan")
+
+
+def restore_after_jumps(ctx: MarkingContext, events: list[dict], tmap) -> list[dict]:
+    """Tempo events restoring, after a jump back (repeat, D.C., D.S.), the tempo the target bar
+    had on its first pass -- unless a tempo mark sits at the target or the tempo is the same
+    (within 1 %). Musicians resume the section's tempo, not the tempo of the bar before the jump
+    (e.g. after a rit. at the end of a first ending)."""
+    out = []
+    for q_now, q_first, bar in ctx.jumps or []:
+        if any(abs(e["qn"] - q_now) < 1e-6 and e["kind"] != "ramp" for e in events):
+            continue
+        b_target, b_before = bpm_at(tmap, q_first), bpm_at(tmap, q_now - 1e-6)
+        if not (np.isfinite(b_target) and np.isfinite(b_before)) or abs(b_target - b_before) <= 0.01 * b_before:
+            continue
+        out.append(dict(qn=q_now, kind="tempo", bpm=float(b_target), prio=0, parts=list(ctx.model.parts),
+                        label=f"tempo of bar {bar} resumed", word="", source="inferred", measure=bar,
+                        detail="inferred: after a jump back the tempo the bar had on its first pass "
+                               f"(quarter = {_fmt_bpm(b_target)})"))
+    return out
+
+
 def _word_cand(r, w, beat_qn) -> dict:
     base = dict(qn=r.score_qn, part=r.part_name, word=r.text, measure=r.measure,
                 pass_=r.pass_, label=r.text.strip(), sounding=np.nan, prio=3)
@@ -267,6 +297,18 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
         idx = np.flatnonzero(part_all == part)
         q = q_all[idx]
         steps = _dynamic_steps(ev, part) if not ev.empty else []
+        if steps and ctx.jumps:
+            # after a jump back, the dynamic the target bar had on its first pass
+            extra = []
+            for q_now, q_first, _bar in ctx.jumps:
+                if any(abs(s[0] - q_now) < 1e-6 for s in steps):
+                    continue
+                in_force = DEFAULT_LEVEL
+                for s in steps:
+                    if s[0] <= q_first + 1e-6 and np.isfinite(s[1]):
+                        in_force = s[1]
+                extra.append((q_now, in_force, np.nan))
+            steps = sorted(steps + extra, key=lambda s: s[0])
         level = np.full(len(idx), float(DEFAULT_LEVEL))
         cur = DEFAULT_LEVEL
         qs = [s[0] for s in steps]
@@ -499,7 +541,7 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
         prev = cur
     # tempo
     for e in tempo_events:
-        tt = "tempo" if e["kind"] == "tempo" else "tempo_change"
+        tt = "tempo" if e["kind"] == "tempo" and e.get("source") != "inferred" else "tempo_change"
         rows.append(_row(tt, e["label"], e["qn"], part=_part_label(e["parts"], parts),
                          value=e.get("bpm_after", np.nan), detail=e.get("detail", ""),
                          end_qn=e.get("end_qn", np.nan) if e["kind"] == "ramp" else np.nan))

@@ -522,6 +522,21 @@ def performed_bars(printed: PrintedScore, *, expand_repeats: bool) -> tuple[pd.D
     return b, warnings
 
 
+def jump_points(perf: pd.DataFrame) -> list[tuple[float, float, int]]:
+    """Where the performed order leaves the printed order: ``(score_qn of the bar played after the
+    jump, score_qn of that printed bar's first performance, printed bar number)``; only jumps to a
+    bar already played (repeats, D.C., D.S.)."""
+    idx = perf["index"].to_numpy()
+    starts = perf["score_qn"].to_numpy(dtype=float)
+    first: dict[int, float] = {}
+    out = []
+    for j, i in enumerate(idx):
+        if j and i != idx[j - 1] + 1 and int(i) in first:
+            out.append((float(starts[j]), first[int(i)], int(perf["measure"].iloc[j])))
+        first.setdefault(int(i), float(starts[j]))
+    return out
+
+
 def _place(df: pd.DataFrame, perf: pd.DataFrame, *, bar_col="bar", off_col="off") -> pd.DataFrame:
     """Repeat each printed-bar row for every performed occurrence of its bar; adds ``score_qn``,
     ``measure``, ``pass_``, ``perf`` (performed bar position)."""
@@ -624,12 +639,17 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
                            measures=measures, boundaries=pd.DataFrame(columns=BOUNDARY_COLUMNS),
                            tempo_map=_dummy_map(measures), warnings=warnings,
                            repeats_expanded=expand_repeats, parts=list(dict.fromkeys(part_names)))
-    ctx = markings.MarkingContext(model=model_tmp, events=ev, notes=pn, printed=printed, path=path)
+    ctx = markings.MarkingContext(model=model_tmp, events=ev, notes=pn, printed=printed, path=path,
+                                  jumps=jump_points(perf))
     tempo_events, fermatas = markings.tempo_events(ctx)
     first_bar_end = float(measures["score_qn"].iloc[0] + measures["duration_qn"].iloc[0])
-    tmap, tnotes = tempomap.build_tempo_map(
-        tempo_events, fermatas=fermatas, total_qn=model_tmp.total_qn,
-        first_note_qn=float(pn["score_qn"].min()), first_bar_end_qn=first_bar_end, path=path)
+    build = dict(fermatas=fermatas, total_qn=model_tmp.total_qn, first_note_qn=float(pn["score_qn"].min()),
+                 first_bar_end_qn=first_bar_end, path=path)
+    tmap, tnotes = tempomap.build_tempo_map(tempo_events, **build)
+    restored = markings.restore_after_jumps(ctx, tempo_events, tmap)
+    if restored:
+        tempo_events = sorted(tempo_events + restored, key=lambda e: e["qn"])
+        tmap, tnotes = tempomap.build_tempo_map(tempo_events, **build)
     warnings.extend(tnotes)
     model_tmp.tempo_map = tmap
     notes = markings.note_table(ctx)

@@ -337,3 +337,19 @@ def test_three_eight_is_one_beat(tmp_path):
     assert m.measures["beat_qn"].iloc[0] == pytest.approx(1.5)
     assert m.nominal_duration_s == pytest.approx(6.0)
     assert m.notes["beat"].iloc[1] == pytest.approx(1 + 0.5 / 1.5)
+
+
+def test_repeat_resumes_tempo_and_dynamic_of_its_first_pass(tmp_path):
+    # |: bar 2 (p, q = 120 in force) ... bar 4 rit., f :| -- on the repeat the section starts again
+    # at its own tempo and dynamic (performance practice), not at the end-of-rit. tempo
+    ms = [whole(1, A44 + metronome("quarter", 120) + dyn("p")), whole(2, barline("left", repeat="forward")),
+          whole(3, dyn("f")), whole(4, words("rit."), barline("right", repeat="backward")),
+          whole(5, words("a tempo"))]
+    m = load_score(write(tmp_path, "rr.musicxml", score([("P", ms)])))
+    tc = rows(m, "tempo_change")
+    resumed = tc[tc["label"] == "tempo of bar 2 resumed"]
+    assert resumed["score_qn"].tolist() == [16.0] and resumed["value"].tolist() == [120.0]
+    tm = m.tempo_map
+    assert tm(20.0) - tm(16.0) == pytest.approx(2.0)  # 4 quarters at 120 again
+    n = m.notes.set_index(["measure", "pass"])
+    assert n.loc[(2, 2), "velocity"] == n.loc[(2, 1), "velocity"]  # p again on the repeat
