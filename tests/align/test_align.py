@@ -228,3 +228,27 @@ def test_tables_and_tempo(chorale_result, scores):
     # the renderer's drift is bounded by ±25 % (its default) plus ritardandi: tempo stays near nominal
     nominal_qpm = 60.0 / np.diff(scores["chorale"].tempo_map([0.0, 1.0]))[0]
     assert 0.4 * nominal_qpm < np.median(r.tempo["quarter_bpm"]) < 1.6 * nominal_qpm
+
+
+def test_locate_piece_in_a_long_recording(scores, recordings, tmp_path):
+    """Two rendered pieces with talk-like noise around them: each is found where it was put."""
+    from stimkit.align.chroma import audio_features
+    from stimkit.align.locate import locate_piece
+
+    rng = np.random.default_rng(7)
+    parts, starts, t = [], {}, 0.0
+    for k in ("sonata", "chorale"):
+        gap = (0.01 * rng.standard_normal(int(25 * SR))).astype(np.float32)
+        parts.append(gap)
+        t += len(gap) / SR
+        _, perf, y = recordings[k]
+        starts[k] = (t + perf.notes["onset_s"].min(), t + perf.notes["offset_s"].max())
+        parts.append(y)
+        t += len(y) / SR
+    sf.write(tmp_path / "concert.wav", np.concatenate(parts), SR)
+    feats = audio_features(tmp_path / "concert.wav")
+    for k in ("sonata", "chorale"):
+        start, end, cost = locate_piece(scores[k], features=feats)
+        assert start == pytest.approx(starts[k][0], abs=1.0)   # coarse search at ~2 Hz
+        assert end == pytest.approx(starts[k][1], abs=2.5)     # the last note's release is long
+        assert cost < 0.7
