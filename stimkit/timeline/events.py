@@ -10,6 +10,7 @@ What it computes
 - :func:`merge_events` -- all rows in one table with :data:`stimkit.levels.EVENT_COLUMNS`,
   sorted deterministically by ``onset``, ``trial_type``, ``label``.
 - :func:`beat_table` -- every bar and beat of a piece with its ``recording`` and ``onset`` time.
+- :func:`with_tail` -- the alignment map with a held ending after the last note onset.
 
 Conventions
 -----------
@@ -26,7 +27,7 @@ import pandas as pd
 
 from ..levels import EVENT_COLUMNS, TRIAL_TYPES
 
-__all__ = ["piece_events", "silence_events", "sync_events", "change_events", "merge_events",
+__all__ = ["with_tail", "piece_events", "silence_events", "sync_events", "change_events", "merge_events",
            "beat_table", "empty_events"]
 
 
@@ -65,6 +66,42 @@ def _text(v):
     return s if s else None
 
 
+#: Quarter notes before the last note onset over which the performed / notated time ratio is
+#: measured for the tail of a piece.
+TAIL_RATIO_QN = 4.0
+
+
+def with_tail(score, to_recording):
+    """``to_recording`` with a held ending: after the last note onset a position is placed at
+    least as late as the notated time since that onset, scaled by the ratio of performed to
+    notated time over the last :data:`TAIL_RATIO_QN` quarter notes.
+
+    A decaying last note gives the alignment nothing to follow, so its map tends to end early
+    (a held final chord or a fermata); the notated tempo map already holds the fermata, so
+    scaling it is the better lower bound there.
+    """
+    notes = score.notes
+    if notes is None or not len(notes):
+        return to_recording
+    ql = float(notes["score_qn"].max())
+    q4 = max(ql - TAIL_RATIO_QN, float(notes["score_qn"].min()))
+    nom = score.tempo_map
+    r_l, r_4 = (float(v) for v in np.atleast_1d(to_recording(np.array([ql, q4]))))
+    n_l, n_4 = float(nom(ql)), float(nom(q4))
+    ratio = (r_l - r_4) / (n_l - n_4) if n_l > n_4 and r_l > r_4 else 1.0
+
+    def mapped(q):
+        q = np.atleast_1d(np.asarray(q, dtype=np.float64))
+        out = np.atleast_1d(np.asarray(to_recording(q), dtype=np.float64)).copy()
+        late = q > ql
+        if late.any():
+            held = r_l + (np.atleast_1d(nom(q[late])) - n_l) * ratio
+            out[late] = np.maximum(out[late], held)
+        return out
+
+    return mapped
+
+
 def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> pd.DataFrame:
     """The ``piece`` row and every boundary of one aligned piece.
 
@@ -81,6 +118,7 @@ def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> 
     confidence : callable, optional
         ``score_qn -> 0..1`` alignment confidence, vectorised; ``None`` leaves it missing.
     """
+    to_recording = with_tail(score, to_recording)
     notes = score.notes
     q_first = float(notes["score_qn"].min()) if len(notes) else 0.0
     q_last = float((notes["score_qn"] + notes["duration_qn"]).max()) if len(notes) else score.total_qn
@@ -195,6 +233,7 @@ def merge_events(tables) -> pd.DataFrame:
 
 def beat_table(score, *, piece: str, to_recording, clock) -> pd.DataFrame:
     """Every bar and beat: ``onset, piece, measure, pass, beat, is_downbeat, score_qn, recording``."""
+    to_recording = with_tail(score, to_recording)
     g = score.beat_grid()
     q = g["score_qn"].to_numpy(dtype=np.float64)
     rec = np.atleast_1d(to_recording(q)) if q.size else np.zeros(0)

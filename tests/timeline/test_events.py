@@ -89,3 +89,19 @@ def test_beat_table_counts_every_beat(score):
     assert len(bt) == 1 + 4 + 4  # pickup beat + two 4/4 bars
     assert bt.is_downbeat.sum() == 3
     np.testing.assert_allclose(bt.onset, 2.0 + bt.score_qn)
+
+
+def test_held_last_note_is_not_cut_short(score):
+    # the notated tempo map holds the last note (qn 7..9) twice as long as its written value,
+    # while the alignment map just runs on at the performed tempo: the piece must last at
+    # least the notated hold scaled by the performed/notated ratio of the last 4 quarters
+    score.tempo_map = TimeMap([0, 7, 9], [0, 3.5, 5.5], src="score_qn", dst="nominal")
+    align = TimeMap([0, 9], [10.0, 16.3], src="score_qn", dst="recording")  # 0.7 s per quarter
+    ev = piece_events(score, piece="s", to_recording=align, clock=identity_clock())
+    piece = ev[ev.trial_type == "piece"].iloc[0]
+    ratio = (0.7 * 4) / (0.5 * 4)               # performed / notated seconds over qn 3..7
+    end = 10.0 + 7 * 0.7 + (5.5 - 3.5) * ratio  # last onset + notated hold * ratio
+    assert piece.onset + piece.duration == pytest.approx(end)
+    # before the last onset the alignment map is used as it is
+    hp = ev[ev.trial_type == "hairpin"].iloc[0]
+    assert hp.recording == pytest.approx(10.0 + 3 * 0.7)
