@@ -198,3 +198,13 @@ def test_zip_with_xml_extension_refused(tmp_path, capsys):
     rc, _, err = run(["plan", str(p), "-o", str(tmp_path / "o")], capsys)
     assert_refused(rc, err, tmp_path / "o")
     assert ".mxl" in err
+
+
+@pytest.mark.skipif(not Path("/proc/self").exists(), reason="needs Linux /proc")
+def test_output_folder_that_cannot_be_created(tmp_path, capsys):
+    # /proc refuses new folders even for root (Linux procfs), so this works where chmod cannot
+    a = good_score(tmp_path)
+    out = Path("/proc/stimkit-no-such-folder")
+    rc, _, err = run(["plan", str(a), "-o", str(out)], capsys)
+    assert rc == 2 and len(err.strip().splitlines()) == 1
+    assert not out.exists()
