@@ -19,8 +19,8 @@ reverberation: Moorer 1979; Schroeder 1962), with amplitude envelope ``10 ** (-3
 low and a high band whose high band decays with half the RT60 -- a simple form of air and wall
 absorption. A few sparse early reflections in the first 30 ms follow the pre-delay. The
 convolution is a block FFT overlap-add convolution in float32 (Oppenheim & Schafer, overlap-add
-method), added into the output in place so memory stays at a few blocks beyond the signal. The noise is pink
-room tone from :func:`stimkit.render.sounds.room_tone`.
+method), added into the output in place so memory stays at a few blocks beyond the signal.
+The noise is the pink room tone of :func:`stimkit.render.sounds.room_tone`, added block by block.
 
 References
 ----------
@@ -38,7 +38,7 @@ from scipy import fft as sfft
 from scipy.signal import butter, sosfilt
 
 from ..errors import InputError
-from .sounds import room_tone
+from .sounds import pink_blocks
 
 __all__ = ["add_room", "impulse_response"]
 
@@ -137,5 +137,11 @@ def add_room(
         h = impulse_response(sr, rt60_s=rt60_s, predelay_s=predelay_s, seed=seed)
         _add_convolved(out, y, h, wet)
     if np.isfinite(noise_db) and y.size:
-        out += room_tone(sr, y.size / sr, level_db=noise_db, seed=seed + 1)[: y.size]
+        # the pink room tone of sounds.room_tone, added block by block: pass 1 measures its
+        # level, pass 2 adds it scaled to noise_db (no second full-length array)
+        energy = sum(float(np.dot(b.astype(np.float64), b)) for _, b in pink_blocks(sr, y.size, seed + 1))
+        g = np.float32(10.0 ** (noise_db / 20.0) / max(np.sqrt(energy / y.size), 1e-30))
+        for s, b in pink_blocks(sr, y.size, seed + 1):
+            dst = out[s:s + b.size]
+            np.add(dst, g * b, out=dst)
     return out

@@ -5,7 +5,8 @@ Functions
 - :func:`sync_click` -- a click or tone burst whose onset is sample 0 of the returned array.
 - :func:`babble` -- speech-like babble of a few synthetic talkers.
 - :func:`applause` -- dense random hand claps with a rise and a decay.
-- :func:`room_tone` -- pink background noise at a given RMS level.
+- :func:`room_tone` -- pink background noise at a given RMS level (:func:`pink_blocks` gives the
+  same noise block by block, unscaled).
 
 Conventions
 -----------
@@ -48,7 +49,7 @@ from scipy.signal import butter, lfilter, lfilter_zi, sosfilt
 
 from ..errors import InputError
 
-__all__ = ["sync_click", "babble", "applause", "room_tone", "VOWEL_FORMANTS_HZ"]
+__all__ = ["sync_click", "babble", "applause", "room_tone", "pink_blocks", "VOWEL_FORMANTS_HZ"]
 
 #: (F1, F2, F3) averages of adult male speakers, Peterson & Barney (1952), Hz.
 VOWEL_FORMANTS_HZ = np.array([
@@ -126,17 +127,27 @@ def sync_click(sr: int, *, kind: str = "click", freq_hz: float = 1000.0, dur_s: 
     return (10.0 ** (level_db / 20.0) * y).astype(np.float32)
 
 
+def pink_blocks(sr: int, n: int, seed: int, *, block: int = 1 << 20):
+    """Unscaled pink noise of ``n`` samples as ``(start, float32 block)`` pairs, deterministic.
+
+    The same ``(sr, n, seed)`` always gives the same blocks, so a caller can make two passes (one
+    to measure the level, one to use it) without holding the whole signal.
+    """
+    rng = np.random.default_rng(seed)
+    zi = lfilter_zi(_PINK_B, _PINK_A) * 0.0
+    _, zi = lfilter(_PINK_B, _PINK_A, rng.standard_normal(sr), zi=zi)   # settle the filter
+    for s in range(0, n, block):
+        e = min(s + block, n)
+        b, zi = lfilter(_PINK_B, _PINK_A, rng.standard_normal(e - s), zi=zi)
+        yield s, b.astype(np.float32)
+
+
 def room_tone(sr: int, dur_s: float, level_db: float = -50.0, seed: int = 0) -> np.ndarray:
     """Pink background noise with RMS ``level_db`` dBFS (see the module docstring)."""
     n = _n(sr, dur_s)
-    rng = np.random.default_rng(seed)
     out = np.empty(n, dtype=np.float32)
-    zi = lfilter_zi(_PINK_B, _PINK_A) * 0.0
-    _, zi = lfilter(_PINK_B, _PINK_A, rng.standard_normal(sr), zi=zi)   # settle the filter
-    block = 1 << 20
-    for s in range(0, n, block):
-        e = min(s + block, n)
-        out[s:e], zi = lfilter(_PINK_B, _PINK_A, rng.standard_normal(e - s), zi=zi)
+    for s, b in pink_blocks(sr, n, seed):
+        out[s:s + b.size] = b
     return _set_rms(out, level_db)
 
 
