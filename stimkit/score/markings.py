@@ -521,14 +521,23 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
         k = ev[ev["kind"] == "key"]
         for part in sorted(k["part"].unique()):
             kp = k[k["part"] == part].sort_values(["perf"], kind="mergesort")
-            prev = None
-            for r in kp.itertuples(index=False):
-                cur = (int(r.num), r.text, r.text2)
-                if prev is not None and cur == prev and int(r.perf) != 0:
-                    prev = cur
+            items = [(float(r.score_qn), (int(r.num), r.text, r.text2), r.part_name, int(r.perf) == 0, "")
+                     for r in kp.itertuples(index=False)]
+            for q_now, q_first, bar in ctx.jumps or []:
+                # after a jump back: the key the target bar had on its first pass
+                if any(abs(it[0] - q_now) < 1e-6 for it in items):
                     continue
-                lab, det = _key_label(int(r.num), r.text, r.text2)
-                glob.append(_row("key", lab, r.score_qn, part=r.part_name, value=int(r.num), detail=det))
+                before = [it for it in items if it[0] <= q_first + 1e-6 and not it[4]]
+                if before:
+                    items.append((q_now, before[-1][1], before[-1][2], False,
+                                  f"; in force at bar {bar} on its first pass (after the jump)"))
+            items.sort(key=lambda it: it[0])
+            prev = None
+            for q, cur, pname, at_start, note_ in items:
+                if prev is not None and cur == prev and not at_start:
+                    continue
+                lab, det = _key_label(*cur)
+                glob.append(_row("key", lab, q, part=pname, value=cur[0], detail=det + note_))
                 prev = cur
     # meters in force per performed bar (first part's bars)
     prev = None

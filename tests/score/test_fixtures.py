@@ -353,3 +353,16 @@ def test_repeat_resumes_tempo_and_dynamic_of_its_first_pass(tmp_path):
     assert tm(20.0) - tm(16.0) == pytest.approx(2.0)  # 4 quarters at 120 again
     n = m.notes.set_index(["measure", "pass"])
     assert n.loc[(2, 2), "velocity"] == n.loc[(2, 1), "velocity"]  # p again on the repeat
+
+
+def test_dal_segno_resumes_the_key_of_the_segno_bar(tmp_path):
+    # segno in bar 2 (G major in force, no key printed there); key change to D in bar 4; D.S. at
+    # bar 4 -> bar 2 sounds in G again, although bar 2 prints no key signature
+    ms = [whole(1, attributes(beats=4, beat_type=4, fifths=1, mode="major")), whole(2, direction("<segno/>")),
+          whole(3, words("Fine")),
+          whole(4, attributes(fifths=2, mode="major", divisions=False), words("D.S. al Fine"))]
+    m = load_score(write(tmp_path, "dsk.musicxml", score([("P", ms)])))
+    assert order(m) == [(1, 1), (2, 1), (3, 1), (4, 1), (2, 2), (3, 2)]
+    k = rows(m, "key")
+    assert k["label"].tolist() == ["G major", "D major", "G major"]
+    assert k["score_qn"].tolist() == [0.0, 12.0, 16.0]
