@@ -149,5 +149,13 @@ def cue_sheet_html(*, models, names, tables: dict, programme: pd.DataFrame, gap_
                       f"<td>{e(str(r.part))}</td>"]
             parts.append(f'<tr class="k-{e(r.trial_type)}">' + "".join(cells) + "</tr>")
         parts.append("</tbody></table></section>")
+    from ..score.tempomap import tempo_settings
+
+    st = tempo_settings()
+    parts.append('<p class="meta">Nominal times assume: q = '
+                 f"{st['default_bpm']:g} where a score has no tempo; rit./accel. change the tempo by "
+                 f"{st['ramp_depth'] * 100:g} % towards the next mark; fermatas hold "
+                 f"{st['fermata_factor']:g}× their length; tempo words get the project's "
+                 "conventional BPM. Real performances differ: follow the bars.</p>")
     parts.append("</body></html>")
     return "\n".join(parts) + "\n"

@@ -26,6 +26,8 @@ Conventions
 - Velocities: :data:`VELOCITY` (a common MIDI convention, not a standard), ``mf`` before the first
   dynamic; hairpins ramp linearly towards the next dynamic (or one level); accents raise the
   accented note; ``fp``-type marks sound the first level and leave the second in force.
+- After a jump back (repeat, D.C., D.S.) the tempo, dynamic and key the target bar had on its
+  first pass are resumed unless a mark sits there (an inferred ``tempo_change`` row says so).
 - General pause: every part silent for at least the length of the bar where the silence starts,
   or a silence holding a fermata rest; a "long silence" is any other silence of at least
   ``LONG_SILENCE_S`` nominal seconds.

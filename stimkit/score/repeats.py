@@ -80,16 +80,11 @@ def performed_order(bars: list[BarMarks], *, max_factor: int = 16) -> list[int]:
     pass_no = 1
     taken: dict[int, int] = {}
     jumped = False
-    last_volta = {}
-    # the last volta number of each volta group, used after a D.C./D.S.
-    for k, b in enumerate(bars):
-        if b.voltas:
-            last_volta[k] = max(b.voltas)
     while i < n:
         if len(order) > max_factor * n:
             raise RepeatError("repeat structure does not terminate")
         b = bars[i]
-        if b.repeat_start and not jumped and (not order or order[-1] != i or True):
+        if b.repeat_start and not jumped:
             if rep_start != i:
                 pass_no = 1
             rep_start = i
