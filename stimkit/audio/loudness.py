@@ -271,7 +271,9 @@ class LoudnessMeter:
 
     # -- feeding -------------------------------------------------------------------------
     def push(self, block: np.ndarray) -> None:
-        x = np.asarray(block, dtype=np.float64)
+        x = np.asarray(block)
+        if x.dtype not in (np.float32, np.float64):
+            x = x.astype(np.float64)
         if x.ndim == 1:
             x = x[:, None]
         if x.shape[0] == 0:
@@ -296,27 +298,31 @@ class LoudnessMeter:
         positions whose bound exceeds the running peak are computed.
         """
         T = self._taps_phase
-        seg = np.concatenate([self._hist, x], axis=0)  # T-1 samples of history first
-        absx = np.concatenate([self._hist_abs, amax])
-        self._hist = seg[-(T - 1):].copy()
-        self._hist_abs = absx[-(T - 1):].copy()
         self.true_peak = max(self.true_peak, float(amax.max()))
-        # bound per chunk of 64 outputs positions i: max |x| over the chunk and the one before
-        # (the T - 1 = 11 samples of history of any i lie there)
+        # positions i index seg = [T-1 samples of history, x]; output samples between inputs
+        # i-1 and i need seg[i-T+1 .. i]. Bound per chunk of C positions: max |seg| over the chunk
+        # and the chunk before (T - 1 < C).
         C = 64
-        n_in = absx.shape[0]
+        n = amax.shape[0]
+        n_in = n + T - 1
         nch = -(-n_in // C)
         padded = np.zeros(nch * C)
-        padded[:n_in] = absx
+        padded[: T - 1] = self._hist_abs
+        padded[T - 1:n_in] = amax
         cmax = padded.reshape(nch, C).max(axis=1)
-        bound = np.maximum(cmax, np.concatenate([[0.0], cmax[:-1]]))
+        bound = cmax.copy()
+        bound[1:] = np.maximum(cmax[1:], cmax[:-1])
         hot = np.flatnonzero(bound > self.true_peak / self._l1)
+        hist = self._hist
+        self._hist = x[-(T - 1):].copy() if n >= T - 1 else np.concatenate([hist, x])[-(T - 1):]
+        self._hist_abs = padded[n_in - (T - 1):n_in].copy()
         if hot.size == 0:
             return
         cand = (hot[:, None] * C + np.arange(C)[None, :]).ravel()
         cand = cand[(cand >= T - 1) & (cand < n_in)]
         if cand.size == 0:
             return
+        seg = np.concatenate([hist, x], axis=0)
         hp = self._hphase  # (T, up): hp[j, p] = h[up*j + p]
         offs = np.arange(T)
         for b0 in range(0, cand.size, batch):
@@ -353,6 +359,19 @@ class LoudnessMeter:
         """K-weighted loudness (LUFS) over windows of any length on the 5 ms grid."""
         s, c, nf = self._grid()
         return power_to_lufs(window_mean(s, c, centres_s=centres_s, window_s=window_s))
+
+    def grid_level(self, *, window_s: float) -> np.ndarray:
+        """K-weighted loudness (LUFS, float32) of ``window_s`` windows centred on every grid point
+        ``i * 5 ms`` (``i = 0 .. K``), clipped at the signal edges; ``-inf`` for digital silence."""
+        s, c, nf = self._grid()
+        w = max(2, int(round(window_s * GRID_PER_S)) // 2 * 2)
+        k = s.shape[0]
+        ones = np.ones(w)
+        e = np.convolve(s, ones)[w // 2 - 1: w // 2 + k]
+        n = np.convolve(c, ones)[w // 2 - 1: w // 2 + k]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out = power_to_lufs(np.maximum(e, 0.0) / n).astype(np.float32)
+        return out
 
     def integrated(self) -> float:
         s, c, nf = self._grid()

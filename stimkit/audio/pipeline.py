@@ -148,13 +148,16 @@ class _Analyser:
         self._rough.append(tonal.roughness(power, freqs=self.freqs).astype(np.float32))
 
     def push(self, block: np.ndarray) -> None:
-        x = np.asarray(block, dtype=np.float64)
+        x = np.asarray(block)
+        if x.dtype not in (np.float32, np.float64):
+            x = x.astype(np.float64)
         if x.ndim == 1:
             x = x[:, None]
         # the native-rate loudness path runs in a worker thread while this one does the spectra
         fut = self._pool.submit(self.loud.push, x)
         try:
-            mono = x @ np.full(x.shape[1], 1.0 / x.shape[1]) if x.shape[1] > 1 else x[:, 0]
+            mono = (x @ np.full(x.shape[1], 1.0 / x.shape[1], dtype=x.dtype) if x.shape[1] > 1
+                    else x[:, 0]).astype(np.float64)
             self.rms.push(mono * mono)
             self._spectra(self.stft.push(self.res.push(mono)))
         finally:
@@ -211,7 +214,7 @@ def _prefetch(iterable, depth: int = 2):
 
 def _aggregate(values: np.ndarray, *, times_s: np.ndarray, rate_hz: float, n_frames: int) -> np.ndarray:
     """Mean of ``values`` (rows at ``times_s``) per frame interval; interpolate empty intervals."""
-    v = np.asarray(values, dtype=np.float64)
+    v = np.asarray(values)
     if v.ndim == 1:
         v = v[:, None]
     out = np.full((n_frames, v.shape[1]), np.nan)
@@ -222,7 +225,7 @@ def _aggregate(values: np.ndarray, *, times_s: np.ndarray, rate_hz: float, n_fra
     cnt = np.bincount(k[ok], minlength=n_frames)[:n_frames].astype(np.float64)
     centres = (np.arange(n_frames) + 0.5) / rate_hz
     for j in range(v.shape[1]):
-        s = np.bincount(k[ok], weights=v[ok, j], minlength=n_frames)[:n_frames]
+        s = np.bincount(k[ok], weights=v[ok, j].astype(np.float64), minlength=n_frames)[:n_frames]
         col = np.where(cnt > 0, s / np.where(cnt > 0, cnt, 1.0), np.nan)
         empty = cnt == 0
         if empty.any():
@@ -292,8 +295,7 @@ def _run(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int, n_
                                          rate_hz=rate_hz, n_frames=n_frames)[:, 0]
     cols["roughness"] = _aggregate(rough, times_s=t_stft, rate_hz=rate_hz, n_frames=n_frames)[:, 0]
     # silence from the K-weighted level over 50 ms windows on the 5 ms grid
-    grid_c = np.arange(int(math.floor(duration / 0.005)) + 1) * 0.005
-    level = loud.level(grid_c, window_s=silence.SILENCE_WINDOW_S)
+    level = loud.grid_level(window_s=silence.SILENCE_WINDOW_S)
     segs = silence.silence_segments(level, step_s=0.005, window_s=silence.SILENCE_WINDOW_S,
                                     duration_s=duration)
     cols["silent"] = silence.silence_mask(segs, centres)
@@ -364,7 +366,7 @@ def compute_features(path, *, rate_hz: float = 1.0, progress: Callable | None = 
     counts: dict = {}
     n_samples = int(round((stop - start_s) * info.sample_rate_hz))
     blocks = _prefetch(b for _, b in iter_blocks(info.path, block_s=block_s, start_s=start_s,
-                                                 end_s=end_s, counts=counts))
+                                                 end_s=end_s, counts=counts, dtype="float32"))
     frame, summary = _run(blocks, sample_rate_hz=info.sample_rate_hz, channels=info.channels,
                           n_samples=n_samples, rate_hz=rate, progress=progress, counts=counts,
                           start_s=start_s)

@@ -131,7 +131,7 @@ def local_tempo(envelope: np.ndarray, *, frame_rate_hz: float, centres_s: np.nda
     nfft = 1 << int(np.ceil(np.log2(2 * W)))
     centre_idx = np.round(c * fr).astype(np.int64) - SHIFT_FRAMES
     padded = np.concatenate([np.full(half, np.nan), env, np.full(half, np.nan)])
-    batch = 2048
+    batch = 512
     for b0 in range(0, c.shape[0], batch):
         ci = centre_idx[b0:b0 + batch]
         rows = np.clip(ci, -half, env.shape[0] - 1 + half)[:, None] + np.arange(W)[None, :]

@@ -72,15 +72,19 @@ def _key_templates() -> np.ndarray:
 def local_key(chroma: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray,
               window_s: float = KEY_WINDOW_S) -> tuple[np.ndarray, np.ndarray]:
     """Key index (0-23 into :data:`KEY_NAMES`, -1 if no energy) and clarity at ``centres_s``."""
-    ch = np.asarray(chroma, dtype=np.float64)
+    from scipy.ndimage import uniform_filter1d
+
+    ch = np.asarray(chroma, dtype=np.float32)
     c = np.asarray(centres_s, dtype=np.float64)
-    cs = np.concatenate([np.zeros((1, 12)), np.cumsum(ch, axis=0)], axis=0)
     n = ch.shape[0]
-    half = window_s / 2.0
-    i0 = np.clip(np.round((c - half) * frame_rate_hz).astype(np.int64), 0, n)
-    i1 = np.clip(np.round((c + half) * frame_rate_hz).astype(np.int64) + 1, 0, n)
-    i1 = np.maximum(i1, i0)
-    s = cs[i1] - cs[i0]  # (m, 12)
+    if n == 0:
+        return np.full(c.shape, -1), np.full(c.shape, np.nan)
+    size = 2 * int(round(window_s * frame_rate_hz / 2)) + 1
+    # running mean over the window (zeros beyond the ends; a scale factor does not change r)
+    s_all = uniform_filter1d(ch, size=size, axis=0, mode="constant", cval=0.0)
+    idx_c = np.clip(np.round(c * frame_rate_hz).astype(np.int64), 0, n - 1)
+    s = s_all[idx_c].astype(np.float64)
+    del s_all
     z = s - s.mean(axis=1, keepdims=True)
     norm = np.linalg.norm(z, axis=1)
     ok = norm > 1e-9
@@ -97,14 +101,23 @@ def harmonic_change(chroma: np.ndarray) -> np.ndarray:
     import librosa
     from scipy.ndimage import gaussian_filter1d
 
-    ch = np.asarray(chroma, dtype=np.float64)
-    if ch.shape[0] < 3:
-        return np.zeros(ch.shape[0])
-    tc = librosa.feature.tonnetz(chroma=ch.T)  # (6, frames), L1-normalised chroma inside
-    tc = np.nan_to_num(tc)
-    tc = gaussian_filter1d(tc, HCDF_SIGMA_FRAMES, axis=1, mode="nearest")
-    d = np.zeros(ch.shape[0])
-    d[1:-1] = np.linalg.norm(tc[:, 2:] - tc[:, :-2], axis=0)
+    ch = np.asarray(chroma)
+    n = ch.shape[0]
+    if n < 3:
+        return np.zeros(n)
+    d = np.zeros(n)
+    pad = int(4 * HCDF_SIGMA_FRAMES) + 2
+    step = 1 << 15  # frames per chunk (bounded memory); chunks overlap by the smoothing reach
+    for a in range(0, n, step):
+        lo, hi = max(0, a - pad), min(n, a + step + pad)
+        tc = librosa.feature.tonnetz(chroma=ch[lo:hi].T.astype(np.float64))
+        tc = np.nan_to_num(tc)
+        tc = gaussian_filter1d(tc, HCDF_SIGMA_FRAMES, axis=1, mode="nearest")
+        dd = np.zeros(hi - lo)
+        dd[1:-1] = np.linalg.norm(tc[:, 2:] - tc[:, :-2], axis=0)
+        b = min(n, a + step)
+        d[a:b] = dd[a - lo: b - lo]
+    d[0] = d[-1] = 0.0
     return d
 
 
