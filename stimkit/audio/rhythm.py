@@ -60,17 +60,25 @@ class OnsetStrengthStream:
     def __init__(self, *, sr: int, n_fft: int, n_mels: int = 128):
         import librosa
 
-        self.mel = librosa.filters.mel(sr=sr, n_fft=n_fft, n_mels=n_mels).astype(np.float32)
+        from scipy import sparse
+
+        mel = librosa.filters.mel(sr=sr, n_fft=n_fft, n_mels=n_mels).astype(np.float32)
+        self.mel_t = sparse.csr_matrix(mel.T)  # (bins, mels); triangular filters: mostly zeros
         self._prev = None
 
     def push(self, power: np.ndarray) -> np.ndarray:
         if power.shape[0] == 0:
             return np.zeros(0, np.float32)
-        m = power @ self.mel.T  # (frames, mels)
+        m = np.asarray((sparse_left(power, self.mel_t)))  # (frames, mels)
         db = 10.0 * np.log10(np.maximum(m, 1e-10))
         prev = np.concatenate([db[:1] if self._prev is None else self._prev[None, :], db[:-1]], axis=0)
         self._prev = db[-1].copy()
         return np.maximum(db - prev, 0.0).mean(axis=1).astype(np.float32)
+
+
+def sparse_left(dense: np.ndarray, sp) -> np.ndarray:
+    """``dense @ sp`` for a dense (frames, bins) array and a sparse (bins, k) matrix."""
+    return (sp.T @ dense.T).T
 
 
 def detect_onsets(envelope: np.ndarray, *, frame_rate_hz: float) -> np.ndarray:

@@ -122,9 +122,9 @@ def harmonic_change(chroma: np.ndarray) -> np.ndarray:
 
 
 def _sethares(f_lo: np.ndarray, f_hi: np.ndarray) -> np.ndarray:
-    s = 0.24 / (0.0207 * f_lo + 18.96)
-    df = f_hi - f_lo
-    return np.exp(-3.5 * s * df) - np.exp(-5.75 * s * df)
+    s = np.float32(0.24) / (np.float32(0.0207) * f_lo + np.float32(18.96))
+    x = s * (f_hi - f_lo)
+    return np.exp(np.float32(-3.5) * x) - np.exp(np.float32(-5.75) * x)
 
 
 def roughness(power: np.ndarray, *, freqs: np.ndarray, n_peaks: int = N_PEAKS) -> np.ndarray:
@@ -139,10 +139,10 @@ def roughness(power: np.ndarray, *, freqs: np.ndarray, n_peaks: int = N_PEAKS) -
     pk = np.where(is_peak, mag, 0.0)
     k = min(n_peaks, pk.shape[1])
     idx = np.argpartition(-pk, k - 1, axis=1)[:, :k]
-    a = np.take_along_axis(pk, idx, axis=1).astype(np.float64)  # (frames, k)
-    f = freqs[idx]
+    a = np.take_along_axis(pk, idx, axis=1)  # (frames, k), float32
+    f = freqs.astype(np.float32)[idx]
     iu, ju = np.triu_indices(k, 1)
     fi, fj = f[:, iu], f[:, ju]
     lo, hi = np.minimum(fi, fj), np.maximum(fi, fj)
     d = _sethares(lo, hi)
-    return np.sum(a[:, iu] * a[:, ju] * d, axis=1)
+    return np.sum(a[:, iu] * a[:, ju] * d, axis=1, dtype=np.float64)
