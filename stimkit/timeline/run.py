@@ -44,7 +44,7 @@ from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offse
 __all__ = ["AnnotateResult", "annotate", "summary_lines", "output_base"]
 
 #: Seconds of recording kept on each side of a located piece for its alignment.
-SPAN_PAD_S = 3.0
+SPAN_PAD_S = 8.0
 #: Confidence below which a region of a piece is shaded in the report.
 LOW_CONFIDENCE = 0.5
 

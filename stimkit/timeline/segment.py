@@ -9,8 +9,9 @@ given by the user narrows the search to a window around it. Silence, speech and 
 between pieces are skipped because the score is matched as a *subsequence* of the recording:
 the path may start and end anywhere (subsequence DTW, Müller 2015, ch. 7.2).
 
-The matching itself is the alignment stage's :func:`stimkit.align.locate.locate_piece` when it
-is installed; otherwise a small built-in matcher is used (:func:`locate_by_chroma`: chroma of
+The matching itself is the alignment stage's :func:`stimkit.align.locate.locate_piece` (its
+recording features computed once for all pieces) when it is installed; otherwise a small
+built-in matcher is used (:func:`locate_by_chroma`: chroma of
 the score at its nominal tempo against chroma of the recording, cosine cost, librosa's
 subsequence DTW). Both answer to about a frame (0.25 s).
 
@@ -34,7 +35,7 @@ import soundfile as sf
 
 from ..errors import WorkFailed
 
-__all__ = ["PieceSpan", "find_pieces", "locate_by_chroma", "MAX_COST"]
+__all__ = ["PieceSpan", "find_pieces", "locate_by_chroma", "MAX_COST", "MAX_RATIO"]
 
 #: Mean path cost (cosine distance, 0..1) above which a piece counts as not found (measured on a
 #: rendered session: the pieces played matched at 0.17-0.21, pieces not played at 0.47-0.50).
@@ -152,12 +153,19 @@ def locate_by_chroma(score, audio_path, *, search_span_s=(0.0, None), hop_s: flo
     return start, end, path_cost
 
 
+#: Largest Raffel-Ellis cost ratio of the alignment stage's matcher that counts as found
+#: (measured on the bundled session: the pieces played 0.29-0.33, a piece searched where it was
+#: not played 0.66-0.72; the matcher's own notes give about 0.7 or more for a different piece).
+MAX_RATIO = 0.5
+
+
 def _locator():
     try:
+        from ..align.chroma import audio_features
         from ..align.locate import locate_piece  # the alignment stage's matcher
     except ImportError:
         return None
-    return locate_piece
+    return locate_piece, audio_features
 
 
 def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: float,
@@ -184,6 +192,10 @@ def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: flo
     # to keep the subsequence-DTW matrix small)
     hop_s = 0.25 if duration_s <= 1800 else 0.5
     chroma = None if locate is not None else _audio_chroma(audio_path, hop_s=hop_s, start_s=0.0, end_s=None)[0]
+    feats = None
+    if locate is not None:
+        locate, audio_features = locate
+        feats = audio_features(audio_path, progress=progress)  # once for all pieces
     spans: list[PieceSpan] = []
     floor = 0.0
     for k, (score, name, rough) in enumerate(zip(scores, names, rough_starts)):
@@ -201,9 +213,13 @@ def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: flo
         start = end = cost = None
         if locate is not None:
             try:
-                start, end, cost = locate(score, audio_path, search_span_s=(lo, hi))
+                start, end, cost = locate(score, audio_path, search_span_s=(lo, hi), features=feats)
             except WorkFailed as exc:
                 raise WorkFailed(f"piece '{name}' was not found in the recording ({exc})") from None
+            if cost > MAX_RATIO:
+                raise WorkFailed(f"piece '{name}' was not found in the recording between {lo:.0f} s "
+                                 f"and {hi:.0f} s (best match cost ratio {cost:.2f} > {MAX_RATIO:.2f}); "
+                                 f"check the score, the order of the pieces, or give start_s")
         else:
             method = "chroma subsequence DTW"
             start, end, cost = locate_by_chroma(score, audio_path, search_span_s=(lo, hi), hop_s=hop_s,
