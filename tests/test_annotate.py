@@ -6,7 +6,6 @@ input, 130 interrupted is the shell convention 128 + SIGINT).
 """
 
 import json
-import os
 import signal
 import subprocess
 import sys

@@ -37,7 +37,6 @@ starts at its first sounding note and ends at the release of its last note.
 
 from __future__ import annotations
 
-import json
 from dataclasses import dataclass, field
 from pathlib import Path
 
