@@ -4,7 +4,7 @@
 constant-Q transform (librosa) block by block with overlapping margins, and returns
 
 - ``chroma``: energy of each pitch class (CQT bins C2..B7 folded to 12), log-compressed and
-  L2-normalised per frame; frames below the silence floor get the flat vector;
+  L2-normalised per frame, with a 13th component for silence (:func:`finish_chroma`);
 - ``onset``: decaying locally adaptive normalised chroma-onset features (DLNCO, Ewert, Müller &
   Grosche 2009): per pitch the half-wave rectified increase of log energy, folded to 12 pitch
   classes, divided by the local maximum of the frame norms (window ``norm_window_s``) and
@@ -61,14 +61,14 @@ N_BINS = 72
 _MARGIN_HOPS = 128          # 2.6 s of context each side of a block (longest CQT filter ~0.3 s)
 CHROMA_GAMMA = 1.0
 ONSET_GAMMA = 1000.0
-SILENCE_DB = -60.0          # frames this far below the loudest are flat
+SILENCE_DB = -65.0          # frames this far below the loudest are silence (15 dB ramp above)
 
 
 @dataclass
 class AlignFeatures:
     """Frame-wise alignment features of one sequence (score or recording)."""
 
-    chroma: np.ndarray          # (n, 12) unit vectors
+    chroma: np.ndarray          # (n, 13) unit vectors: 12 pitch classes + silence
     onset: np.ndarray           # (n, 12) DLNCO
     rate_hz: float
     start_s: float = 0.0        # time of frame 0 (recording: seconds in the file; score: nominal)
@@ -139,23 +139,33 @@ def fold_octaves(pitch_energy, *, fmin_midi: int = FMIN_MIDI) -> np.ndarray:
 
 
 def finish_chroma(chroma_energy, *, floor_db: float = SILENCE_DB) -> np.ndarray:
-    """Log-compress and L2-normalise ``(frames, 12)`` chroma energy; quiet frames become flat.
+    """Log-compressed unit chroma plus a 13th "silence" component, ``(frames, 13)``.
 
-    Compression ``log(1 + gamma * x / max(x))`` (Müller 2015, ch. 3.1) with gamma = 100,
-    relative to the largest frame so that the level of the recording does not matter.
+    Compression ``log(1 + gamma * x / max(x))`` (Müller 2015, ch. 3.1), relative to the largest
+    frame so that the level of the recording does not matter. The 13th component is 0 for frames
+    louder than ``floor_db + 15`` dB (re the loudest frame), 1 below ``floor_db`` and linear in
+    between; the 12 chroma components are scaled by one minus it and the vector is renormalised.
+    So silence matches silence (cost 0) and nothing else (cost 1), while noise such as applause
+    or talk, being loud, keeps a near-flat chroma and does not pass for silence.
     """
     E = np.asarray(chroma_energy, dtype=np.float64)
     if E.size == 0:
-        return np.zeros((0, 12))
+        return np.zeros((0, 13))
     tot = E.sum(axis=1)
     peak = float(tot.max()) if tot.size else 0.0
-    flat = np.full(12, 1.0 / np.sqrt(12.0))
+    out = np.zeros((E.shape[0], 13))
     if peak <= 0:
-        return np.tile(flat, (E.shape[0], 1))
+        out[:, 12] = 1.0
+        return out
     X = np.log1p(CHROMA_GAMMA * E / E.max())
     nrm = np.linalg.norm(X, axis=1, keepdims=True)
-    quiet = (tot <= peak * 10 ** (floor_db / 10.0))[:, None] | (nrm < 1e-9)
-    return np.where(quiet, flat, X / np.maximum(nrm, 1e-12))
+    X = np.where(nrm > 1e-12, X / np.maximum(nrm, 1e-12), 0.0)
+    level = 10 * np.log10(np.maximum(tot, 1e-300) / peak)
+    sil = np.clip((floor_db + 15.0 - level) / 15.0, 0.0, 1.0)
+    sil = np.where(nrm[:, 0] > 1e-12, sil, 1.0)
+    out[:, :12] = X * (1.0 - sil)[:, None]
+    out[:, 12] = sil
+    return out / np.linalg.norm(out, axis=1, keepdims=True)
 
 
 def dlnco(onset_chroma, *, rate_hz: float, norm_window_s: float = 2.0, decay_frames: int = 10) -> np.ndarray:

@@ -74,6 +74,7 @@ from .warp import (
     flag_runs,
     merge_regions,
     mismatch_regions,
+    recording_cost_ratio,
     local_ratio,
     path_to_timemap,
     ratio_to_confidence,
@@ -109,6 +110,12 @@ LONG_FACTOR = 3.0
 #: Mean local-cost ratio a one-axis run needs to be flagged (a held chord matched to a longer hold
 #: runs flat at low cost and is not a cut).
 FLAG_MIN_RATIO = 0.6
+#: One-axis runs at least this long are flagged whatever their cost (no fermata is held that long
+#: beyond its notated length).
+FLAG_ALWAYS_S = 10.0
+#: An insertion run is trimmed to the recording frames whose path-cost ratio (1 s smoothing) is
+#: at least this (inserted talk or applause measured 0.85-1.1; a held chord next to it 0.55-0.7).
+TRIM_RATIO = 0.75
 #: Smoothed path-cost ratio above which a stretch of recording counts as not matching.
 MISMATCH_RATIO = 0.8
 FACTORS = (50, 5, 1)
@@ -327,13 +334,30 @@ def align_score(
     # flagged regions: one-axis runs with a high local cost, and stretches of high cost
     found = []
     lr_at = dict(zip(ui.tolist(), lr.tolist()))
+    rj, rr = recording_cost_ratio(path, costs, ref_cost=ref, rate_hz=rate, window_s=1.0)
     for reg in flag_runs(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
                          min_s=FLAG_MIN_S, score_start_s=S.start_s):
+        if reg["kind"] == "insertion":
+            # trim the ends of the run that still match (a held chord next to the insertion)
+            ja = round((reg["start"] - A.start_s) * rate)
+            jb = round((reg["end"] - A.start_s) * rate)
+            sel = (rj >= ja) & (rj <= jb)
+            bad = rj[sel][rr[sel] >= TRIM_RATIO]
+            if bad.size and (bad[-1] - bad[0]) / rate > FLAG_MIN_S:
+                reg["start"] = A.start_s + bad[0] / rate
+                reg["end"] = A.start_s + bad[-1] / rate
+                reg["cost_ratio"] = float(rr[sel][rr[sel] >= TRIM_RATIO].mean())
+                reg["duration_s"] = reg["end"] - reg["start"]
+                reg["reason"] = (f"{reg['duration_s']:.1f} s of recording ({reg['start']:.2f}-{reg['end']:.2f} s) "
+                                 f"match no score near score_qn {reg['score_qn_start']:.2f}: an inserted "
+                                 "passage, an interruption or a long pause")
+                found.append(reg)
+            continue
         sel = (path[:, 1] >= round((reg["start"] - A.start_s) * rate)) & \
               (path[:, 1] <= round((reg["end"] - A.start_s) * rate))
         rows = np.unique(path[sel, 0])
         run_cost = float(np.mean([lr_at.get(int(r), 0.0) for r in rows])) if rows.size else 0.0
-        if run_cost >= FLAG_MIN_RATIO:
+        if run_cost >= FLAG_MIN_RATIO or reg["duration_s"] >= FLAG_ALWAYS_S:
             reg["cost_ratio"] = run_cost
             found.append(reg)
     found += mismatch_regions(path, costs, ref_cost=ref, rate_hz=rate, rec_start_s=A.start_s,
@@ -389,7 +413,9 @@ def align_score(
         "confidence_ratio_good_bad": [RATIO_GOOD, RATIO_BAD],
         "flag_min_s": FLAG_MIN_S,
         "flag_min_ratio": FLAG_MIN_RATIO,
+        "flag_always_s": FLAG_ALWAYS_S,
         "mismatch_ratio": MISMATCH_RATIO,
+        "trim_ratio": TRIM_RATIO,
         "tempo_window_beats": TEMPO_WINDOW_BEATS,
         "score_template": "from the notes (harmonic model), lead-in 1 s",
     }

@@ -44,6 +44,7 @@ __all__ = [
     "local_ratio",
     "flag_runs",
     "mismatch_regions",
+    "recording_cost_ratio",
     "merge_regions",
 ]
 
@@ -137,7 +138,8 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
               slack_s: float = 0.3, score_start_s: float = 0.0):
     """Stretches where the path moves in one axis only for more than ``min_s`` seconds.
 
-    Steps in the other axis are tolerated up to ``slack_s`` seconds in a run. Returns a list of
+    Steps in the other axis are tolerated up to ``slack_s`` seconds per gap and 10 % of the run
+    in total (or ``slack_s``, whichever is larger). Returns a list of
     dicts ``kind`` ("cut" or "insertion"), ``start``/``end`` (recording s), ``score_qn_start``/
     ``score_qn_end``, ``duration_s`` (length along the moving axis) and ``reason``.
     """
@@ -169,7 +171,8 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
                     e2 += 1
                 # try to bridge a gap of other-axis steps
                 g = e2
-                while g < L and not only[g] and co[g + 1] - co[e2] <= slack:
+                while (g < L and not only[g] and co[g + 1] - co[e2] <= slack
+                       and co[g + 1] - co[k] <= max(slack, 0.1 * (cm[g + 1] - cm[k]))):
                     g += 1
                 if g < L and only[g] and g > e2:
                     e = g
@@ -197,6 +200,22 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
     return out
 
 
+def recording_cost_ratio(path, costs, *, ref_cost: float, rate_hz: float, window_s: float = 2.0):
+    """Path cost per recording frame (mean over its path cells), Hann-smoothed over ``window_s``,
+    divided by ``ref_cost``; returns ``(recording_frames, ratio)``."""
+    p = np.asarray(path, dtype=np.int64)
+    j = p[:, 1]
+    uj, start = np.unique(j, return_index=True)
+    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(j)))
+    n = max(int(round(window_s * rate_hz)), 1)
+    if n > 1 and len(c) > 1:
+        w = np.hanning(n + 2)[1:-1]
+        w /= w.sum()
+        pad = len(w) // 2
+        c = np.convolve(np.pad(c, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
+    return uj, c / max(ref_cost, 1e-9)
+
+
 def mismatch_regions(path, costs, *, ref_cost: float, rate_hz: float, rec_start_s: float,
                      score_start_s: float, tempo_map: TimeMap, min_ratio: float = 0.8,
                      min_s: float = 2.0, window_s: float = 2.0):
@@ -212,15 +231,7 @@ def mismatch_regions(path, costs, *, ref_cost: float, rate_hz: float, rec_start_
     """
     p = np.asarray(path, dtype=np.int64)
     j = p[:, 1]
-    uj, start = np.unique(j, return_index=True)
-    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(j)))
-    n = max(int(round(window_s * rate_hz)), 1)
-    if n > 1 and len(c) > 1:
-        w = np.hanning(n + 2)[1:-1]
-        w /= w.sum()
-        pad = len(w) // 2
-        c = np.convolve(np.pad(c, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
-    r = c / max(ref_cost, 1e-9)
+    uj, r = recording_cost_ratio(p, costs, ref_cost=ref_cost, rate_hz=rate_hz, window_s=window_s)
     high = r > min_ratio
     inv = tempo_map.inverse()
     nominal_span = (p[-1, 0] - p[0, 0]) / rate_hz

@@ -157,6 +157,24 @@ def test_cut_is_flagged_at_its_place(scores, recordings, tmp_path):
     assert not [r for r in align_score(scores["prayer"], wav).regions if r["kind"] == "cut"]
 
 
+def test_inserted_talk_is_flagged_at_its_place(scores, recordings, tmp_path):
+    """20 s of speech-like babble (the renderer's talk model) inserted at 30 s: one insertion,
+    from 30 s to 50 s (task: ± 3 s), and the path does not bend before it."""
+    from stimkit.align.run import align_score
+    from stimkit.render.sounds import babble
+
+    wav, perf, y = recordings["prayer"]
+    c0 = 30.0
+    ins = np.concatenate([y[: int(c0 * SR)], babble(SR, 20.0, seed=5).astype(np.float32), y[int(c0 * SR):]])
+    sf.write(tmp_path / "inserted.wav", ins, SR)
+    res = align_score(scores["prayer"], tmp_path / "inserted.wav")
+    hits = [r for r in res.regions if r["kind"] == "insertion"]
+    assert any(abs(r["start"] - c0) <= 3.0 and abs(r["end"] - (c0 + 20.0)) <= 3.0 for r in hits), res.regions
+    early = perf.notes[perf.notes["onset_s"] < c0 - 2.0]
+    err = np.abs(res.timemap(early["score_qn"].to_numpy()) - early["onset_s"].to_numpy())
+    assert np.median(err) <= 0.02  # the notes before the insertion keep the accuracy bar
+
+
 # -- bad input --------------------------------------------------------------------------------
 
 def test_score_without_notes(scores, recordings):
