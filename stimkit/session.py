@@ -22,6 +22,7 @@ The format is documented for users in ``docs/session-and-outputs.md``.
 from __future__ import annotations
 
 import math
+import os
 import re
 import tomllib
 from dataclasses import dataclass, field
@@ -179,7 +180,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
 
     def rel(p: str) -> Path:
         q = Path(p).expanduser()
-        return q if q.is_absolute() else base_dir / q
+        return Path(os.path.normpath(q if q.is_absolute() else base_dir / q))
 
     for k in sorted(set(data) - _TOP_KEYS):
         bad(f"unknown key '{k}' (known: {', '.join(sorted(_TOP_KEYS))})", key=k)

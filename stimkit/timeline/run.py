@@ -122,6 +122,13 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
     return fit, got, warnings + list(fit.warnings)
 
 
+def _defaults(fn, names) -> dict:
+    import inspect
+
+    sig = inspect.signature(fn)
+    return {n: sig.parameters[n].default for n in names if n in sig.parameters}
+
+
 def _timemap_call(tm):
     return lambda q: tm(np.asarray(q, dtype=np.float64))
 
@@ -298,7 +305,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     lap("sync")
 
     # pieces
-    from .segment import find_pieces
+    from .segment import MAX_RATIO, find_pieces
 
     names = [p.name for p in session.pieces]
     spans = find_pieces(scores, names, session.recording, rough_starts=[p.start_s for p in session.pieces],
@@ -457,6 +464,10 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         "force": session.force,
         "output": str(session.out_dir),
         "span_pad_s": SPAN_PAD_S,
+        "sync_detection": _defaults(detect_sync_marks, ("min_score", "min_jump_db", "min_level_db",
+                                                        "min_gap_s", "block_s")),
+        "piece_search_max_ratio": MAX_RATIO,
+        "low_confidence_below": LOW_CONFIDENCE,
         "pieces_found": [{"piece": s.piece, "start_s": s.start_s, "end_s": s.end_s, "cost": s.cost,
                           "method": s.method} for s in spans],
         "clock_fit": clock.to_dict(),
