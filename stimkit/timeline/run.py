@@ -401,7 +401,6 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         "RecordingSamplingFrequency": float(session.rate_hz),
         "ClockFit": clock.to_dict(),
     }
-    span = max(duration_s, 1.0)
     clock_label = "onset, recorder clock (s)" if synchronized else "recording time (s)"
 
     report_pieces = pd.DataFrame({
@@ -504,7 +503,6 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                                                    str(session.source or session.recording)],
             inputs=inputs, settings=settings, warnings=warnings, timings=timings)
         written.append(provenance.write_provenance(outs, prov, with_timings=True))
-    del span
     return AnnotateResult(out_dir=out_dir, base=base, written=[Path(w) for w in written], pieces=pieces_out,
                           clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings)
 
