@@ -33,7 +33,9 @@ values at 10 Hz, absolute gate -70 LUFS, relative gate -20 LU, 95th minus 10th p
 Maximum momentary / short-term: over full windows on the 5 ms grid (Tech 3341 asks for <= 10 ms).
 True peak: 4x oversampling with a 48-tap Kaiser-windowed interpolator (BS.1770-4 Annex 2 uses a
 48-tap, 4-phase filter); stretches whose bound cannot exceed the running peak are skipped, which
-leaves the result unchanged.
+leaves the result unchanged. The per-sample loops (K-weighting with the same transposed direct
+form II as ``scipy.signal.sosfilt``, and the oversampling) are numba kernels that release the GIL,
+so the meter can run in a thread beside the spectral analysis.
 
 References
 ----------
@@ -47,6 +49,7 @@ from __future__ import annotations
 
 import math
 
+import numba
 import numpy as np
 from scipy import signal
 
@@ -70,6 +73,52 @@ _SHELF_Q = 0.7071752369554196
 _SHELF_VB_EXP = 0.4996667741545416
 _HP_F0_HZ = 38.13547087602444
 _HP_Q = 0.5003270373238773
+
+
+@numba.njit(cache=True, nogil=True)
+def _kweight_pass(x, sos, zi, weights, power, amax):  # pragma: no cover - compiled
+    """One pass over ``x`` (n, ch): K-weighting biquads (transposed direct form II, as
+    ``scipy.signal.sosfilt``, state ``zi`` (sections, 2, ch) updated in place), the weighted sum of
+    squares per sample into ``power`` and the largest |sample| over channels into ``amax``."""
+    n, ch = x.shape
+    ns = sos.shape[0]
+    for i in range(n):
+        acc = 0.0
+        am = 0.0
+        for c in range(ch):
+            v = np.float64(x[i, c])
+            a = abs(v)
+            if a > am:
+                am = a
+            for k in range(ns):
+                y = sos[k, 0] * v + zi[k, 0, c]
+                zi[k, 0, c] = sos[k, 1] * v - sos[k, 4] * y + zi[k, 1, c]
+                zi[k, 1, c] = sos[k, 2] * v - sos[k, 5] * y
+                v = y
+            acc += weights[c] * v * v
+        power[i] = acc
+        amax[i] = am
+
+
+@numba.njit(cache=True, nogil=True)
+def _true_peak_chunks(seg, hot, chunk, hp, peak):  # pragma: no cover - compiled
+    """Largest |oversampled value| at the positions of the ``hot`` chunks of ``seg``
+    (history first); output between inputs i-1 and i is ``sum_j hp[j, p] * seg[i - j]``."""
+    T, P = hp.shape
+    n, ch = seg.shape
+    for h in hot:
+        lo = max(h * chunk, T - 1)
+        hi = min(h * chunk + chunk, n)
+        for i in range(lo, hi):
+            for c in range(ch):
+                for p in range(P):
+                    acc = 0.0
+                    for j in range(T):
+                        acc += hp[j, p] * seg[i - j, c]
+                    a = abs(acc)
+                    if a > peak:
+                        peak = a
+    return peak
 
 
 def k_weighting_sos(sample_rate_hz: float) -> np.ndarray:
@@ -278,24 +327,23 @@ class LoudnessMeter:
             x = x[:, None]
         if x.shape[0] == 0:
             return
-        y, self._zi = signal.sosfilt(self._sos, x, axis=0, zi=self._zi)
-        self.grid.push((y * y) @ self.weights)
-        a = np.abs(x)
-        amax = a[:, 0].copy()
-        for c in range(1, a.shape[1]):
-            np.maximum(amax, a[:, c], out=amax)
+        n = x.shape[0]
+        power = np.empty(n)
+        amax = np.empty(n)
+        _kweight_pass(np.ascontiguousarray(x), self._sos, self._zi, self.weights, power, amax)
+        self.grid.push(power)
         self.clipped_samples += int(np.count_nonzero(amax >= CLIP_LEVEL))
         self.sample_peak = max(self.sample_peak, float(amax.max()))
         if self._tp:
             self._true_peak_block(x, amax)
         self._result = None
 
-    def _true_peak_block(self, x: np.ndarray, amax: np.ndarray, batch: int = 1 << 18) -> None:
+    def _true_peak_block(self, x: np.ndarray, amax: np.ndarray) -> None:
         """Raise ``true_peak`` with the 4x-oversampled values of this block.
 
         Output samples between input ``i-1`` and ``i`` are ``sum_j h[4j+p] x[i-j]``; their size is
         at most ``L1 * max|x[i-T+1..i]|`` (``L1`` the largest per-phase tap sum), so only the
-        positions whose bound exceeds the running peak are computed.
+        chunks of positions whose bound exceeds the running peak are computed.
         """
         T = self._taps_phase
         self.true_peak = max(self.true_peak, float(amax.max()))
@@ -314,23 +362,13 @@ class LoudnessMeter:
         bound[1:] = np.maximum(cmax[1:], cmax[:-1])
         hot = np.flatnonzero(bound > self.true_peak / self._l1)
         hist = self._hist
-        self._hist = x[-(T - 1):].copy() if n >= T - 1 else np.concatenate([hist, x])[-(T - 1):]
+        self._hist = np.concatenate([hist, x])[-(T - 1):].astype(np.float64)
         self._hist_abs = padded[n_in - (T - 1):n_in].copy()
         if hot.size == 0:
             return
-        cand = (hot[:, None] * C + np.arange(C)[None, :]).ravel()
-        cand = cand[(cand >= T - 1) & (cand < n_in)]
-        if cand.size == 0:
-            return
-        seg = np.concatenate([hist, x], axis=0)
-        hp = self._hphase  # (T, up): hp[j, p] = h[up*j + p]
-        offs = np.arange(T)
-        for b0 in range(0, cand.size, batch):
-            ci = cand[b0:b0 + batch]
-            rows = ci[:, None] - offs[None, :]  # (n, T): x[i - j]
-            for ch in range(seg.shape[1]):
-                v = seg[rows, ch] @ hp  # (n, up)
-                self.true_peak = max(self.true_peak, float(np.max(np.abs(v))))
+        seg = np.concatenate([hist, x.astype(np.float64, copy=False)], axis=0)
+        self.true_peak = float(_true_peak_chunks(seg, hot.astype(np.int64), C, self._hphase,
+                                                 self.true_peak))
 
     # -- reading -------------------------------------------------------------------------
     def _grid(self):

@@ -46,7 +46,7 @@ import pandas as pd
 
 from ..errors import InputError
 from . import rhythm, silence, spectral, tonal
-from .loudness import EnergyGrid, LoudnessMeter, channel_weights, window_mean
+from .loudness import EnergyGrid, LoudnessMeter, window_mean
 from .read import MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, audio_info, iter_blocks
 
 __all__ = ["FeatureResult", "compute_features", "features_from_array", "write_features",
