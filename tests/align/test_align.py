@@ -157,6 +157,23 @@ def test_cut_is_flagged_at_its_place(scores, recordings, tmp_path):
     assert not [r for r in align_score(scores["prayer"], wav).regions if r["kind"] == "cut"]
 
 
+def test_applause_and_talk_around_the_piece_do_not_bend_the_path(scores, recordings, tmp_path):
+    """Applause before and talk after the music (the renderer's models): the open start and end
+    skip them; every note keeps the accuracy bar and nothing is flagged."""
+    from stimkit.align.run import align_score
+    from stimkit.render.sounds import applause, babble
+
+    _, perf, y = recordings["sonata"]
+    pre = applause(SR, 8.0, seed=1).astype(np.float32)
+    post = babble(SR, 8.0, seed=2).astype(np.float32)
+    sf.write(tmp_path / "framed.wav", np.concatenate([pre, y, post]), SR)
+    res = align_score(scores["sonata"], tmp_path / "framed.wav")
+    ref = perf.notes["onset_s"].to_numpy() + len(pre) / SR
+    err = np.abs(res.timemap(perf.notes["score_qn"].to_numpy()) - ref)
+    assert np.median(err) <= 0.02 and err.max() <= 0.3   # task thresholds (median 20 ms)
+    assert res.regions == []
+
+
 def test_inserted_talk_is_flagged_at_its_place(scores, recordings, tmp_path):
     """20 s of speech-like babble (the renderer's talk model) inserted at 30 s: one insertion,
     from 30 s to 50 s (task: ± 3 s), and the path does not bend before it."""
@@ -270,3 +287,12 @@ def test_locate_piece_in_a_long_recording(scores, recordings, tmp_path):
         assert start == pytest.approx(starts[k][0], abs=1.0)   # coarse search at ~2 Hz
         assert end == pytest.approx(starts[k][1], abs=2.5)     # the last note's release is long
         assert cost < 0.7
+    # then the fine alignment on that span: times stay seconds from the file's first sample
+    from stimkit.align.run import align_score
+
+    start, end, _ = locate_piece(scores["chorale"], features=feats)
+    res = align_score(scores["chorale"], tmp_path / "concert.wav", span_s=(start - 5.0, end + 5.0))
+    _, perf, _ = recordings["chorale"]
+    offset = starts["chorale"][0] - perf.notes["onset_s"].min()
+    err = np.abs(res.timemap(perf.notes["score_qn"].to_numpy()) - (perf.notes["onset_s"].to_numpy() + offset))
+    assert np.median(err) <= 0.02   # task threshold
