@@ -318,8 +318,8 @@ def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: f
     """Pick, among detected marks, the one that goes with each recorder time.
 
     The recorder times fix the spacing of the marks; every detected mark is tried as the
-    partner of the first recorder time, the others are predicted from the spacing and matched
-    to the nearest detected mark within ``tol_s + max_drift_ppm * 1e-6 * spacing``. The anchor
+    partner of every recorder time, the others are predicted from the spacing and matched to
+    the nearest detected mark within ``tol_s + max_drift_ppm * 1e-6 * spacing``. The anchor
     matching the most recorder times (then the smallest total error) wins, so extra detections
     (claps that look like clicks, say) are ignored.
 
@@ -331,23 +331,24 @@ def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: f
     det = np.sort(np.asarray(detected_s, dtype=np.float64))
     rec = np.asarray(recorder_s, dtype=np.float64)
     best = (-1, np.inf, np.full(rec.size, np.nan))
-    for d0 in det:
-        pred = d0 + (rec - rec[0])
-        tol = tol_s + max_drift_ppm * 1e-6 * np.abs(rec - rec[0])
-        j = np.clip(np.searchsorted(det, pred), 1, max(det.size - 1, 1))
-        cand = np.stack([det[j - 1], det[np.minimum(j, det.size - 1)]])
-        k = np.argmin(np.abs(cand - pred), axis=0)
-        near = cand[k, np.arange(rec.size)]
-        err = np.abs(near - pred)
-        ok = err <= tol
-        got = np.where(ok, near, np.nan)
-        # one detection may serve one recorder time only
-        vals = got[ok]
-        if vals.size != np.unique(vals).size:
-            continue
-        score = (int(ok.sum()), -float(err[ok].sum()))
-        if score > (best[0], -best[1]):
-            best = (score[0], -score[1], got)
+    if det.size == 0:
+        return best[2], list(range(rec.size))
+    for i0 in range(rec.size):          # the recorder time taken as the anchor
+        for d0 in det:                  # the detection taken as its partner
+            pred = d0 + (rec - rec[i0])
+            tol = tol_s + max_drift_ppm * 1e-6 * np.abs(rec - rec[i0])
+            j = np.clip(np.searchsorted(det, pred), 1, max(det.size - 1, 1))
+            cand = np.stack([det[j - 1], det[np.minimum(j, det.size - 1)]])
+            k = np.argmin(np.abs(cand - pred), axis=0)
+            near = cand[k, np.arange(rec.size)]
+            err = np.abs(near - pred)
+            ok = err <= tol
+            vals = near[ok]
+            if vals.size != np.unique(vals).size:  # one detection serves one recorder time
+                continue
+            score = (int(ok.sum()), -float(err[ok].sum()))
+            if score > (best[0], -best[1]):
+                best = (score[0], -score[1], np.where(ok, near, np.nan))
     got = best[2]
     return got, [int(i) for i in np.flatnonzero(~np.isfinite(got))]
 

@@ -124,6 +124,10 @@ def test_pairing_ignores_extra_detections():
     assert missing == []
     got, missing = pair_marks([2.0, 23.45, 41.43, 57.5], [10.0, 39.0012, 65.5021])
     assert missing == [1]
+    # the first mark missing: the others are still paired, and the missing one is named
+    got, missing = pair_marks([23.45, 31.0, 41.43, 57.5], [10.0, 39.0012, 65.5021])
+    assert missing == [0]
+    np.testing.assert_allclose(got[1:], [31.0, 57.5])
 
 
 def test_two_point_fit_matches_formula():
