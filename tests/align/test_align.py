@@ -138,6 +138,21 @@ def test_wrong_piece_is_refused(scores, recordings):
     assert forced.confidence["overall"] < 0.5
 
 
+def test_wrong_chorale_in_the_same_style_is_refused(tmp_path):
+    """Two four-part chorales: similar texture and style, different pieces. The path-cost ratio
+    alone separates them poorly (measured 0.55 here, right pieces 0.37-0.49); the key test does."""
+    import music21
+
+    from stimkit.align.run import align_score
+    from stimkit.score.parse import load_score
+
+    a = load_score(music21.corpus.getWork("bach/bwv10.7"))      # music21 corpus, used in place
+    b = load_score(music21.corpus.getWork("bach/bwv102.7"))
+    render(b, tmp_path / "other.wav", seed=8)
+    with pytest.raises(WorkFailed, match="different piece"):
+        align_score(a, tmp_path / "other.wav")
+
+
 def test_right_piece_is_confident(chorale_result):
     c = chorale_result.confidence
     assert c["overall"] > 0.5 and c["key_ratio"] < 0.8 and c["best_key_shift"] == 0
