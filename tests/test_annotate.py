@@ -131,3 +131,16 @@ def test_sigint_leaves_nothing(tmp_path, one_piece):
         pytest.skip("the run finished before the interrupt arrived")
     assert code == 130
     assert files == []
+
+
+def test_plain_offset_shifts_every_time(tmp_path, one_piece):
+    # REFERENCES.md clock sync: with no drift, onset = recording + offset
+    p = _session(tmp_path, one_piece[0], f'[sync]\noffset_s = 2.5\n[[piece]]\nscore = "{SHORT}"\n')
+    assert main(["annotate", str(p)]) == 0
+    out = tmp_path / "out"
+    ev = pd.read_csv(out / "one-piece_events.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
+    np.testing.assert_allclose(ev.onset, ev.recording + 2.5, atol=2e-6)
+    side = json.loads((out / "one-piece_stim.json").read_text())
+    assert side["StartTime"] == pytest.approx(side["RecordingStartTime"] + 2.5, abs=1e-6)
+    assert side["SamplingFrequency"] == pytest.approx(10.0)
+    assert json.loads((out / "one-piece_events.json").read_text())["OnsetClock"]["Synchronized"] is True
