@@ -89,7 +89,7 @@ def cqt_pitch_energy(y, *, sr: int = SR, hop: int = HOP) -> np.ndarray:
 
     C = librosa.cqt(y, sr=sr, hop_length=hop, fmin=librosa.midi_to_hz(FMIN_MIDI), n_bins=N_BINS,
                     bins_per_octave=12, pad_mode="constant")
-    return (np.abs(C) ** 2).T.astype(np.float64)
+    return (np.abs(C) ** 2).T.astype(np.float32)   # float32: 3 h of frames stay ~150 MB
 
 
 def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=None, total_frames=None):
@@ -131,10 +131,10 @@ def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=
 
 def fold_octaves(pitch_energy, *, fmin_midi: int = FMIN_MIDI) -> np.ndarray:
     """Sum a ``(frames, bins)`` semitone array into 12 pitch classes (column 0 = C)."""
-    P = np.asarray(pitch_energy, dtype=np.float64)
+    P = np.asarray(pitch_energy)
     out = np.zeros((P.shape[0], 12))
     for b in range(P.shape[1]):
-        out[:, (fmin_midi + b) % 12] += P[:, b]
+        out[:, (fmin_midi + b) % 12] += P[:, b]       # accumulates in float64
     return out
 
 
@@ -193,15 +193,28 @@ def dlnco(onset_chroma, *, rate_hz: float, norm_window_s: float = 2.0, decay_fra
     return out
 
 
-def onset_from_pitch_energy(P, *, rate_hz: float = RATE_HZ) -> np.ndarray:
-    """Chroma-onset strengths from CQT power: rectified increase of log energy, folded to 12."""
-    P = np.asarray(P, dtype=np.float64)
-    if P.shape[0] == 0:
-        return np.zeros((0, 12))
-    L = np.log1p(ONSET_GAMMA * P / max(float(P.max()), 1e-30))
-    D = np.zeros_like(L)
-    D[1:] = np.maximum(L[1:] - L[:-1], 0.0)
-    return fold_octaves(D)
+def onset_from_pitch_energy(P, *, rate_hz: float = RATE_HZ, chunk_frames: int = 20000) -> np.ndarray:
+    """Chroma-onset strengths from CQT power: rectified increase of log energy, folded to 12.
+
+    Log compression ``log(1 + 1000 * P / max(P))`` per pitch, computed in chunks of
+    ``chunk_frames`` so that temporaries stay small for long recordings.
+    """
+    P = np.asarray(P)
+    n = P.shape[0]
+    out = np.zeros((n, 12))
+    if n == 0:
+        return out
+    scale = ONSET_GAMMA / max(float(P.max()), 1e-30)
+    prev = None
+    for a in range(0, n, chunk_frames):
+        L = np.log1p(scale * P[a:a + chunk_frames].astype(np.float64))
+        D = np.zeros_like(L)
+        D[1:] = np.maximum(L[1:] - L[:-1], 0.0)
+        if prev is not None:
+            D[0] = np.maximum(L[0] - prev, 0.0)
+        prev = L[-1]
+        out[a:a + chunk_frames] = fold_octaves(D)
+    return out
 
 
 def audio_features(
@@ -250,7 +263,7 @@ def audio_features(
 
     P, n_samples = _blockwise_energy(blocks(), block_frames=block_frames, sr=SR, hop=HOP,
                                      progress=progress, total_frames=total_frames)
-    energy = P.mean(axis=1) if P.size else np.zeros(0)
+    energy = P.mean(axis=1, dtype=np.float64) if P.size else np.zeros(0)
     chroma = finish_chroma(fold_octaves(P))
     onset = dlnco(onset_from_pitch_energy(P), rate_hz=RATE_HZ)
     return AlignFeatures(chroma=chroma, onset=onset, rate_hz=RATE_HZ, start_s=float(start),
