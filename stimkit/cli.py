@@ -117,7 +117,7 @@ def align(
     score: Path = typer.Argument(..., help="Score file."),
     audio: Path = typer.Argument(..., help="Recording of a performance of that score."),
     out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
-    anchor: List[str] = typer.Option([], "--anchor", help="MEASURE[.BEAT][@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
+    anchor: List[str] = typer.Option([], "--anchor", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
     force: bool = typer.Option(False, "--force", help="Write the alignment even when it looks like a wrong piece."),
     no_repeats: bool = typer.Option(False, "--no-repeats", help="Align the printed order."),
 ):
