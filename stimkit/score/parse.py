@@ -600,15 +600,23 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     """
     from . import markings, tempomap
 
+    import warnings as _warnings
+
     path = Path(path)
-    score = read_music21(path)
+    with _warnings.catch_warnings(record=True) as caught:
+        _warnings.simplefilter("always")
+        score = read_music21(path)
+    m21_warnings = list(dict.fromkeys(" ".join(str(w.message).split()) for w in caught
+                                      if "music21" in str(getattr(w, "filename", "")) or
+                                      type(w.message).__name__.endswith("Warning")))
     is_midi = path.suffix.lower() in MIDI_SUFFIXES
     printed = collect_printed(score, path=path, keep_velocity=is_midi)
     printed.is_midi = is_midi
     if printed.notes.empty:
-        raise InputError("score has no notes; nothing to plan", path=path)
+        raise InputError("score has no pitched notes; nothing to plan (percussion-only and empty "
+                         "scores are not supported)", path=path)
     perf, warns = performed_bars(printed, expand_repeats=expand_repeats)
-    warnings = list(printed.warnings) + warns
+    warnings = [f"music21: {w}" for w in m21_warnings[:20]] + list(printed.warnings) + warns
 
     measures = perf[["measure", "pass", "score_qn", "duration_qn", "numerator", "denominator",
                      "beat_qn", "first_beat"]].copy()

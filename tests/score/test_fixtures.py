@@ -366,3 +366,15 @@ def test_dal_segno_resumes_the_key_of_the_segno_bar(tmp_path):
     k = rows(m, "key")
     assert k["label"].tolist() == ["G major", "D major", "G major"]
     assert k["score_qn"].tolist() == [0.0, 12.0, 16.0]
+
+
+def test_music21_import_warnings_become_model_warnings(tmp_path, recwarn):
+    # a 3/4 bar overfull by 0.1 quarter (31 of 30 divisions): music21 warns while importing; the
+    # library keeps the message in the model's warnings instead of letting it reach the terminal
+    odd = ("<attributes><divisions>10</divisions><time><beats>3</beats><beat-type>4</beat-type></time>"
+           "</attributes><note><pitch><step>C</step><octave>5</octave></pitch><duration>31</duration></note>")
+    ms = [measure(1, odd), measure(2, "<note><pitch><step>D</step><octave>5</octave></pitch>"
+                                      "<duration>30</duration></note>")]
+    m = load_score(write(tmp_path, "over.musicxml", score([("P", ms)])))
+    assert any(w.startswith("music21:") and "overfull" in w for w in m.warnings)
+    assert not [w for w in recwarn if "overfull" in str(w.message)]

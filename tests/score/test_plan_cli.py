@@ -135,7 +135,7 @@ def test_score_without_notes(tmp_path, capsys):
     p = write(tmp_path, "empty.musicxml", score([("P", ms)]))
     rc, _, err = run(["plan", str(p), "-o", str(tmp_path / "o")], capsys)
     assert_refused(rc, err, tmp_path / "o")
-    assert "no notes" in err
+    assert "no pitched notes" in err
 
 
 @pytest.mark.parametrize("bpm", [0, -60])
