@@ -3,13 +3,15 @@
 What it computes
 ----------------
 1. :func:`detect_sync_marks` scans a recording (streamed in blocks, so a concert-length file is
-   never held in memory) for short tone bursts or clicks at a stated frequency and returns the
+   never held in memory) for tone bursts or clicks at a stated frequency and returns the
    ``recording`` time of each mark's start.
-2. :func:`fit_clock` pairs those times with the times the physiological recorder logged for the
-   same marks and fits ``onset = offset_s + slope * recording`` by least squares; drift in ppm is
-   ``(slope - 1) * 1e6``. :func:`offset_clock` is the plain-offset case, :func:`identity_clock`
-   the no-sync case (``onset`` = ``recording``).
-3. :func:`read_recorder_times` reads the recorder's times from one column of a CSV/TSV file.
+2. :func:`pair_marks` picks, among the detected marks, the one that goes with each time the
+   physiological recorder logged, by their spacing (extra detections are ignored).
+3. :func:`fit_clock` fits ``onset = offset_s + slope * recording`` through the pairs by least
+   squares; drift in ppm is ``(slope - 1) * 1e6``, residuals over 2 ms are warned about.
+   :func:`offset_clock` is the plain-offset case, :func:`identity_clock` the no-sync case
+   (``onset`` = ``recording``).
+4. :func:`read_recorder_times` reads the recorder's times from one column of a CSV/TSV file.
 
 Conventions
 -----------
@@ -22,10 +24,12 @@ Conventions
 
 Method
 ------
-Detection by a quadrature matched filter: the recording is correlated with a complex tone of the
-stated frequency and duration; the magnitude, divided by the energy of the signal under the
-template (normalised cross-correlation), is near 1 where a burst at that frequency stands alone
-and small for broadband or differently pitched sound (Turin 1960). Timing by complex
+Bursts are detected by a quadrature matched filter: the recording is correlated with a complex
+tone of the stated frequency and duration; the magnitude, divided by the energy of the signal
+under the template (normalised cross-correlation), is near 1 where a burst at that frequency
+stands alone and small for broadband or differently pitched sound (Turin 1960). Clicks, too
+short for that, are detected as a jump of the demodulated envelope over its mean of the
+preceding 200 ms (an energy-onset detector at the stated frequency). Timing by complex
 demodulation at the stated frequency (the signal times ``exp(-2j pi f t)``, smoothed by a short
 symmetric low-pass, is the burst's envelope; Oppenheim & Schafer 2010, ch. 12 on the analytic
 signal): a zero-phase smoother keeps the half-height crossing of a step at the step.
