@@ -606,9 +606,10 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     with _warnings.catch_warnings(record=True) as caught:
         _warnings.simplefilter("always")
         score = read_music21(path)
-    m21_warnings = list(dict.fromkeys(" ".join(str(w.message).split()) for w in caught
-                                      if "music21" in str(getattr(w, "filename", "")) or
-                                      type(w.message).__name__.endswith("Warning")))
+    m21_warnings = list(dict.fromkeys(
+        " ".join(str(w.message).split()) for w in caught
+        if type(w.message).__module__.startswith("music21")
+        and not issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning))))
     is_midi = path.suffix.lower() in MIDI_SUFFIXES
     printed = collect_printed(score, path=path, keep_velocity=is_midi)
     printed.is_midi = is_midi
