@@ -311,3 +311,23 @@ def test_locate_piece_in_a_long_recording(scores, recordings, tmp_path):
     offset = starts["chorale"][0] - perf.notes["onset_s"].min()
     err = np.abs(res.timemap(perf.notes["score_qn"].to_numpy()) - (perf.notes["onset_s"].to_numpy() + offset))
     assert np.median(err) <= 0.02   # task threshold
+
+
+def test_cli_exit_codes_and_nothing_half_written(recordings, tmp_path):
+    """`stimkit align`: 0 and two files; a wrong piece exits 1, a bad anchor 2, both writing nothing."""
+    import music21
+
+    from stimkit.cli import main
+
+    chorale = str(music21.corpus.getWork("bach/bwv66.6"))
+    sonata_wav = str(recordings["sonata"][0])
+    ok = tmp_path / "ok"
+    perf = recordings["chorale"][1]
+    bar2 = perf.beats[(perf.beats["measure"] == 2) & (perf.beats["beat"] == 1)]["recording"].iloc[0]
+    assert main(["align", chorale, str(recordings["chorale"][0]), "-o", str(ok),
+                 "--anchor", f"2={bar2:.3f}"]) == 0
+    assert sorted(p.name for p in ok.iterdir()) == ["chorale.alignment.json", "chorale.alignment.tsv"]
+    bad = tmp_path / "bad"
+    assert main(["align", chorale, sonata_wav, "-o", str(bad)]) == 1
+    assert main(["align", chorale, sonata_wav, "-o", str(bad), "--anchor", "2.x=4"]) == 2
+    assert not bad.exists() or not any(bad.iterdir())
