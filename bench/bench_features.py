@@ -10,7 +10,8 @@ Run by hand: ``.venv/bin/python bench/bench_features.py [--minutes 30] [--flat 1
    - naive: ``librosa.load(sr=22050)`` (whole file, resampled), ``librosa.stft``,
      ``onset_strength`` + frame-wise ``tempo``, ``chroma_stft``, ``spectral_centroid``, and
      pyloudnorm's integrated loudness on the whole file read with ``soundfile.read``.
-3. Prints both wall times, the ratio and both peak memories; then stimkit alone on a short and a
+3. Alternates the two sides ``--repeat`` times (the machine's load changes) and prints the median
+   wall and CPU times, their ratios and both peak memories; then stimkit alone on a short and a
    long file to show that its memory does not grow with length.
 """
 
@@ -48,8 +49,9 @@ else:
     data, rate = sf.read(path)
     lufs = pyloudnorm.Meter(rate, filter_class="DeMan").integrated_loudness(data)
 elapsed = time.perf_counter() - t0
-peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
-print(json.dumps({"seconds": elapsed, "peak_rss_mb": peak_mb}))
+ru = resource.getrusage(resource.RUSAGE_SELF)
+print(json.dumps({"seconds": elapsed, "cpu_s": ru.ru_utime + ru.ru_stime,
+                  "peak_rss_mb": ru.ru_maxrss / 1024.0}))
 """
 
 
@@ -114,6 +116,7 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--minutes", type=float, default=30.0)
     ap.add_argument("--flat", type=float, nargs=2, default=(10.0, 60.0), metavar=("SHORT", "LONG"))
+    ap.add_argument("--repeat", type=int, default=3, help="alternating runs of each side")
     ap.add_argument("--keep", type=Path, default=None, help="folder for the generated files (kept)")
     args = ap.parse_args()
     work = args.keep or Path(tempfile.mkdtemp(prefix="stimkit-bench-"))
@@ -122,20 +125,31 @@ def main() -> None:
     t = time.perf_counter()
     main_file = make_recording(work / f"bench_{args.minutes:g}min.flac", args.minutes)
     print(f"generated {main_file.name} ({main_file.stat().st_size / 1e6:.0f} MB) in {time.perf_counter() - t:.0f} s")
-    ours = run("stimkit", main_file, work / "out")
-    naive = run("naive", main_file, work / "out-naive")
-    print(f"{args.minutes:g} min, 44.1 kHz stereo FLAC")
-    print(f"  stimkit features (streaming, all features): {ours['seconds']:7.1f} s  peak RSS {ours['peak_rss_mb']:6.0f} MB")
-    print(f"  naive (whole file, librosa + pyloudnorm):   {naive['seconds']:7.1f} s  peak RSS {naive['peak_rss_mb']:6.0f} MB")
-    print(f"  speed ratio naive / stimkit: {naive['seconds'] / ours['seconds']:.2f}x   "
-          f"memory ratio: {naive['peak_rss_mb'] / ours['peak_rss_mb']:.2f}x")
+    run("stimkit", main_file, work / "warm")  # compile-once numba caches, file in page cache
+    # alternate the two sides so that a change in machine load hits both; report the medians
+    ours_runs, naive_runs = [], []
+    for _ in range(args.repeat):
+        ours_runs.append(run("stimkit", main_file, work / "out"))
+        naive_runs.append(run("naive", main_file, work / "out-naive"))
+    med = lambda runs, k: float(np.median([r[k] for r in runs]))
+    ours = {k: med(ours_runs, k) for k in ours_runs[0]}
+    naive = {k: med(naive_runs, k) for k in naive_runs[0]}
+    print(f"{args.minutes:g} min, 44.1 kHz stereo FLAC (median of {args.repeat} alternating runs)")
+    for label, r in (("stimkit features (streaming, all features)", ours),
+                     ("naive (whole file, librosa + pyloudnorm)  ", naive)):
+        print(f"  {label}: wall {r['seconds']:6.1f} s  cpu {r['cpu_s']:6.1f} s  peak RSS {r['peak_rss_mb']:6.0f} MB")
+    print(f"  speed ratio naive / stimkit: wall {naive['seconds'] / ours['seconds']:.2f}x, "
+          f"cpu {naive['cpu_s'] / ours['cpu_s']:.2f}x;  memory ratio {naive['peak_rss_mb'] / ours['peak_rss_mb']:.2f}x")
+    print("  per-run wall s (stimkit / naive): " + ", ".join(
+        f"{a['seconds']:.1f}/{b['seconds']:.1f}" for a, b in zip(ours_runs, naive_runs)))
 
     short, long_ = args.flat
     res = {}
     for m in (short, long_):
         f = make_recording(work / f"bench_{m:g}min.flac", m)
         res[m] = run("stimkit", f, work / f"out-{m:g}")
-        print(f"  stimkit on {m:g} min: {res[m]['seconds']:7.1f} s  peak RSS {res[m]['peak_rss_mb']:6.0f} MB")
+        print(f"  stimkit on {m:g} min: wall {res[m]['seconds']:6.1f} s  cpu {res[m]['cpu_s']:6.1f} s  "
+              f"peak RSS {res[m]['peak_rss_mb']:6.0f} MB")
     print(f"  peak RSS {long_:g} min / {short:g} min: {res[long_]['peak_rss_mb'] / res[short]['peak_rss_mb']:.2f}")
     if args.keep is None:
         for p in sorted(work.rglob("*"), reverse=True):

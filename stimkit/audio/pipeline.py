@@ -240,8 +240,19 @@ def _level_db(power: np.ndarray, offset: float = 0.0) -> np.ndarray:
     return np.maximum(np.where(np.isnan(db), LEVEL_FLOOR_DB, db), LEVEL_FLOOR_DB)
 
 
-def _run(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int, n_samples: int,
-         rate_hz: float, progress: Callable | None, counts: dict, start_s: float) -> tuple:
+def _run(blocks, **kw) -> tuple:
+    """The analysis with BLAS kept to one thread: its matrices are small, and idle BLAS threads
+    spinning beside the reader and loudness threads cost more than they give."""
+    try:
+        from threadpoolctl import threadpool_limits
+    except ImportError:  # pragma: no cover - threadpoolctl comes with librosa's dependencies
+        return _analyse(blocks, **kw)
+    with threadpool_limits(limits=1, user_api="blas"):
+        return _analyse(blocks, **kw)
+
+
+def _analyse(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int, n_samples: int,
+             rate_hz: float, progress: Callable | None, counts: dict, start_s: float) -> tuple:
     an = _Analyser(sample_rate_hz=sample_rate_hz, channels=channels)
     done = 0
     for block in blocks:
