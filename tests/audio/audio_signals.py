@@ -37,7 +37,6 @@ def drum_pattern(bpm, *, seconds=12.0, sr=SR, seed=0):
 def note_sequence(*, n_notes=40, sr=SR, seed=3):
     """Harmonic notes of random pitch, length and level; returns (samples, onset times)."""
     rng = np.random.default_rng(seed)
-    t = 0.3
     onsets = []
     parts = [np.zeros(int(0.3 * sr))]
     for _ in range(n_notes):

@@ -125,6 +125,7 @@ def test_audio_info_names_the_file(tmp_path):
 # ---- bad and unusual input through the CLI ------------------------------------------------
 
 def _run(tmp_path, path, *args):
+    tmp_path.mkdir(parents=True, exist_ok=True)
     out = tmp_path / "out"
     code = main(["features", str(path), "-o", str(out), *args])
     written = sorted(p.name for p in out.iterdir()) if out.exists() else []
@@ -175,6 +176,7 @@ def test_all_zeros_nan_inf_and_clipping(tmp_path):
     # all zeros: works; integrated loudness and LRA undefined (n/a / null), levels at the floor
     z = tmp_path / "zeros.wav"
     sf.write(z, np.zeros((3 * SR, 2)), SR)
+    assert _run(tmp_path / "z", z)[0] == 0
     r = compute_features(z)
     assert np.isnan(r.summary["integrated_lufs"]) and (r.frame["momentary_lufs"] == -120).all()
     assert r.frame["silent"].eq(1).all()
@@ -184,12 +186,14 @@ def test_all_zeros_nan_inf_and_clipping(tmp_path):
     x[300, 1] = np.inf
     p = tmp_path / "nan.wav"
     sf.write(p, x, SR, subtype="FLOAT")
+    assert _run(tmp_path / "n", p)[0] == 0
     r = compute_features(p)
     assert r.summary["nonfinite_samples"] == 101
     assert np.isfinite(r.frame.drop(columns=["key", "tempo_bpm"]).to_numpy(float)).all()
     # clipped audio: works; samples at full scale are counted
     c = tmp_path / "clip.wav"
     sf.write(c, np.clip(3 * rng.standard_normal((3 * SR, 2)), -1, 1), SR, subtype="PCM_16")
+    assert _run(tmp_path / "c", c)[0] == 0
     r = compute_features(c)
     assert r.summary["clipped_samples"] > 0
     assert r.summary["sample_peak_dbfs"] == pytest.approx(0.0, abs=0.01)
