@@ -373,7 +373,7 @@ def multiscale_dtw(
 
     Parameters
     ----------
-    chroma_s, chroma_r : ndarray (N, 12), (M, 12)
+    chroma_s, chroma_r : ndarray (N, 13), (M, 13)
         Unit chroma of the score and the recording at the finest rate.
     onset_s, onset_r : ndarray or None
         Chroma-onset features, used at the finest level only (factor 1).
@@ -391,7 +391,6 @@ def multiscale_dtw(
     path), ``coarse_cost_ratio`` (mean path cost ÷ mean matrix cost at the coarsest level,
     Raffel & Ellis 2016) and ``band_cells`` (largest band stored).
     """
-    n, m = len(chroma_s), len(chroma_r)
     levels = []
     path = None
     prev_factor = None
