@@ -337,8 +337,9 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
 def summary_lines(result: AnnotateResult) -> list[str]:
     """Short lines for people: pieces, boundaries, confidence, clock, outputs."""
     lines = []
+    kind = "recording time" if result.clock.method == "none" else "recorder clock"
     for p in result.pieces:
-        lines.append(f"piece {p.name}: {p.start_onset_s:.3f} s to {p.end_onset_s:.3f} s "
+        lines.append(f"piece {p.name}: {p.start_onset_s:.3f} s to {p.end_onset_s:.3f} s {kind} "
                      f"({p.n_boundaries} boundaries, median confidence {p.median_confidence:.2f})")
     n_b = sum(p.n_boundaries for p in result.pieces)
     med = float(np.nanmedian([p.median_confidence for p in result.pieces])) if result.pieces else float("nan")
