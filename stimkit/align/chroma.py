@@ -16,6 +16,8 @@ Conventions
 - ``recording`` time: frame ``k`` is centred at ``start_s + k * hop / sr`` seconds from the first
   sample of the file (librosa ``center=True`` framing; block margins are whole hops, so blocks
   join without a seam).
+- Tuning: the CQT bins follow the recording's own tuning (:func:`estimate_tuning`, librosa's
+  spectral-peak estimate on the first two minutes), as in librosa's ``chroma_cqt``.
 - The hop is 448 samples at 22 050 Hz (49.2 Hz frame rate): a multiple of 64, the condition under
   which the multirate CQT stays fast (REFERENCES.md, *measured*).
 - The post-processing (:func:`finish_chroma`, :func:`dlnco`) is shared with the score side
@@ -45,6 +47,7 @@ __all__ = [
     "RATE_HZ",
     "AlignFeatures",
     "audio_features",
+    "estimate_tuning",
     "cqt_pitch_energy",
     "finish_chroma",
     "fold_octaves",
@@ -60,6 +63,7 @@ N_BINS = 72
 _MARGIN_HOPS = 128          # 2.6 s of context each side of a block (longest CQT filter ~0.3 s)
 CHROMA_GAMMA = 1.0
 ONSET_GAMMA = 1000.0
+TUNING_WINDOW_S = 120.0     # seconds at the start used to estimate the tuning
 SILENCE_DB = -65.0          # frames this far below the loudest are silence (15 dB ramp above)
 
 
@@ -82,16 +86,18 @@ class AlignFeatures:
         return self.start_s + np.arange(self.n_frames) / self.rate_hz
 
 
-def cqt_pitch_energy(y, *, sr: int = SR, hop: int = HOP) -> np.ndarray:
-    """CQT power ``(frames, N_BINS)`` of ``y``, frames centred at ``k * hop``."""
+def cqt_pitch_energy(y, *, sr: int = SR, hop: int = HOP, tuning: float = 0.0) -> np.ndarray:
+    """CQT power ``(frames, N_BINS)`` of ``y``, frames centred at ``k * hop``; bins shifted by
+    ``tuning`` (fraction of a semitone, as in librosa)."""
     import librosa
 
     C = librosa.cqt(y, sr=sr, hop_length=hop, fmin=librosa.midi_to_hz(FMIN_MIDI), n_bins=N_BINS,
-                    bins_per_octave=12, pad_mode="constant")
+                    bins_per_octave=12, tuning=tuning, pad_mode="constant")
     return (np.abs(C) ** 2).T.astype(np.float32)   # float32: 3 h of frames stay ~150 MB
 
 
-def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=None, total_frames=None):
+def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=None, total_frames=None,
+                      tuning: float = 0.0):
     """Stream blocks of samples, return CQT power of every frame of the whole signal."""
     margin = _MARGIN_HOPS * hop
     need = block_frames * hop
@@ -100,7 +106,7 @@ def _blockwise_energy(blocks, *, block_frames: int, sr: int, hop: int, progress=
     done = 0
 
     def emit(chunk, n_frames):
-        P = cqt_pitch_energy(chunk, sr=sr, hop=hop)
+        P = cqt_pitch_energy(chunk, sr=sr, hop=hop, tuning=tuning)
         out.append(P[_MARGIN_HOPS:_MARGIN_HOPS + n_frames])
 
     n_samples = 0
@@ -216,11 +222,35 @@ def onset_from_pitch_energy(P, *, rate_hz: float = RATE_HZ, chunk_frames: int = 
     return out
 
 
+def estimate_tuning(path, *, start_s: float = 0.0, end_s: float | None = None,
+                    window_s: float = TUNING_WINDOW_S) -> float:
+    """Deviation of the recording's tuning from A = 440 Hz equal temperament, in semitones
+    (-0.5 .. 0.5), from its first ``window_s`` seconds (``librosa.estimate_tuning``, spectral
+    peaks by parabolic interpolation)."""
+    import librosa
+
+    from ..audio.read import iter_blocks
+
+    stop = start_s + window_s if end_s is None else min(end_s, start_s + window_s)
+    parts = [x for _, x in iter_blocks(path, block_s=30.0, mono=True, start_s=start_s, end_s=stop,
+                                       target_sr=SR, dtype="float32")]
+    y = np.concatenate(parts) if parts else np.zeros(0, np.float32)
+    if y.size < SR // 4 or not np.any(np.abs(y) > 1e-6):
+        return 0.0
+    import warnings
+
+    with warnings.catch_warnings():  # no pitched content: librosa warns and returns 0
+        warnings.simplefilter("ignore", UserWarning)
+        t = float(librosa.estimate_tuning(y=y, sr=SR, bins_per_octave=12))
+    return t if np.isfinite(t) else 0.0
+
+
 def audio_features(
     path,
     *,
     span_s: tuple[float, float] | None = None,
     block_s: float = 300.0,
+    tuning: float | None = None,
     progress=None,
 ) -> AlignFeatures:
     """Alignment features of a recording (see module docstring).
@@ -232,6 +262,9 @@ def audio_features(
     span_s : (start, end) or None
         Only this part of the file, in ``recording`` seconds; frame times stay seconds from the
         first sample of the file.
+    tuning : float or None
+        Tuning offset in semitones applied to the CQT bins; ``None`` estimates it
+        (:func:`estimate_tuning`), so a performance at A = 430 or 446 Hz keeps clean chroma.
     block_s : float
         Seconds of audio per CQT block (memory stays bounded by the block, not the file;
         librosa rebuilds its filter bank per call, so blocks should not be short).
@@ -260,13 +293,15 @@ def audio_features(
                 peak[0] = max(peak[0], float(np.max(np.abs(x))))
             yield x
 
+    if tuning is None:
+        tuning = estimate_tuning(path, start_s=start, end_s=end)
     P, n_samples = _blockwise_energy(blocks(), block_frames=block_frames, sr=SR, hop=HOP,
-                                     progress=progress, total_frames=total_frames)
+                                     progress=progress, total_frames=total_frames, tuning=tuning)
     energy = P.mean(axis=1, dtype=np.float64) if P.size else np.zeros(0)
     chroma = finish_chroma(fold_octaves(P))
     onset = dlnco(onset_from_pitch_energy(P), rate_hz=RATE_HZ)
     return AlignFeatures(chroma=chroma, onset=onset, rate_hz=RATE_HZ, start_s=float(start),
                          energy=energy,
                          meta={"duration_s": float(dur), "samples_read": int(n_samples),
-                               "peak": peak[0], "end_s": float(end),
+                               "peak": peak[0], "end_s": float(end), "tuning_semitones": float(tuning),
                                "sample_rate_hz": int(info.sample_rate_hz), "channels": int(info.channels)})

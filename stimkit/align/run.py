@@ -398,6 +398,7 @@ def align_score(
         "frame_rate_hz": rate,
         "sample_rate_hz": _chroma.SR,
         "hop_samples": _chroma.HOP,
+        "tuning_semitones": float(A.meta.get("tuning_semitones", 0.0)),
         "levels_hz": [rate / f for f in FACTORS],
         "band_radius_frames": list(RADII),
         "step_weights": {"diagonal": weights.diag, "score_only": weights.score,

@@ -126,6 +126,20 @@ def test_anchors_out_of_order_are_refused(scores, recordings):
 
 # -- refusals and flags -----------------------------------------------------------------------
 
+def test_performance_at_another_pitch_standard(scores, recordings, tmp_path):
+    """A = 430 Hz (40 cents low, a common period pitch): the same samples written at a lower
+    sample rate play 40 cents lower and 2.3 % slower; the tuning is estimated and the bar kept."""
+    from stimkit.align.run import align_score
+
+    _, perf, y = recordings["sonata"]
+    f = 2 ** (-40 / 1200)
+    sf.write(tmp_path / "low.wav", y, int(round(SR * f)))
+    res = align_score(scores["sonata"], tmp_path / "low.wav")
+    assert res.settings["tuning_semitones"] == pytest.approx(-0.40, abs=0.06)
+    err = np.abs(res.timemap(perf.notes["score_qn"].to_numpy()) - perf.notes["onset_s"].to_numpy() / f)
+    assert np.median(err) <= 0.02   # task threshold
+
+
 def test_wrong_piece_is_refused(scores, recordings):
     from stimkit.align.run import align_score
 
