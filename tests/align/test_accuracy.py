@@ -19,7 +19,7 @@ import mir_eval
 import numpy as np
 import pytest
 
-from _render import render
+from align_render import render
 
 ROOT = Path(__file__).resolve().parents[2]
 

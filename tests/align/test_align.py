@@ -10,7 +10,7 @@ import pandas as pd
 import pytest
 import soundfile as sf
 
-from _render import SR, render
+from align_render import SR, render
 from stimkit.errors import InputError, WorkFailed
 
 
