@@ -64,7 +64,7 @@ def evaluations(tmp_path_factory):
         rows.append({"piece": label, "notes": len(ref), "mean_ms": 1000 * mean, "median_ms": 1000 * median,
                      "within_50ms": 100 * within[0.05], "within_100ms": 100 * within[0.1],
                      "within_300ms": 100 * within[0.3], "max_s": float(np.max(np.abs(ref - est))),
-                     "confidence": res.confidence["overall"]})
+                     "confidence": res.confidence["overall"], "flagged": len(res.regions)})
     lines = ["\t".join(rows[0].keys())] + [
         "\t".join(f"{v:.3f}" if isinstance(v, float) else str(v) for v in r.values()) for r in rows]
     (out / "align_accuracy.tsv").write_text("\n".join(lines) + "\n")
@@ -86,3 +86,4 @@ def test_accuracy_thresholds(evaluations, label):
     assert row["within_100ms"] >= 90.0, row
     assert row["within_300ms"] >= 98.0, row   # 300 ms: mir_eval.alignment default window
     assert row["max_s"] <= 2.0, row           # 2 s: gross-failure bound (MIREX practice)
+    assert row["flagged"] == 0, row           # the renderer plays every note: no cut, no insertion
