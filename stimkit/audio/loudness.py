@@ -208,6 +208,7 @@ class EnergyGrid:
     def finish(self) -> tuple[np.ndarray, np.ndarray]:
         """``(sums, counts)`` including the trailing partial sub-block."""
         sums = np.concatenate(self._chunks) if self._chunks else np.zeros(0)
+        self._chunks = [sums] if sums.size else []  # one copy only
         k_full = sums.shape[0]
         counts = np.diff(self._bound(np.arange(k_full + 1))).astype(np.float64)
         tail = self.n - int(self._bound(k_full))

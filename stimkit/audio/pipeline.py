@@ -167,7 +167,11 @@ class _Analyser:
         self._pool.shutdown(wait=True)
         self._spectra(self.stft.push(self.res.push(np.zeros(0), last=True)))
         self._spectra(self.stft.finish())
-        cat = lambda xs, shape: np.concatenate(xs, axis=0) if xs else np.zeros(shape, np.float32)
+        def cat(xs, shape):
+            out = np.concatenate(xs, axis=0) if xs else np.zeros(shape, np.float32)
+            xs.clear()  # keep one copy only
+            return out
+
         return (cat(self._env, (0,)), cat(self._desc, (0, 5)), cat(self._chroma, (0, 12)),
                 cat(self._rough, (0,)))
 
