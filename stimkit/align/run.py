@@ -42,6 +42,17 @@ Conventions
   a recording much longer than the score (more than 3× its nominal length) is searched for the
   piece (open start and end) and a warning gives the span found.
 
+Known limits
+------------
+- An inserted passage of *other music* close in harmony to the score is partly matched to the
+  score's next bars: the flagged insertion then covers only part of it (measured: 20 s of a
+  chorale inserted into a piano piece flagged as 2 runs, 60-64 s and 68-74 s, for 50-70 s).
+  Inserted talk, applause or silence is flagged in place (± 1-2 s).
+- A passage repeated in the recording but not in the score (or the reverse) is ambiguous: either
+  copy may be the one flagged.
+- A performance in another key is refused as a different piece; the message gives the
+  transposition that matched best.
+
 References
 ----------
 .. [1] M. Müller, H. Mattes, F. Kurth. "An efficient multiscale approach to audio
