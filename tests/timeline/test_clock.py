@@ -182,3 +182,15 @@ def test_recorder_times_from_tsv_and_csv(tmp_path):
     bad.write_text("onset\n1.0\nabc\n")
     with pytest.raises(InputError, match="line 3"):
         read_recorder_times(bad, column="onset")
+
+
+def test_stereo_file_at_another_rate(tmp_path):
+    # a 44.1 kHz stereo recording with the mark on the left channel only (the mono mix halves it)
+    sr = 44100
+    x = _burst_signal([3.21], dur_s=8.0, sr=sr, freq=1500.0, burst_s=0.03, music=False)
+    stereo = np.column_stack([x, 0.01 * np.random.default_rng(1).standard_normal(x.size)]).astype(np.float32)
+    path = tmp_path / "stereo.flac"
+    sf.write(path, stereo, sr)
+    marks = detect_sync_marks(path, frequency_hz=1500.0, duration_s=0.03)
+    assert len(marks) == 1
+    assert abs(marks[0].recording_s - np.ceil(3.21 * sr) / sr) < 1.0 / sr  # within one sample
