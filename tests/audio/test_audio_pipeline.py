@@ -214,3 +214,12 @@ def test_unusual_rates_and_channel_counts(tmp_path, sr, channels):
     assert r.frame.iloc[3][[c for c in COLUMNS if c.startswith("chroma_")]].idxmax() == "chroma_A"
     if channels == 8:  # 7.1 order: LFE (4th channel) excluded, four surround channels at 1.41
         assert r.summary["channel_weights"] == [1.0, 1.0, 1.0, 0.0, 1.41, 1.41, 1.41, 1.41]
+
+
+@pytest.mark.parametrize("rate", [0.5, 3.0, 100.0])
+def test_any_rate_up_to_100_hz(music, rate):
+    # frame k covers [k/rate, (k+1)/rate): floor(duration * rate) rows, centres at (k + 0.5)/rate
+    fr = features_from_array(music[: 6 * SR], SR, rate_hz=rate).frame
+    assert len(fr) == int(6 * rate)
+    np.testing.assert_allclose(fr.index.values, (np.arange(len(fr)) + 0.5) / rate)
+    assert np.isfinite(fr.drop(columns=["key", "tempo_bpm"]).to_numpy(float)).all()
