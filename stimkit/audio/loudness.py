@@ -258,6 +258,22 @@ def _full_windows(sums, counts, n_full, *, window_s: float, hop_s: float) -> np.
     return np.maximum((cs[starts + w] - cs[starts]) / (cn[starts + w] - cn[starts]), 0.0)
 
 
+def _max_full_window(sums, counts, n_full, *, window_s: float, step: int = 1 << 16) -> float:
+    """Largest mean power over full windows of ``window_s`` starting on every grid point, computed
+    in chunks so that memory does not grow with the signal (NaN if no full window)."""
+    w = int(round(window_s * GRID_PER_S))
+    if n_full < w:
+        return float("nan")
+    best = -np.inf
+    for a in range(0, n_full - w + 1, step):
+        b = min(n_full - w + 1, a + step)  # window starts a .. b-1
+        cs = np.concatenate([[0.0], np.cumsum(sums[a:b + w - 1])])
+        cn = np.concatenate([[0.0], np.cumsum(counts[a:b + w - 1])])
+        m = (cs[w:] - cs[:-w]) / (cn[w:] - cn[:-w])
+        best = max(best, float(m.max()))
+    return max(best, 0.0)
+
+
 def gated_integrated(block_power: np.ndarray) -> float:
     """BS.1770-4 gated integration of 400 ms block powers -> LUFS (``-inf``/NaN if nothing passes)."""
     lk = power_to_lufs(block_power)
@@ -405,11 +421,20 @@ class LoudnessMeter:
         s, c, nf = self._grid()
         w = max(2, int(round(window_s * GRID_PER_S)) // 2 * 2)
         k = s.shape[0]
-        ones = np.ones(w)
-        e = np.convolve(s, ones)[w // 2 - 1: w // 2 + k]
-        n = np.convolve(c, ones)[w // 2 - 1: w // 2 + k]
-        with np.errstate(divide="ignore", invalid="ignore"):
-            out = power_to_lufs(np.maximum(e, 0.0) / n).astype(np.float32)
+        h = w // 2
+        out = np.empty(k + 1, dtype=np.float32)
+        step = 1 << 16
+        # window of grid point i: sub-blocks [i - h, i + h), clipped; computed in chunks
+        for a in range(0, k + 1, step):
+            b = min(k + 1, a + step)
+            lo, hi = max(0, a - h), min(k, b + h)
+            cs = np.concatenate([[0.0], np.cumsum(s[lo:hi])])
+            cn = np.concatenate([[0.0], np.cumsum(c[lo:hi])])
+            i = np.arange(a, b)
+            j0 = np.clip(i - h, lo, hi) - lo
+            j1 = np.clip(i + h, lo, hi) - lo
+            with np.errstate(divide="ignore", invalid="ignore"):
+                out[a - 0:b] = power_to_lufs(np.maximum(cs[j1] - cs[j0], 0.0) / (cn[j1] - cn[j0]))
         return out
 
     def integrated(self) -> float:
@@ -422,13 +447,11 @@ class LoudnessMeter:
 
     def max_momentary(self) -> float:
         s, c, nf = self._grid()
-        p = _full_windows(s, c, nf, window_s=MOMENTARY_S, hop_s=GRID_STEP_S)
-        return float(power_to_lufs(p.max())) if p.size else float("nan")
+        return float(power_to_lufs(_max_full_window(s, c, nf, window_s=MOMENTARY_S)))
 
     def max_short_term(self) -> float:
         s, c, nf = self._grid()
-        p = _full_windows(s, c, nf, window_s=SHORT_TERM_S, hop_s=GRID_STEP_S)
-        return float(power_to_lufs(p.max())) if p.size else float("nan")
+        return float(power_to_lufs(_max_full_window(s, c, nf, window_s=SHORT_TERM_S)))
 
     def summary(self) -> dict:
         """Whole-signal values (LUFS, LU, dBFS, dBTP); NaN where undefined (too short / silent)."""
