@@ -222,6 +222,30 @@ class EnergyGrid:
         return self._k
 
 
+def _window_sums(sums: np.ndarray, counts: np.ndarray, i0: np.ndarray, i1: np.ndarray,
+                 step: int = 1 << 16) -> tuple[np.ndarray, np.ndarray]:
+    """Sums of ``sums`` and ``counts`` over sub-blocks ``[i0[m], i1[m])`` (indices already clipped,
+    ``i0`` non-decreasing), by cumulative sums over chunks of the grid (bounded memory, and each
+    chunk's cumulative sum restarts, which keeps the precision of quiet parts after loud ones)."""
+    e = np.zeros(i0.shape[0])
+    n = np.zeros(i0.shape[0])
+    if i0.size == 0:
+        return e, n
+    K = sums.shape[0]
+    for a in range(0, K + 1, step):
+        m0, m1 = np.searchsorted(i0, [a, a + step], side="left")
+        if m1 <= m0:
+            continue
+        lo = a
+        hi = int(max(i1[m0:m1].max(), lo))
+        cs = np.concatenate([[0.0], np.cumsum(sums[lo:hi])])
+        cn = np.concatenate([[0.0], np.cumsum(counts[lo:hi])])
+        j0, j1 = i0[m0:m1] - lo, np.maximum(i1[m0:m1], i0[m0:m1]) - lo
+        e[m0:m1] = cs[j1] - cs[j0]
+        n[m0:m1] = cn[j1] - cn[j0]
+    return e, n
+
+
 def window_mean(sums: np.ndarray, counts: np.ndarray, *, centres_s, window_s: float,
                 full_only: bool = False, n_full: int | None = None) -> np.ndarray:
     """Mean of the underlying quantity over windows centred at ``centres_s`` (5 ms grid).
@@ -229,18 +253,17 @@ def window_mean(sums: np.ndarray, counts: np.ndarray, *, centres_s, window_s: fl
     Windows are clipped to the signal; with ``full_only`` a window not wholly inside the first
     ``n_full`` sub-blocks gives NaN.
     """
-    cs = np.concatenate([[0.0], np.cumsum(sums)])
-    cn = np.concatenate([[0.0], np.cumsum(counts)])
     K = sums.shape[0]
     c = np.asarray(centres_s, dtype=np.float64)
     i0 = np.floor((c - window_s / 2.0) * GRID_PER_S + 0.5).astype(np.int64)
     i1 = i0 + int(round(window_s * GRID_PER_S))
     limit = K if n_full is None else n_full
     bad = (i0 < 0) | (i1 > limit) if full_only else np.zeros(c.shape, dtype=bool)
-    j0, j1 = np.clip(i0, 0, K), np.clip(i1, 0, K)
-    n = cn[j1] - cn[j0]
+    order = np.argsort(i0, kind="stable")
+    e, n = np.empty(c.shape), np.empty(c.shape)
+    e[order], n[order] = _window_sums(sums, counts, np.clip(i0[order], 0, K), np.clip(i1[order], 0, K))
     with np.errstate(divide="ignore", invalid="ignore"):
-        out = np.where(n > 0, (cs[j1] - cs[j0]) / np.where(n > 0, n, 1.0), np.nan)
+        out = np.where(n > 0, e / np.where(n > 0, n, 1.0), np.nan)
     out = np.maximum(out, 0.0)  # cumulative-sum rounding can leave tiny negatives
     out[bad] = np.nan
     return out
@@ -253,9 +276,8 @@ def _full_windows(sums, counts, n_full, *, window_s: float, hop_s: float) -> np.
     if n_full < w:
         return np.zeros(0)
     starts = np.arange(0, n_full - w + 1, h)
-    cs = np.concatenate([[0.0], np.cumsum(sums[:n_full])])
-    cn = np.concatenate([[0.0], np.cumsum(counts[:n_full])])
-    return np.maximum((cs[starts + w] - cs[starts]) / (cn[starts + w] - cn[starts]), 0.0)
+    e, n = _window_sums(sums, counts, starts, starts + w)
+    return np.maximum(e / n, 0.0)
 
 
 def _max_full_window(sums, counts, n_full, *, window_s: float, step: int = 1 << 16) -> float:

@@ -41,7 +41,7 @@ def silence_segments(level_db, *, step_s: float, start_s: float = 0.0, window_s:
                      min_length_s: float = SILENCE_MIN_LENGTH_S,
                      duration_s: float | None = None) -> list[tuple[float, float]]:
     """Silent segments ``[(start_s, end_s), ...]`` of a regularly sampled level curve."""
-    lv = np.asarray(level_db, dtype=np.float64)
+    lv = np.asarray(level_db)
     if lv.size == 0:
         return []
     quiet = ~(lv >= threshold_db)  # NaN -> quiet
