@@ -28,6 +28,9 @@ Conventions
   shortest lag whose value reaches ``0.7`` of the highest peak (a metrical-level rule that
   avoids reporting half or a third of the tempo when the peaks at multiples of the beat are as
   high as the beat's own).
+- Known limit: the tempo octave is ambiguous. In music with steady eighth-note motion the rule
+  can report twice the notated beat rate (e.g. 168 for a quarter = 84 Andante); a backbeat
+  pattern reads at its quarter-note rate.
 - ``tempo_confidence`` is the normalised autocorrelation (0-1) at the chosen period;
   ``pulse_clarity`` is the maximum normalised autocorrelation over the beat range, Lartillot et
   al.'s "MaxAutocor" pulse clarity. Both are 0 where the window has no onset strength.
