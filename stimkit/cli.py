@@ -34,10 +34,11 @@ def _interactive() -> bool:
     return sys.stderr.isatty() and not os.environ.get("CI")
 
 
-def _progress():
-    """A rich progress callback ``(task, fraction)`` or ``None`` when not on a terminal."""
+def _with_progress(fn, *args, **kwargs):
+    """Call ``fn(*args, progress=..., **kwargs)`` with a rich progress bar on a terminal; without
+    a terminal (CI, pipes) call it with ``progress=None`` and stay quiet."""
     if not _interactive():
-        return None, None
+        return fn(*args, progress=None, **kwargs)
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(), transient=True)
@@ -48,7 +49,8 @@ def _progress():
             tasks[task] = bar.add_task(task, total=1.0)
         bar.update(tasks[task], completed=max(0.0, min(1.0, fraction)))
 
-    return bar, update
+    with bar:
+        return fn(*args, progress=update, **kwargs)
 
 
 def _console():
@@ -99,12 +101,7 @@ def features(
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
 
-    bar, update = _progress()
-    if bar is not None:
-        with bar:
-            result = compute_features(audio, rate_hz=rate, progress=update)
-    else:
-        result = compute_features(audio, rate_hz=rate)
+    result = _with_progress(compute_features, audio, rate_hz=rate)
     written = write_features(result, out_dir=out)
     con = _console()
     con.print(summary_table(result))
@@ -124,13 +121,8 @@ def align(
     """Align the score to the recording: the recording time of every note-onset position."""
     from .align.run import align_files, summary_lines, write_alignment
 
-    bar, update = _progress()
-    kwargs = dict(anchors=anchor, force=force, expand_repeats=not no_repeats)
-    if bar is not None:
-        with bar:
-            result = align_files(score, audio, progress=update, **kwargs)
-    else:
-        result = align_files(score, audio, **kwargs)
+    result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
+                            expand_repeats=not no_repeats)
     written = write_alignment(result, out_dir=out)
     con = _console()
     for line in summary_lines(result):
@@ -165,12 +157,7 @@ def annotate(
         command = ["stimkit", "annotate", str(session)]
     if out is not None:
         command += ["-o", str(out)]
-    bar, update = _progress()
-    if bar is not None:
-        with bar:
-            result = annotate_session(sess, progress=update, command=command)
-    else:
-        result = annotate_session(sess, command=command)
+    result = _with_progress(annotate_session, sess, command=command)
     con = _console()
     for line in summary_lines(result):
         con.print(line)
@@ -183,12 +170,7 @@ def demo(
     """Run the main job on the bundled scenario (two original pieces, a rendered session)."""
     from .demo.run import run_demo
 
-    bar, update = _progress()
-    if bar is not None:
-        with bar:
-            lines = run_demo(out_dir=out, progress=update)
-    else:
-        lines = run_demo(out_dir=out)
+    lines = _with_progress(run_demo, out_dir=out)
     con = _console()
     for line in lines:
         con.print(line)

@@ -32,7 +32,7 @@ from ..levels import COLUMN_INFO, EVENT_COLUMNS, HED_TAGS, TRIAL_TYPES
 from .tables import OutputSet
 
 __all__ = [
-    "bids_name", "write_stim", "events_sidecar", "hed_annotation", "prepare_events",
+    "bids_name", "numeric_columns", "write_stim", "events_sidecar", "hed_annotation", "prepare_events",
     "merge_simultaneous", "write_events", "write_beats", "dataset_description",
     "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
 ]
@@ -45,6 +45,19 @@ def bids_name(*, subject=None, session=None, task=None, run=None, fallback: str 
         if val is not None and str(val) != "":
             parts.append(f"{key}-{val}")
     return "_".join(parts) if parts else fallback
+
+
+def numeric_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
+    """A copy of ``frame`` with numeric columns only (booleans as 0/1) and the names left out."""
+    out = frame.copy()
+    dropped = []
+    for c in list(out.columns):
+        if out[c].dtype == bool:
+            out[c] = out[c].astype(np.int64)
+        elif out[c].dtype.kind not in "iuf":
+            dropped.append(str(c))
+            out = out.drop(columns=c)
+    return out, dropped
 
 
 def write_stim(
@@ -62,9 +75,12 @@ def write_stim(
     """Stage ``<base>_stim.tsv.gz`` + ``<base>_stim.json`` for a fixed-rate feature frame.
 
     ``frame`` holds one column per feature, rows at ``start_time_s + k / sampling_hz``; its index
-    is not written. Non-numeric columns are written as text.
+    is not written. The continuous file is numeric only, so any numeric loader reads it: booleans
+    are written as 0/1 and text columns (e.g. a key name) are left out and listed under
+    ``ColumnsLeftOut`` in the sidecar (keep them in a headed table instead).
     """
-    cols = [str(c) for c in frame.columns]
+    data, dropped = numeric_columns(frame)
+    cols = [str(c) for c in data.columns]
     sidecar = {
         "SamplingFrequency": float(sampling_hz),
         "StartTime": float(start_time_s),
@@ -78,11 +94,13 @@ def write_stim(
             entry["Units"] = units[c]
         if entry:
             sidecar[c] = entry
+    if dropped:
+        sidecar["ColumnsLeftOut"] = {c: "text feature; kept out of the numeric continuous file"
+                                     for c in dropped}
     if extra:
         for k, v in extra.items():
             if k not in sidecar:
                 sidecar[k] = v
-    data = frame.copy()
     data.columns = cols
     for c in cols:
         if data[c].dtype.kind == "f":

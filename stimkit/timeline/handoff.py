@@ -103,20 +103,6 @@ def _envelope(path, *, t_map, columns: int = 2400):
     return np.asarray(t_map(t), dtype=np.float64), lo_a, hi_a
 
 
-def _stim_frame(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
-    """Numeric columns only (booleans as 0/1), so any numeric loader reads the file; returns the
-    frame and the names of the text columns left out."""
-    out = frame.copy()
-    dropped = []
-    for c in list(out.columns):
-        if out[c].dtype == bool:
-            out[c] = out[c].astype(np.int64)
-        elif out[c].dtype.kind not in "iuf":
-            dropped.append(str(c))
-            out = out.drop(columns=c)
-    return out, dropped
-
-
 # ---------------------------------------------------------------------------------------------
 
 
@@ -220,10 +206,7 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     if session.sync.recorder_file is not None:
         inputs["recorder_sync"] = session.sync.recorder_file
 
-    stim, dropped = _stim_frame(frame)
-    if dropped:
-        stim_extra["ColumnsLeftOut"] = {c: "text feature; kept out of the numeric continuous file"
-                                        for c in dropped}
+    stim = frame  # write_stim keeps numeric columns and lists the text ones it leaves out
     with OutputSet(out_dir) as outs:
         written = []
         written += bids.write_events(outs, base, events, synchronized=synchronized,

@@ -72,11 +72,13 @@ def test_cli_writes_bids_continuous_file_and_table(flac, tmp_path):
     side = json.loads((out / "take_stim.json").read_text())
     # BIDS 1.11 continuous recordings: SamplingFrequency, StartTime, Columns are required
     assert side["SamplingFrequency"] == 5.0 and side["StartTime"] == pytest.approx(0.1)
-    assert side["Columns"] == COLUMNS
-    assert all("Units" in side[c] and "Description" in side[c] for c in COLUMNS)
+    numeric = [c for c in COLUMNS if c != "key"]  # the key name is text: headed table only
+    assert side["Columns"] == numeric and list(side["ColumnsLeftOut"]) == ["key"]
+    assert all("Units" in side[c] and "Description" in side[c] for c in numeric)
     with gzip.open(out / "take_stim.tsv.gz", "rt") as fh:
         rows = fh.read().splitlines()
-    assert len(rows) == len(table) and len(rows[0].split("\t")) == len(COLUMNS)  # no header
+    assert len(rows) == len(table) and len(rows[0].split("\t")) == len(numeric)  # no header
+    float(rows[0].split("\t")[0])
     s = side["Summary"]
     for k in ("integrated_lufs", "lra_lu", "max_momentary_lufs", "max_short_term_lufs",
               "sample_peak_dbfs", "true_peak_dbtp", "duration_s", "sample_rate_hz", "channels"):

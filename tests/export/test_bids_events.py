@@ -222,6 +222,19 @@ def test_stim_file_read_back(tmp_path):
     assert side["SamplingFrequency"] == rate and side["StartTime"] == 0.05
 
 
+def test_stim_file_is_numeric_text_columns_listed(tmp_path):
+    frame = pd.DataFrame({"key": ["G major", "E minor"], "key_clarity": [0.8, 0.6],
+                          "silent": [False, True]})
+    with OutputSet(tmp_path) as outs:
+        write_stim(outs, BASE, frame, sampling_hz=1.0, start_time_s=0.5, units={}, descriptions={})
+    side = json.loads((tmp_path / f"{BASE}_stim.json").read_text("utf-8"))
+    assert side["Columns"] == ["key_clarity", "silent"]
+    assert list(side["ColumnsLeftOut"]) == ["key"]
+    with gzip.open(tmp_path / f"{BASE}_stim.tsv.gz", "rt", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh, delimiter="\t"))
+    assert [[float(v) for v in r] for r in rows] == [[0.8, 0.0], [0.6, 1.0]]
+
+
 def test_beats_file(tmp_path):
     beats = pd.DataFrame({
         "onset": [1.0, 1.5, 2.0, 2.5, 10.0, 10.6],
