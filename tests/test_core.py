@@ -59,3 +59,21 @@ def test_error_message_is_one_line(tmp_path):
     err = InputError("bad\nthing   here", path=tmp_path / "f.xml")
     assert "\n" not in str(err) and str(err).endswith("bad thing here")
     assert err.exit_code == 2
+
+
+def test_beat_grid_pickup_has_no_downbeat():
+    from pathlib import Path
+
+    from stimkit.score.model import ScoreModel
+
+    # a 4/4 piece with a one-beat pickup (beat 4) then one full bar
+    measures = pd.DataFrame({
+        "measure": [0, 1], "pass": [1, 1], "score_qn": [0.0, 1.0], "duration_qn": [1.0, 4.0],
+        "numerator": [4, 4], "denominator": [4, 4], "beat_qn": [1.0, 1.0], "first_beat": [4.0, 1.0],
+    })
+    model = ScoreModel(name="t", path=Path("t.xml"), notes=pd.DataFrame(), measures=measures,
+                       boundaries=pd.DataFrame(), tempo_map=TimeMap([0, 5], [0, 2.5]))
+    grid = model.beat_grid()
+    assert grid["beat"].tolist() == [4.0, 1.0, 2.0, 3.0, 4.0]
+    assert grid["is_downbeat"].tolist() == [False, True, False, False, False]
+    assert model.qn_at(1, 3.0) == 3.0 and model.locate(0.5)["beat"].iloc[0] == 4.5

@@ -94,7 +94,10 @@ class ScoreModel:
         return float(r["score_qn"] + (beat - r["first_beat"]) * r["beat_qn"])
 
     def beat_grid(self) -> pd.DataFrame:
-        """Every bar and beat position: ``score_qn, measure, pass, beat, is_downbeat``."""
+        """Every bar and beat position: ``score_qn, measure, pass, beat, is_downbeat``.
+
+        ``is_downbeat`` is true on beat 1 only, so a pickup bar has no downbeat.
+        """
         rows = []
         m = self.measures
         cols = zip(m["score_qn"], m["duration_qn"], m["beat_qn"], m["first_beat"], m["measure"], m["pass"])
@@ -102,5 +105,5 @@ class ScoreModel:
             # a pickup starts on first_beat > 1 and holds only its own beats
             n = max(int(round(dur / bq + 1e-9)), 1)
             for k in range(n):
-                rows.append((start + k * bq, int(meas), int(pas), float(first + k), k == 0))
+                rows.append((start + k * bq, int(meas), int(pas), float(first + k), abs(first + k - 1) < 1e-9))
         return pd.DataFrame(rows, columns=["score_qn", "measure", "pass", "beat", "is_downbeat"])
