@@ -107,13 +107,29 @@ def tempo_curve(timemap: TimeMap, beats: pd.DataFrame, *, window_beats: int = 6)
                              "quarter_bpm": np.full(len(qn), np.nan)})
     spq = np.diff(rec) / np.diff(qn)                      # seconds per quarter note, per interval
     spq = np.append(spq, spq[-1])
-    w = np.hanning(window_beats + 2)[1:-1]
-    w = w / w.sum()
-    pad = len(w) // 2
-    padded = np.pad(spq, (pad, len(w) - 1 - pad), mode="edge")
-    smooth = np.convolve(padded, w, mode="valid")
+    smooth = _hann_smooth(spq, window_beats)
     qbpm = 60.0 / smooth
     return pd.DataFrame({"score_qn": qn, "recording": rec, "bpm": qbpm / bq, "quarter_bpm": qbpm})
+
+
+def _hann_smooth(values: np.ndarray, n: int) -> np.ndarray:
+    """Moving Hann-weighted mean over ``n`` samples, edges padded with the edge value."""
+    if n <= 1 or len(values) <= 1:
+        return values
+    w = np.hanning(n + 2)[1:-1]
+    w = w / w.sum()
+    pad = len(w) // 2
+    return np.convolve(np.pad(values, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
+
+
+def _axis_cost_ratio(path, costs, *, axis: int, ref_cost: float, rate_hz: float, window_s: float):
+    """Mean path cost per distinct frame along ``axis`` (0 score, 1 recording), Hann-smoothed
+    over ``window_s`` seconds, divided by ``ref_cost``."""
+    k = np.asarray(path, dtype=np.int64)[:, axis]
+    uk, start = np.unique(k, return_index=True)
+    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(k)))
+    c = _hann_smooth(c, max(int(round(window_s * rate_hz)), 1))
+    return uk, c / max(ref_cost, 1e-9)
 
 
 def local_ratio(path, costs, *, ref_cost: float, rate_hz: float, window_s: float = 2.0):
@@ -121,17 +137,7 @@ def local_ratio(path, costs, *, ref_cost: float, rate_hz: float, window_s: float
 
     Returns ``(score_frames, ratio)``: one value per distinct score frame of the path.
     """
-    p = np.asarray(path)
-    i = p[:, 0]
-    ui, start = np.unique(i, return_index=True)
-    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(i)))
-    n = max(int(round(window_s * rate_hz)), 1)
-    if n > 1 and len(c) > 1:
-        w = np.hanning(n + 2)[1:-1]
-        w /= w.sum()
-        pad = len(w) // 2
-        c = np.convolve(np.pad(c, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
-    return ui, c / max(ref_cost, 1e-9)
+    return _axis_cost_ratio(path, costs, axis=0, ref_cost=ref_cost, rate_hz=rate_hz, window_s=window_s)
 
 
 def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, min_s: float = 2.0,
@@ -203,17 +209,7 @@ def flag_runs(path, *, rate_hz: float, rec_start_s: float, tempo_map: TimeMap, m
 def recording_cost_ratio(path, costs, *, ref_cost: float, rate_hz: float, window_s: float = 2.0):
     """Path cost per recording frame (mean over its path cells), Hann-smoothed over ``window_s``,
     divided by ``ref_cost``; returns ``(recording_frames, ratio)``."""
-    p = np.asarray(path, dtype=np.int64)
-    j = p[:, 1]
-    uj, start = np.unique(j, return_index=True)
-    c = np.add.reduceat(np.asarray(costs, np.float64), start) / np.diff(np.append(start, len(j)))
-    n = max(int(round(window_s * rate_hz)), 1)
-    if n > 1 and len(c) > 1:
-        w = np.hanning(n + 2)[1:-1]
-        w /= w.sum()
-        pad = len(w) // 2
-        c = np.convolve(np.pad(c, (pad, len(w) - 1 - pad), mode="edge"), w, mode="valid")
-    return uj, c / max(ref_cost, 1e-9)
+    return _axis_cost_ratio(path, costs, axis=1, ref_cost=ref_cost, rate_hz=rate_hz, window_s=window_s)
 
 
 def mismatch_regions(path, costs, *, ref_cost: float, rate_hz: float, rec_start_s: float,
