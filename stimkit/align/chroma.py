@@ -151,7 +151,7 @@ def finish_chroma(chroma_energy, *, floor_db: float = SILENCE_DB) -> np.ndarray:
     louder than ``floor_db + 15`` dB (re the loudest frame), 1 below ``floor_db`` and linear in
     between; the 12 chroma components are scaled by one minus it and the vector is renormalised.
     So silence matches silence (cost 0) and nothing else (cost 1), while noise such as applause
-    or talk, being loud, keeps a near-flat chroma and does not pass for silence.
+    or speech, being loud, keeps a near-flat chroma and does not pass for silence.
     """
     E = np.asarray(chroma_energy, dtype=np.float64)
     if E.size == 0:

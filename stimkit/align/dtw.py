@@ -19,12 +19,12 @@ Conventions
   rendered tests: (a) with an open start and end a score-only step must cost *more* per score
   frame than a diagonal one, or the path gains by squeezing the score into a few recording
   frames (with the common closed-end weights 2 / 1.5 / 1.5 the first bars slid past); (b) a
-  recording-only step must be cheap, or a 20 s insertion (talk, applause, a long pause) costs
+  recording-only step must be cheap, or a 20 s insertion (speech, applause, a long pause) costs
   more than skipping the first bars of music through the open start -- with 1 / 1.25 / 1.25 the
   path started 25-55 s late when 20 s of applause was inserted; (c) a detour (0.75 + 1.5) stays
   dearer than a diagonal step. A long run of one-axis steps marks a cut or an insertion.
 - Open start/end (subsequence DTW, Müller 2015, ch. 7.2): the path may start in any column of
-  row 0 and end in any column of the last row, so silence, applause or talk before and after the
+  row 0 and end in any column of the last row, so silence, applause or speech before and after the
   piece do not bend it.
 
 The multiscale driver follows Müller, Mattes & Kurth (2006) and the memory-restricted variant of

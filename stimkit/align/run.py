@@ -47,7 +47,7 @@ Known limits
 - An inserted passage of *other music* close in harmony to the score is partly matched to the
   score's next bars: the flagged insertion then covers only part of it (measured: 20 s of a
   chorale inserted into a piano piece flagged as 2 runs, 60-64 s and 68-74 s, for 50-70 s).
-  Inserted talk, applause or silence is flagged in place (± 1-2 s).
+  Inserted speech, applause or silence is flagged in place (± 1-2 s).
 - A passage repeated in the recording but not in the score (or the reverse) is ambiguous: either
   copy may be the one flagged.
 - A performance in another key is refused as a different piece; the message gives the
@@ -125,7 +125,7 @@ FLAG_MIN_RATIO = 0.6
 #: beyond its notated length).
 FLAG_ALWAYS_S = 10.0
 #: An insertion run is trimmed to the recording frames whose path-cost ratio (1 s smoothing) is
-#: at least this (inserted talk or applause measured 0.85-1.1; a held chord next to it 0.55-0.7).
+#: at least this (inserted speech or applause measured 0.85-1.1; a held chord next to it 0.55-0.7).
 TRIM_RATIO = 0.75
 #: Smoothed path-cost ratio above which a stretch of recording counts as not matching.
 MISMATCH_RATIO = 0.8

@@ -3,7 +3,7 @@
 Functions
 ---------
 - :func:`sync_click` -- a click or tone burst whose onset is sample 0 of the returned array.
-- :func:`babble` -- speech-like babble of a few synthetic talkers.
+- :func:`babble` -- speech-like babble of a few synthetic voices.
 - :func:`applause` -- dense random hand claps with a rise and a decay.
 - :func:`room_tone` -- pink background noise at a given RMS level (:func:`pink_blocks` gives the
   same noise block by block, unscaled).
@@ -151,8 +151,8 @@ def room_tone(sr: int, dur_s: float, level_db: float = -50.0, seed: int = 0) -> 
     return _set_rms(out, level_db)
 
 
-def babble(sr: int, dur_s: float, *, seed: int, n_talkers: int = 4, level_db: float = -23.0) -> np.ndarray:
-    """Speech-like babble of ``n_talkers`` synthetic talkers, RMS ``level_db`` dBFS.
+def babble(sr: int, dur_s: float, *, seed: int, n_voices: int = 4, level_db: float = -23.0) -> np.ndarray:
+    """Speech-like babble of ``n_voices`` synthetic voices, RMS ``level_db`` dBFS.
 
     Syllables last 0.15-0.4 s (mean about 0.25 s, i.e. a syllable rate near 4 Hz); see the module
     docstring for the method.
@@ -165,7 +165,7 @@ def babble(sr: int, dur_s: float, *, seed: int, n_talkers: int = 4, level_db: fl
     t = np.arange(n) / sr
     nyq = 0.45 * sr
     fric_sos = butter(2, min(3500.0, nyq * 0.9), btype="highpass", fs=sr, output="sos")
-    for _ in range(max(int(n_talkers), 1)):
+    for _ in range(max(int(n_voices), 1)):
         base = rng.uniform(95.0, 230.0)
         # slow intonation: smoothed random walk, +-12 %
         knots = rng.uniform(-1, 1, int(dur_s / 0.5) + 3)

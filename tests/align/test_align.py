@@ -186,8 +186,8 @@ def test_cut_is_flagged_at_its_place(scores, recordings, tmp_path):
     assert not [r for r in align_score(scores["prayer"], wav).regions if r["kind"] == "cut"]
 
 
-def test_applause_and_talk_around_the_piece_do_not_bend_the_path(scores, recordings, tmp_path):
-    """Applause before and talk after the music (the renderer's models): the open start and end
+def test_applause_and_speech_around_the_piece_do_not_bend_the_path(scores, recordings, tmp_path):
+    """Applause before and speech after the music (the renderer's models): the open start and end
     skip them; every note keeps the accuracy bar and nothing is flagged."""
     from stimkit.align.run import align_score
     from stimkit.render.sounds import applause, babble
@@ -203,8 +203,8 @@ def test_applause_and_talk_around_the_piece_do_not_bend_the_path(scores, recordi
     assert res.regions == []
 
 
-def test_inserted_talk_is_flagged_at_its_place(scores, recordings, tmp_path):
-    """20 s of speech-like babble (the renderer's talk model) inserted at 30 s: one insertion,
+def test_inserted_speech_is_flagged_at_its_place(scores, recordings, tmp_path):
+    """20 s of speech-like babble (the renderer's speech model) inserted at 30 s: one insertion,
     from 30 s to 50 s (task: ± 3 s), and the path does not bend before it."""
     from stimkit.align.run import align_score
     from stimkit.render.sounds import babble
@@ -295,7 +295,7 @@ def test_tables_and_tempo(chorale_result, scores):
 
 
 def test_locate_piece_in_a_long_recording(scores, recordings, tmp_path):
-    """Two rendered pieces with talk-like noise around them: each is found where it was put."""
+    """Two rendered pieces with speech-like noise around them: each is found where it was put."""
     from stimkit.align.chroma import audio_features
     from stimkit.align.locate import locate_piece
 

@@ -44,8 +44,8 @@ def _envelope_modulation_peak_hz(y, *, rate_hz=100):
 
 
 @pytest.fixture(scope="module")
-def one_talker():
-    return babble(SR, 8.0, seed=3, n_talkers=1, level_db=-23.0)
+def one_voice():
+    return babble(SR, 8.0, seed=3, n_voices=1, level_db=-23.0)
 
 
 def test_babble_modulation_peaks_near_the_syllable_rate():
@@ -57,18 +57,18 @@ def test_babble_modulation_peaks_near_the_syllable_rate():
     assert 20 * np.log10(np.sqrt(np.mean(y.astype(np.float64) ** 2))) == pytest.approx(-23.0, abs=0.01)
 
 
-def test_babble_is_voiced_at_a_speaking_pitch(one_talker):
+def test_babble_is_voiced_at_a_speaking_pitch(one_voice):
     # adult speaking pitch lies roughly between 80 and 300 Hz (value from memory, common
     # practice); librosa.pyin finds voicing in a good share of frames
-    f0, voiced, _ = librosa.pyin(one_talker[: 3 * SR], fmin=70, fmax=350, sr=SR, frame_length=1024)
+    f0, voiced, _ = librosa.pyin(one_voice[: 3 * SR], fmin=70, fmax=350, sr=SR, frame_length=1024)
     assert np.mean(voiced) > 0.3
     assert 80 <= np.nanmedian(f0[voiced]) <= 300
 
 
-def test_babble_energy_is_in_the_speech_band(one_talker):
+def test_babble_energy_is_in_the_speech_band(one_voice):
     # long-term speech spectra carry most energy below 4 kHz (ANSI S3.5 band importance, common
     # practice)
-    f, p = welch(one_talker, fs=SR, nperseg=2048)
+    f, p = welch(one_voice, fs=SR, nperseg=2048)
     assert p[f < 4000].sum() / p.sum() > 0.9
 
 
