@@ -15,6 +15,7 @@ def test_timemap_roundtrip_and_extrapolation():
     tm = TimeMap([0, 4, 8], [0, 2, 6], src="score_qn", dst="nominal")
     q = np.array([-4, 0, 2, 4, 6, 8, 12])
     t = tm(q)
+    # hand computed: slope 0.5 on [0, 4], slope 1 on [4, 8], end slopes continued outside
     np.testing.assert_allclose(t, [-2, 0, 1, 2, 4, 6, 10])
     np.testing.assert_allclose(tm.inverse()(t), q)
     assert tm(2.0) == pytest.approx(1.0)
@@ -30,7 +31,7 @@ def test_timemap_compose():
     b = TimeMap.linear(offset=10.0, slope=1.0001, src="recording", dst="onset", span=100)
     c = a.then(b)
     assert c.src == "score_qn" and c.dst == "onset"
-    assert c(4.0) == pytest.approx(10.0 + 2 * 1.0001)
+    assert c(4.0) == pytest.approx(10.0 + 2 * 1.0001)  # hand computed: b(a(4)) = 10 + 1.0001 * 2
 
 
 def test_tsv_format_na_and_floats():
@@ -39,9 +40,21 @@ def test_tsv_format_na_and_floats():
     assert text == "onset\tlabel\tn\n0.500\ta b\t1\nn/a\tn/a\t2\n"
 
 
-def test_gzip_is_deterministic():
-    assert gzip_bytes(b"abc") == gzip_bytes(b"abc")
-    assert gzip.decompress(gzip_bytes(b"abc")) == b"abc"
+def test_gzip_is_deterministic(monkeypatch):
+    z = gzip_bytes(b"abc")
+    assert gzip.decompress(z) == b"abc"
+    # RFC 1952 member header: ID1 ID2 = 1f 8b, CM = 8 (deflate), FLG, MTIME (4 bytes LE), XFL, OS.
+    # Equal bytes on every run need MTIME = 0 and no FNAME flag (bit 3): no clock, no file name.
+    assert z[:3] == b"\x1f\x8b\x08"
+    assert z[3] & 0x08 == 0                          # RFC 1952: FNAME not set
+    assert int.from_bytes(z[4:8], "little") == 0     # RFC 1952: MTIME 0 = no time stamp
+    # and with the clock moved on by a day (gzip stamps time.time() unless told otherwise) the
+    # same data gives the same bytes
+    import time
+
+    now = time.time()
+    monkeypatch.setattr(time, "time", lambda: now + 86400.0)
+    assert gzip_bytes(b"abc") == z
 
 
 def test_outputset_commits_all_or_nothing(tmp_path):

@@ -73,8 +73,9 @@ def test_key_of_cadences(tonic, mode, name):
 
 
 def test_key_agrees_with_music21_krumhansl():
-    # music21's KrumhanslSchmuckler (KK weights) on the cadence's pitch-class durations names the
-    # same key as our chroma-based finder on its audio
+    # music21's discrete key analysis with the Krumhansl-Kessler weights
+    # (analysis.discrete.KrumhanslKessler, a KrumhanslSchmuckler-style key finder) on the
+    # cadence's pitch-class durations names the same key as our chroma-based finder on its audio
     from music21 import analysis, chord as m21chord, stream
 
     s = stream.Stream()
@@ -83,6 +84,7 @@ def test_key_agrees_with_music21_krumhansl():
     k = analysis.discrete.KrumhanslKessler(s).getSolution(s)
     ref = f"{k.tonic.name.replace('-', 'b')} {k.mode}"
     fr = features_from_array(cadence(2, "major"), SR, rate_hz=1.0).frame
+    # and both name the key the cadence was built in (I-IV-V7-I on D, fact of the trade)
     assert fr.iloc[len(fr) // 2]["key"] == ref == "D major"
 
 
@@ -120,4 +122,5 @@ def test_silence_segments_function_rules():
     level[50:120] = -90.0  # quiet centres 0.5 .. 1.19 s at 10 ms steps
     level[150:155] = -90.0  # 50 ms run: too short
     segs = silence_segments(level, step_s=0.01, window_s=0.05, min_length_s=0.5)
+    # hand computed: first quiet centre 0.50 s minus half a window, last 1.19 s plus half a window
     assert segs == [pytest.approx((0.5 - 0.025, 1.19 + 0.025))]

@@ -18,6 +18,7 @@ def test_sync_mark_onset_is_sample_zero(kind):
     y = sync_click(SR, kind=kind, level_db=-6.0)
     peak = 10 ** (-6.0 / 20)
     assert y[0] == pytest.approx(peak, rel=1e-6) and np.argmax(np.abs(y)) == 0
+    # the documented default lengths: a 5 ms click, a 50 ms burst (stimkit.render.sounds.sync_click)
     assert y.size == int(round((0.005 if kind == "click" else 0.05) * SR))
     # the burst's carrier is freq_hz: spectral peak of the 50 ms burst within one 20 Hz bin
     if kind == "burst":
