@@ -49,6 +49,15 @@ def quartet():
     return _load("beethoven/opus18no1/movement1.mxl")
 
 
+def _music21_signatures(name):
+    """(bar, meter) and (bar, sharps) where music21's own reading of the file prints a signature."""
+    part = corpus.parse(name).parts[0]
+    bars = part.getElementsByClass("Measure")
+    meters = [(m.measureNumber, m.timeSignature.ratioString) for m in bars if m.timeSignature]
+    keys = [(m.measureNumber, m.keySignature.sharps) for m in bars if m.keySignature]
+    return len(bars), meters, keys
+
+
 def kind(model, t):
     b = model.boundaries
     return b[b["trial_type"] == t].reset_index(drop=True)
@@ -63,6 +72,11 @@ def test_lindenbaum_keys_meter_double_bars(lindenbaum):
     k = kind(m, "key")
     assert k["measure"].tolist() == [1, 25, 37]
     assert k["value"].tolist() == [4, 1, 4]
+    # cross-check with music21's own objects (Measure.timeSignature / keySignature)
+    n_bars, meters, keys = _music21_signatures("schubert/Lindenbaum.xml")
+    assert len(m.measures) == n_bars
+    assert list(zip(k["measure"], k["value"])) == keys
+    assert [(int(b), lab) for b, lab in zip(kind(m, "meter")["measure"], kind(m, "meter")["label"])] == meters
     # double bars after bars 24 and 36
     db = kind(m, "section")
     db = db[db["label"] == "double bar"]
@@ -134,6 +148,9 @@ def test_gloria_meters(gloria):
     # luca/gloria.xml: 6/8 -> 2/4 at 28 -> 6/8 at 80 -> 3/4 at 110
     assert met["label"].tolist() == ["6/8", "2/4", "6/8", "3/4"]
     assert met["measure"].tolist() == [1, 28, 80, 110]
+    # cross-check with music21's own objects (Measure.timeSignature)
+    _, meters, _ = _music21_signatures("luca/gloria.xml")
+    assert list(zip(met["measure"], met["label"])) == meters
 
 
 def test_quartet_general_pauses(quartet):

@@ -56,6 +56,17 @@ def test_same_seed_same_result_and_shifts_stay_in_pieces(boundaries):
     b = boundary_coincidence(boundaries, boundaries + 0.2, spans=spans, seed=3)
     assert a == b
     assert a["n_changes"] == boundaries.size
+    # shifts stay in their piece: boundaries only in the first piece (10-290 s) and change points
+    # only in the second (310-590 s) can never meet within 1 s when each change is rotated inside
+    # 300-600 s, so chance is exactly zero; rotated over one 0-600 s span they do meet
+    rng = np.random.default_rng(21)
+    early = np.sort(rng.uniform(10.0, 290.0, 20))
+    late = np.sort(rng.uniform(310.0, 590.0, 20))
+    kept = boundary_coincidence(early, late, spans=spans, tolerance_s=1.0, n_shifts=499, seed=4)
+    assert kept["observed_hits"] == 0 and kept["expected_hits"] == 0.0
+    one = pd.DataFrame({"start": [0.0], "end": [600.0]})
+    mixed = boundary_coincidence(early, late, spans=one, tolerance_s=1.0, n_shifts=499, seed=4)
+    assert mixed["expected_hits"] > 0.5  # elementary probability: ~20 * (1 - (1 - 2/600)^20) = 1.3
 
 
 def test_score_boundary_times_skip_detected_kinds():
