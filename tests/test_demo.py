@@ -170,16 +170,35 @@ def sf_duration():
     return sf.info(str(DEMO / "demo-session.flac")).duration
 
 
-def test_beats_cover_every_bar_of_every_piece(out, events):
+def test_beats_cover_every_bar_of_every_piece(out, events, truth):
     beats = pd.read_csv(out / f"{BASE}_beats.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
     from stimkit.score.parse import load_score
 
-    for p in events[events.trial_type == "piece"].piece:
-        score = load_score(ROOT / "example_scores" / f"{p}.musicxml")
+    pieces = events[events.trial_type == "piece"].piece.tolist()
+    assert sorted(pieces) == sorted(p["piece"] for p in truth["pieces"])  # the renderer's pieces
+    assert set(beats.piece) == set(pieces)
+    for p in pieces:
+        path = ROOT / "example_scores" / f"{p}.musicxml"
+        score = load_score(path)
         grid = score.beat_grid()
         mine = beats[beats.piece == p]
         assert len(mine) == len(grid)
+        # independent count with music21's own objects: performed bars (Part.expandRepeats) times
+        # TimeSignature.beatCount, a short (pickup) bar counted by its length in beats
+        assert len(mine) == _music21_beats(path)
         assert np.all(np.diff(mine.onset.to_numpy()) > 0)
+
+
+def _music21_beats(path) -> int:
+    import music21
+
+    part = music21.converter.parse(str(path)).parts[0].expandRepeats()
+    total, ts = 0.0, None
+    for m in part.getElementsByClass("Measure"):
+        ts = m.timeSignature or ts
+        bar_ql, beat_ql = ts.barDuration.quarterLength, ts.beatDuration.quarterLength
+        total += m.duration.quarterLength / beat_ql if m.duration.quarterLength < bar_ql else ts.beatCount
+    return int(round(total))
 
 
 def test_rerun_is_byte_identical(runs):

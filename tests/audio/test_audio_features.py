@@ -31,7 +31,7 @@ def test_tempo_of_drum_patterns(bpm):
     # (fact of the trade: the quarter-note pulse of a backbeat pattern); within 2 %
     fr = features_from_array(drum_pattern(bpm), SR, rate_hz=2.0).frame
     inner = _inner(fr)
-    assert np.all(np.abs(inner["tempo_bpm"].values / bpm - 1) <= 0.02)
+    assert len(inner) > 0 and np.all(np.abs(inner["tempo_bpm"].values / bpm - 1) <= 0.02)
     assert np.all(inner["pulse_clarity"] >= inner["tempo_confidence"])  # by definition (max over lags)
 
 
@@ -56,6 +56,7 @@ def test_onset_rate_counts_notes():
     # four clicks a second (240 BPM click track) -> 4 onsets per second in the 3 s window
     fr = features_from_array(clicks(240, seconds=10.0), SR, rate_hz=1.0).frame
     inner = fr[(fr.index > 2) & (fr.index < 8)]
+    assert len(inner) > 0
     np.testing.assert_allclose(inner["onset_rate_hz"].values, 4.0, atol=0.34)  # one onset of 3 s slack
 
 
@@ -109,7 +110,9 @@ def test_silence_segments_within_50ms(tmp_path):
 
     p = tmp_path / "pauses.wav"
     sf.write(p, np.stack([y, y], axis=1), sr, subtype="FLOAT")
-    for (a, b), (ea, eb) in zip(gaps, file_silences(p, block_s=0.7)):
+    streamed = file_silences(p, block_s=0.7)
+    assert len(streamed) == len(gaps)
+    for (a, b), (ea, eb) in zip(gaps, streamed):
         assert abs(ea - a) <= 0.05 and abs(eb - b) <= 0.05
     fr = res.frame
     assert fr.loc[(fr.index > 2.1) & (fr.index < 3.4), "silent"].eq(1).all()

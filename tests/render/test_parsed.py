@@ -66,7 +66,7 @@ def test_corpus_piece_positions_are_found_in_the_audio():
     # music21 corpus (used in place): the Mozart K. 545 exposition, rendered with the piano timbre;
     # every distinct onset position's first note is checked against librosa's detector with
     # mir_eval's onset F-measure (50 ms window)
-    music21 = pytest.importorskip("music21")
+    import music21
     score = load_score(music21.corpus.getWork("mozart/k545/movement1_exposition.mxl"))
     y, perf = render_score(score, seed=2, timbre="piano")
     pos = perf.positions()

@@ -37,6 +37,7 @@ def _duration():
 def test_both_pieces_found_in_order(truth, scores):
     spans = find_pieces(scores, [p["piece"] for p in truth["pieces"]], DEMO / "demo-session.flac",
                         duration_s=_duration())
+    assert len(spans) == len(truth["pieces"]) == 2
     for sp, p in zip(spans, truth["pieces"]):
         assert abs(sp.start_s - p["start_recording_s"]) <= 1.0
         assert abs(sp.end_s - p["end_recording_s"]) <= 10.0  # a held last note fades slowly
