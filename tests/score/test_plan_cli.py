@@ -162,17 +162,27 @@ def test_output_folder_is_a_file(tmp_path, capsys):
     assert rc == 2 and len(err.strip().splitlines()) == 1
 
 
-@pytest.mark.skipif(os.name != "posix" or os.geteuid() == 0, reason="root ignores folder permissions")
+@pytest.mark.skipif(os.name != "posix", reason="POSIX folder permissions")
 def test_unwritable_output_folder(tmp_path, capsys):
     a = good_score(tmp_path)
-    out = tmp_path / "locked"
-    out.mkdir()
-    out.chmod(0o500)
-    try:
-        rc, _, err = run(["plan", str(a), "-o", str(out)], capsys)
-    finally:
-        out.chmod(0o700)
-    assert_refused(rc, err, out)
+    if os.geteuid() != 0:
+        out = tmp_path / "locked"
+        out.mkdir()
+        out.chmod(0o500)
+        try:
+            rc, _, err = run(["plan", str(a), "-o", str(out)], capsys)
+        finally:
+            out.chmod(0o700)
+        assert_refused(rc, err, out)
+        return
+    # root ignores folder permissions; /proc/self is an existing folder that refuses new files
+    # even for root (Linux procfs), so the check still runs here
+    out = Path("/proc/self")
+    if not out.is_dir():
+        pytest.skip("needs Linux /proc")
+    rc, _, err = run(["plan", str(a), "-o", str(out)], capsys)
+    assert rc == 2 and len(err.strip().splitlines()) == 1 and err.startswith("stimkit: error:")
+    assert not [p for p in os.listdir(out) if p.endswith((".tsv", ".json", ".html", ".part"))]
 
 
 def test_negative_gap_refused(tmp_path, capsys):

@@ -43,7 +43,9 @@ def test_ramp_default_depth_when_next_mark_is_not_in_its_direction():
     events = [ev(0, "tempo", bpm=100.0), ev(4, "ramp", direction=1), ev(8, "return", target="previous")]
     tm, _ = build_tempo_map(events, fermatas=[], total_qn=12)
     b1 = 100.0 * (1 + RAMP_DEPTH)  # accel. reaches +20 % (stated default) at the next mark
-    assert tm(8.0) - tm(4.0) == pytest.approx(ramp_seconds(4, 100.0, b1))
+    # hand computed: a linear BPM ramp over L quarters lasts 60 L ln(b1/b0) / (b1 - b0) seconds
+    assert tm(8.0) - tm(4.0) == pytest.approx(60 * 4 * math.log(b1 / 100.0) / (b1 - 100.0), rel=1e-9)
+    assert ramp_seconds(4, 100.0, b1) == pytest.approx(60 * 4 * math.log(b1 / 100.0) / (b1 - 100.0))
     assert tm(12.0) - tm(8.0) == pytest.approx(60 * 4 / 100.0)  # a tempo: back to 100
     assert ramp_seconds(4, 100.0, 100.0) == pytest.approx(2.4)  # no change: 60 * 4 / 100
 
