@@ -20,7 +20,7 @@ def _local_tempo_ratio(perf, score):
 
 @pytest.mark.parametrize("drift", [0.1, 0.25])
 def test_drift_stays_within_its_bounds(melody_score, drift):
-    # the contract: smooth drift bounded to +-drift of the nominal tempo
+    # the task's contract: smooth drift bounded to +-drift of the nominal tempo
     perf = perform(melody_score, seed=7, drift=drift, phrase_rit=0.0, fermata_factor=1.0)
     r = _local_tempo_ratio(perf, melody_score)
     assert r.min() >= 1 - drift - 1e-9 and r.max() <= 1 + drift + 1e-9

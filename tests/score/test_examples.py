@@ -1,6 +1,6 @@
 """The project's example scores: committed files are current, round-trip, and cover every kind.
 
-The requirements checked are the project's own (issue: a 2-4 minute piano piece exercising
+The requirements checked are the project's own (task: a 2-4 minute piano piece exercising
 every boundary kind and a contrasting piece of about 1-1.5 minutes); the facts checked are the
 scores' own notation, as written by ``stimkit.demo.scores``.
 """
