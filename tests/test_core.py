@@ -90,3 +90,12 @@ def test_beat_grid_pickup_has_no_downbeat():
     assert grid["beat"].tolist() == [4.0, 1.0, 2.0, 3.0, 4.0]
     assert grid["is_downbeat"].tolist() == [False, True, False, False, False]
     assert model.qn_at(1, 3.0) == 3.0 and model.locate(0.5)["beat"].iloc[0] == 4.5
+
+
+def test_output_folder_that_refuses_files_is_bad_input():
+    # /proc/self/fdinfo exists and passes os.access for root, but no file can be created in it
+    from stimkit.export.tables import check_output_dir
+
+    with pytest.raises(InputError) as err:
+        check_output_dir("/proc/self/fdinfo")
+    assert "not writable" in str(err.value) and "\n" not in str(err.value)

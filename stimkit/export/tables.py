@@ -121,8 +121,13 @@ def check_output_dir(out_dir: str | Path) -> Path:
         out.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(f"cannot create output folder ({exc.strerror})", path=out) from None
-    if not os.access(out, os.W_OK | os.X_OK):
-        raise InputError("output folder is not writable", path=out)
+    # probe with a real file: os.access says yes to root even where the folder refuses files
+    try:
+        fd, probe = tempfile.mkstemp(prefix=".stimkit-probe.", dir=out)
+        os.close(fd)
+        os.unlink(probe)
+    except OSError as exc:
+        raise InputError(f"output folder is not writable ({exc.strerror or exc})", path=out) from None
     return out
 
 
