@@ -163,8 +163,9 @@ def parse_anchor(text: str, score=None):
     """``"12.3=45.6"`` -> ``(measure, beat, seconds)``; ``"12.3@2=45.6"`` -> ``(12, 3.0, 45.6, 2)``.
 
     Returns a 3-tuple for pass 1 and a 4-tuple ``(measure, beat, seconds, pass)`` when ``@PASS``
-    is written. With ``score`` given, also checks that the bar exists. Raises
-    :class:`InputError` on bad syntax or a bar not in the score.
+    is written. With ``score`` given, also checks that the bar exists and holds the beat, and a
+    bar without a beat (``"12=45.6"``) means its first beat (a pickup bar's is not 1). Raises
+    :class:`InputError` on bad syntax, a bar not in the score or a beat outside the bar.
     """
     m = _ANCHOR_RE.match(str(text))
     if not m:
@@ -179,6 +180,15 @@ def parse_anchor(text: str, score=None):
         except KeyError:
             raise InputError(f"anchor {text!r}: bar {measure} (pass {pas or 1}) is not in the score "
                              f"{score.name}; use a measure number as printed", path=score.path) from None
+        bars = score.measures
+        bar = bars[(bars["measure"] == measure) & (bars["pass"] == (pas or 1))].iloc[0]
+        first = float(bar["first_beat"])
+        end = first + float(bar["duration_qn"]) / float(bar["beat_qn"])
+        if not m.group(2):
+            beat = first    # "M=S": the start of the bar (a pickup bar starts on a later beat)
+        if not first <= beat < end:
+            raise InputError(f"anchor {text!r}: bar {measure} of {score.name} has beats {first:g} to "
+                             f"below {end:g}, not {beat:g}; give a beat inside the bar", path=score.path)
     return (measure, beat, seconds) if pas is None else (measure, beat, seconds, pas)
 
 

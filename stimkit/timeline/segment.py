@@ -87,9 +87,11 @@ def find_pieces(scores, names, audio_path, *, rough_starts=None, duration_s: flo
         else:
             lo, hi = floor, duration_s
         if hi - lo < 0.3 * nominal:
-            raise WorkFailed(f"piece '{name}' cannot fit in the recording after the previous piece "
+            where = " after the previous piece" if k else ""
+            raise WorkFailed(f"piece '{name}' cannot fit in the recording{where} "
                              f"(only {max(hi - lo, 0):.0f} s left, the score lasts about {nominal:.0f} s "
-                             f"at its notated tempo); check the order of the pieces and the recording")
+                             f"at its notated tempo); check the order of the pieces and the recording",
+                             path=audio_path)
         try:
             start, end, cost = locate_piece(score, audio_path, search_span_s=(lo, hi), features=feats)
         except WorkFailed as exc:

@@ -1,0 +1,74 @@
+"""Inputs a researcher gives that the other tests do not cover: anchors on beats a bar does not
+have, bar-only anchors on a pickup bar, a recording too short for its first piece.
+
+The scores are music21 corpus files used in place (``music21.corpus.getWork``); the facts about
+them (meter, pickup beat) come from music21's own analysis of the same file. Recordings are tiny
+WAV files written here.
+"""
+
+import music21
+import numpy as np
+import pytest
+import soundfile as sf
+
+from stimkit.align.run import parse_anchor
+from stimkit.cli import main
+from stimkit.errors import InputError
+from stimkit.score.parse import load_score
+
+CHORALE = music21.corpus.getWork("bach/bwv66.6")
+
+
+@pytest.fixture(scope="module")
+def chorale():
+    return load_score(CHORALE)
+
+
+@pytest.fixture(scope="module")
+def chorale_m21():
+    return music21.corpus.parse(CHORALE)
+
+
+def test_anchor_beat_outside_the_bar_is_refused(chorale, chorale_m21):
+    # music21's own analysis: bar 1 of this chorale is in 4/4, so it has beats 1 to below 5
+    ts = chorale_m21.recurse().getElementsByClass("TimeSignature").first()
+    assert ts.ratioString == "4/4"
+    assert parse_anchor("1.4.5=2.3", chorale)[:2] == (1, 4.5)   # inside the bar: accepted
+    for text in ("1.9=3", "1.5=2", "1.0=0.5"):
+        with pytest.raises(InputError, match="give a beat inside the bar"):
+            parse_anchor(text, chorale)
+
+
+def test_anchor_without_beat_is_the_first_beat_of_a_pickup_bar(chorale, chorale_m21):
+    # music21's own analysis: the chorale opens with a one-quarter pickup, printed as bar 0, whose
+    # only note falls on beat 4 of the 4/4 bar
+    first_bar = chorale_m21.parts[0].getElementsByClass("Measure").first()
+    assert first_bar.number == 0
+    pickup_beat = float(first_bar.notes.first().beat)
+    assert parse_anchor("0=0.02", chorale)[1] == pickup_beat
+    with pytest.raises(InputError, match="has beats"):
+        parse_anchor("0.1=0.02", chorale)   # beat 1 lies before the pickup
+
+
+def test_anchor_beat_error_through_the_cli_is_one_line(tmp_path, capsys):
+    wav = tmp_path / "a.wav"
+    sf.write(wav, np.zeros(22050, dtype=np.float32), 22050)
+    code = main(["align", str(CHORALE), str(wav), "--anchor", "1.9=3", "-o", str(tmp_path / "out")])
+    err = capsys.readouterr().err.strip()
+    assert code == 2                                     # DESIGN.md: exit 2 for bad input
+    assert "\n" not in err and "internal error" not in err and "bwv66.6" in err
+    assert not (tmp_path / "out").exists()               # a refused run writes nothing
+
+
+def test_first_piece_longer_than_the_recording(tmp_path, capsys):
+    # a 1 s recording cannot hold a chorale lasting about half a minute at its notated tempo:
+    # the message names the recording and does not speak of a previous piece (there is none)
+    wav = tmp_path / "tiny take.wav"
+    rng = np.random.default_rng(0)
+    sf.write(wav, 0.1 * rng.standard_normal(22050).astype(np.float32), 22050)
+    out = tmp_path / "out"
+    code = main(["annotate", "--score", str(CHORALE), "--audio", str(wav), "-o", str(out)])
+    err = capsys.readouterr().err.strip()
+    assert code == 1                                     # DESIGN.md: exit 1 when the work fails
+    assert "\n" not in err and "tiny take.wav" in err and "previous piece" not in err
+    assert not out.exists() or not any(out.iterdir())   # a failed run leaves no file
