@@ -72,3 +72,24 @@ def test_first_piece_longer_than_the_recording(tmp_path, capsys):
     assert code == 1                                     # DESIGN.md: exit 1 when the work fails
     assert "\n" not in err and "tiny take.wav" in err and "previous piece" not in err
     assert not out.exists() or not any(out.iterdir())   # a failed run leaves no file
+
+
+def test_performance_that_starts_at_the_first_sample(tmp_path):
+    # A recording cut right at the first note (no silence before it): the first positions must
+    # not be swallowed by the score template's silent lead-in (before the fix the opening bar
+    # came out 0.5-1.2 s late). Ground truth: the renderer's own note times. Tolerance 0.1 s,
+    # well above the 9 ms median error measured on the bundled demo (docs/session-and-outputs.md)
+    from stimkit.align.run import align_files
+    from stimkit.render import render_score
+
+    path = music21.corpus.getWork("mozart/k545/movement1_exposition.mxl")
+    y, perf = render_score(load_score(path), seed=3, start_s=0.0)
+    wav = tmp_path / "from-the-first-note.wav"
+    sf.write(wav, y, 22050)
+    res = align_files(path, wav)
+    truth = perf.positions().set_index("score_qn")["onset_s"]
+    got = res.notes.set_index("score_qn")["recording"]
+    first_bar = truth.index[truth.index < 4.0]            # the opening 4/4 bar
+    err = (got.loc[first_bar] - truth.loc[first_bar]).abs()
+    assert float(truth.iloc[0]) < 0.01                    # the music starts at the first sample
+    assert float(err.max()) < 0.1

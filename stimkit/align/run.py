@@ -26,8 +26,12 @@ Conventions
 - ``recording``: seconds from the first sample of the file, also when ``span_s`` restricts the
   search. ``score_qn``: quarter notes as performed. ``nominal``: seconds at the notated tempo.
 - Anchors: ``MEASURE[.BEAT][@PASS]=SECONDS``; measure numbers as printed, beat 1-based in the bar's
-  beat unit (default 1, may be fractional as in ``12.2.5``), pass 1 unless ``@PASS`` is given
-  (``12.3@2=95.0`` is beat 3 of bar 12 the second time it is played).
+  beat unit (default the bar's first beat, may be fractional as in ``12.2.5``, must lie inside
+  the bar), pass 1 unless ``@PASS`` is given (``12.3@2=95.0`` is beat 3 of bar 12 the second
+  time it is played).
+- Lead-in: the score template starts with a second of silence to meet the silence-to-music edge
+  of the recording; a recording that sounds from its first sample (:data:`SOUNDING_START_DB`)
+  has no such edge, and the lead-in is dropped.
 - Confidence: the Raffel--Ellis ratio (mean cost on the path ÷ mean cost of the whole cost
   matrix, estimated at the finest rate from 20 000 cell pairs drawn with a fixed seed); overall
   and local (2 s of score) values mapped to 0..1 by :func:`stimkit.align.warp.ratio_to_confidence`.
@@ -129,6 +133,11 @@ FLAG_ALWAYS_S = 10.0
 TRIM_RATIO = 0.75
 #: Smoothed path-cost ratio above which a stretch of recording counts as not matching.
 MISMATCH_RATIO = 0.8
+#: A recording whose first 0.1 s reach this level (dB re the 95th percentile of its frame
+#: energies) starts with its music: there is no silence-to-music edge for the template's silent
+#: lead-in, which would otherwise swallow the first second of music (rendered tests: music from
+#: the first sample -14 to -1 dB, a -60 dBFS noise floor before the music below -37 dB).
+SOUNDING_START_DB = -20.0
 FACTORS = (50, 5, 1)
 RADII = (0, 10, 25)
 ONSET_WEIGHT = 1.0
@@ -222,6 +231,23 @@ def _beat_qn_of(score, qn):
     return m["beat_qn"].to_numpy(np.float64)[i]
 
 
+def _starts_sounding(A) -> bool:
+    """Whether the recording features ``A`` begin at the file's first sample with music."""
+    e = A.energy
+    if A.start_s > 0.0 or e is None or e.size == 0:
+        return False
+    head = float(e[: max(1, int(round(0.1 * A.rate_hz)))].max())
+    return head > 0.0 and 10 * np.log10(head / max(float(np.percentile(e, 95)), 1e-300)) >= SOUNDING_START_DB
+
+
+def _without_lead_in(S):
+    """The score features ``S`` without their silent lead-in (one frame before score_qn 0 kept)."""
+    h = max(int(np.floor(-S.start_s * S.rate_hz + 1e-9)) - 1, 0)
+    return _chroma.AlignFeatures(chroma=S.chroma[h:], onset=S.onset[h:], rate_hz=S.rate_hz,
+                                 start_s=S.start_s + h / S.rate_hz,
+                                 energy=None if S.energy is None else S.energy[h:], meta=dict(S.meta))
+
+
 def _ref_cost(S, A, onset_weight):
     """Mean local cost of the whole fine matrix, estimated from a fixed sample of cells."""
     rng = np.random.default_rng(0)
@@ -289,6 +315,9 @@ def align_score(
         raise InputError(f"recording{' span' if span_s else ''} is silent (peak below {SILENT_DBFS:g} "
                          "dBFS); check the file or the span", path=audio_path)
     S = score_features(score, rate_hz=A.rate_hz)
+    sounding_start = _starts_sounding(A)
+    if sounding_start:
+        S = _without_lead_in(S)
     nominal = float(score.nominal_duration_s)
     if span_len > LONG_FACTOR * max(nominal, 1e-9):
         warnings.append(f"the recording{' span' if span_s else ''} ({span_len:.1f} s) is "
@@ -439,7 +468,8 @@ def align_score(
         "mismatch_ratio": MISMATCH_RATIO,
         "trim_ratio": TRIM_RATIO,
         "tempo_window_beats": TEMPO_WINDOW_BEATS,
-        "score_template": "from the notes (harmonic model), lead-in 1 s",
+        "score_template": "from the notes (harmonic model), lead-in "
+                          + ("dropped (the recording starts with music)" if sounding_start else "1 s"),
     }
     confidence = {"overall": overall, "raffel_ellis_ratio": ratio, "key_ratio": key_ratio,
                   "best_key_shift": best_shift,
