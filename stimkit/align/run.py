@@ -31,7 +31,8 @@ Conventions
   time it is played).
 - Lead-in: the score template starts with a second of silence to meet the silence-to-music edge
   of the recording; a recording that sounds from its first sample (:data:`SOUNDING_START_DB`)
-  has no such edge, and the lead-in is dropped.
+  has no such edge, so a second of silence is put before it (features only: silence chroma, no
+  onsets); without it the lead-in swallowed up to the first 1.5 s of music.
 - Confidence: the Raffel--Ellis ratio (mean cost on the path ÷ mean cost of the whole cost
   matrix, estimated at the finest rate from 20 000 cell pairs drawn with a fixed seed); overall
   and local (2 s of score) values mapped to 0..1 by :func:`stimkit.align.warp.ratio_to_confidence`.
@@ -82,7 +83,7 @@ from ..errors import InputError, WorkFailed
 from ..timemap import TimeMap
 from . import chroma as _chroma
 from .dtw import StepWeights, key_shift_costs, multiscale_dtw, path_costs
-from .template import score_features
+from .template import HEAD_S, score_features
 from .warp import (
     RATIO_BAD,
     RATIO_GOOD,
@@ -136,7 +137,8 @@ MISMATCH_RATIO = 0.8
 #: A recording whose first 0.1 s reach this level (dB re the 95th percentile of its frame
 #: energies) starts with its music: there is no silence-to-music edge for the template's silent
 #: lead-in, which would otherwise swallow the first second of music (rendered tests: music from
-#: the first sample -14 to -1 dB, a -60 dBFS noise floor before the music below -37 dB).
+#: the first sample -14 to -1 dB, a -60 dBFS noise floor before the music below -37 dB). Such a
+#: recording gets a virtual second of silence before it.
 SOUNDING_START_DB = -20.0
 FACTORS = (50, 5, 1)
 RADII = (0, 10, 25)
@@ -240,12 +242,18 @@ def _starts_sounding(A) -> bool:
     return head > 0.0 and 10 * np.log10(head / max(float(np.percentile(e, 95)), 1e-300)) >= SOUNDING_START_DB
 
 
-def _without_lead_in(S):
-    """The score features ``S`` without their silent lead-in (one frame before score_qn 0 kept)."""
-    h = max(int(np.floor(-S.start_s * S.rate_hz + 1e-9)) - 1, 0)
-    return _chroma.AlignFeatures(chroma=S.chroma[h:], onset=S.onset[h:], rate_hz=S.rate_hz,
-                                 start_s=S.start_s + h / S.rate_hz,
-                                 energy=None if S.energy is None else S.energy[h:], meta=dict(S.meta))
+def _with_silent_lead_in(A):
+    """The recording features ``A`` after a virtual second of silence (the template's lead-in):
+    silence chroma, no onsets, zero energy; frame 0 moves to ``-HEAD_S`` (rounded to frames)."""
+    h = int(round(HEAD_S * A.rate_hz))
+    chroma = np.zeros((h, A.chroma.shape[1]))
+    chroma[:, -1] = 1.0        # the silence component (as finish_chroma gives digital silence)
+    return _chroma.AlignFeatures(
+        chroma=np.concatenate([chroma, A.chroma]),
+        onset=np.concatenate([np.zeros((h, A.onset.shape[1])), A.onset]),
+        rate_hz=A.rate_hz, start_s=A.start_s - h / A.rate_hz,
+        energy=None if A.energy is None else np.concatenate([np.zeros(h), A.energy]),
+        meta=dict(A.meta))
 
 
 def _ref_cost(S, A, onset_weight):
@@ -314,10 +322,11 @@ def align_score(
     if A.meta["peak"] <= 10 ** (SILENT_DBFS / 20):
         raise InputError(f"recording{' span' if span_s else ''} is silent (peak below {SILENT_DBFS:g} "
                          "dBFS); check the file or the span", path=audio_path)
-    S = score_features(score, rate_hz=A.rate_hz)
+    span_start = A.start_s
     sounding_start = _starts_sounding(A)
     if sounding_start:
-        S = _without_lead_in(S)
+        A = _with_silent_lead_in(A)
+    S = score_features(score, rate_hz=A.rate_hz)
     nominal = float(score.nominal_duration_s)
     if span_len > LONG_FACTOR * max(nominal, 1e-9):
         warnings.append(f"the recording{' span' if span_s else ''} ({span_len:.1f} s) is "
@@ -331,9 +340,9 @@ def align_score(
     rate = A.rate_hz
     cells = []
     for qn, sec, label in pts:
-        if not (A.start_s <= sec <= A.meta["end_s"]):
+        if not (span_start <= sec <= A.meta["end_s"]):
             raise InputError(f"anchor {label!r}: {sec:g} s is outside the recording"
-                             f"{' span' if span_s else ''} ({A.start_s:.2f}-{A.meta['end_s']:.2f} s)",
+                             f"{' span' if span_s else ''} ({span_start:.2f}-{A.meta['end_s']:.2f} s)",
                              path=audio_path)
         i = int(round((float(score.tempo_map(qn)) - S.start_s) * rate))
         j = int(round((sec - A.start_s) * rate))
@@ -468,8 +477,8 @@ def align_score(
         "mismatch_ratio": MISMATCH_RATIO,
         "trim_ratio": TRIM_RATIO,
         "tempo_window_beats": TEMPO_WINDOW_BEATS,
-        "score_template": "from the notes (harmonic model), lead-in "
-                          + ("dropped (the recording starts with music)" if sounding_start else "1 s"),
+        "score_template": "from the notes (harmonic model), lead-in 1 s",
+        "recording_lead_in_s": HEAD_S if sounding_start else 0.0,
     }
     confidence = {"overall": overall, "raffel_ellis_ratio": ratio, "key_ratio": key_ratio,
                   "best_key_shift": best_shift,
