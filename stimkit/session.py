@@ -468,18 +468,10 @@ score = "second-piece.musicxml"
 def annotate_session(session: Session, *, progress=None, command: list[str] | None = None):
     """Run the main job on a validated session; see :func:`stimkit.timeline.run.annotate`.
 
-    ``command`` is recorded in ``provenance.json`` (default: an equivalent command line). An
-    output folder made for this run is removed again if the run fails before writing to it."""
+    ``command`` is recorded in ``provenance.json`` (default: an equivalent command line)."""
     from .timeline.run import annotate
 
-    out = Path(session.out_dir)
-    made = not out.exists()
-    try:
-        return annotate(session, progress=progress, command=command)
-    except BaseException:
-        if made and out.is_dir() and not any(out.iterdir()):
-            out.rmdir()
-        raise
+    return annotate(session, progress=progress, command=command)
 
 
 def summary_lines(result) -> list[str]:
