@@ -113,3 +113,24 @@ def test_midi_score_of_a_performance_that_starts_at_the_first_sample(tmp_path, c
     opening = truth.index[truth.index < 5.0]             # the pickup and the first full bar
     err = (got.loc[opening] - truth.loc[opening]).abs()
     assert float(err.max()) < 0.1                        # tolerance as in the test above
+
+
+def test_same_piece_played_twice_is_found_twice(tmp_path, chorale):
+    # A programme that plays one piece twice (a common repeated-stimulus design): the first
+    # search must not take the second performance, which left no room for the repeat ("cannot
+    # fit ... after the previous piece"). Ground truth: the renderer's note times.
+    from stimkit.render import render_score
+    from stimkit.timeline.segment import find_pieces
+
+    sr = 22050
+    first, p1 = render_score(chorale, seed=1, start_s=2.0)
+    second, p2 = render_score(chorale, seed=2, start_s=0.0)
+    gap = np.zeros(5 * sr, dtype=np.float32)
+    y = np.concatenate([first, gap, second]).astype(np.float32)
+    wav = tmp_path / "twice.wav"
+    sf.write(wav, y, sr)
+    offset = (len(first) + len(gap)) / sr
+    spans = find_pieces([chorale, chorale], ["first", "again"], wav, duration_s=len(y) / sr)
+    # the matcher is good to about half a second (stimkit.timeline.segment docstring)
+    assert abs(spans[0].start_s - float(p1.notes["onset_s"].min())) < 0.5
+    assert abs(spans[1].start_s - (offset + float(p2.notes["onset_s"].min()))) < 0.5
