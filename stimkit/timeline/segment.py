@@ -5,9 +5,11 @@ What it computes
 :func:`find_pieces` takes the scores in the order they were played and returns, for each, the
 span of the recording it occupies (``recording`` seconds, start and end) and the matching cost.
 Pieces are searched one after another, each after the end of the previous one; a rough start
-given by the user narrows the search to a window around it. Silence, speech and applause
-between pieces are skipped because the score is matched as a *subsequence* of the recording:
-the path may start and end anywhere (subsequence DTW, Müller 2015, ch. 7.2).
+given by the user narrows the search to a window around it. A match that leaves too little
+room for the pieces still to come (less than 0.3 of their notated length) is searched again
+before that room, so a piece played twice is found at its first performance. Silence, speech
+and applause between pieces are skipped because the score is matched as a *subsequence* of the
+recording: the path may start and end anywhere (subsequence DTW, Müller 2015, ch. 7.2).
 
 The matching itself is the alignment stage's :func:`stimkit.align.locate.locate_piece` (chroma
 of the score template against chroma of the recording at about 2 Hz), with the recording's
