@@ -134,3 +134,18 @@ def test_same_piece_played_twice_is_found_twice(tmp_path, chorale):
     # the matcher is good to about half a second (stimkit.timeline.segment docstring)
     assert abs(spans[0].start_s - float(p1.notes["onset_s"].min())) < 0.5
     assert abs(spans[1].start_s - (offset + float(p2.notes["onset_s"].min()))) < 0.5
+
+
+def test_score_without_notes_is_refused_for_align_too(tmp_path):
+    # a score of rests only (written with music21): one line naming the file, for every verb
+    s = music21.stream.Score()
+    part = music21.stream.Part()
+    bar = music21.stream.Measure(number=1)
+    bar.append(music21.note.Rest(quarterLength=4))
+    part.append(bar)
+    s.append(part)
+    path = tmp_path / "rests only.musicxml"
+    s.write("musicxml", fp=str(path))
+    with pytest.raises(InputError, match="nothing to plan or align") as info:
+        load_score(path)
+    assert "rests only.musicxml" in str(info.value) and "\n" not in str(info.value)

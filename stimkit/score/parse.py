@@ -614,8 +614,8 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     printed = collect_printed(score, path=path, keep_velocity=is_midi)
     printed.is_midi = is_midi
     if printed.notes.empty:
-        raise InputError("score has no pitched notes; nothing to plan (percussion-only and empty "
-                         "scores are not supported)", path=path)
+        raise InputError("score has no pitched notes; nothing to plan or align (percussion-only and "
+                         "empty scores are not supported)", path=path)
     perf, warns = performed_bars(printed, expand_repeats=expand_repeats)
     warnings = [f"music21: {w}" for w in m21_warnings[:20]] + list(printed.warnings) + warns
 
