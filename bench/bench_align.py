@@ -31,7 +31,7 @@ SR = 22050
 PIECES = [
     ROOT / "example_scores" / "lanterns-over-the-weir.musicxml",
     "beach/prayer_of_a_tired_child.musicxml",
-    ROOT / "example_scores" / "paper-kites-at-dusk.musicxml",
+    ROOT / "example_scores" / "kites-at-dusk.musicxml",
     "schumann_clara/polonaise_op1n4.mxl",
     "joplin/maple_leaf_rag.mxl",
     "mozart/k545/movement1_exposition.mxl",

@@ -9,6 +9,7 @@ traceback instead.
 from __future__ import annotations
 
 import os
+import signal
 import sys
 import traceback
 from pathlib import Path
@@ -181,7 +182,10 @@ def main(argv: list[str] | None = None) -> int:
     try:
         app(args=argv, standalone_mode=True)  # click prints usage errors itself (exit 2)
     except SystemExit as exc:
-        return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
+        if code == 130:  # typer turns Ctrl-C into exit 130; outputs are staged, so none appeared
+            print("stimkit: interrupted; no output was written", file=sys.stderr)
+        return code
     except StimkitError as exc:
         if _STATE["debug"]:
             traceback.print_exc()
@@ -200,5 +204,14 @@ def main(argv: list[str] | None = None) -> int:
     return 0
 
 
+def run() -> None:  # pragma: no cover - the console script
+    """Console script: exit with :func:`main`'s code. Once the work is done (outputs committed or
+    refused), a late Ctrl-C during interpreter shutdown has nothing left to interrupt: ignore it
+    rather than die by the signal."""
+    code = main()
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    sys.exit(code)
+
+
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    run()

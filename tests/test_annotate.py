@@ -21,7 +21,7 @@ from stimkit.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 SCORES = ROOT / "example_scores"
-SHORT = SCORES / "paper-kites-at-dusk.musicxml"
+SHORT = SCORES / "kites-at-dusk.musicxml"
 OTHER = SCORES / "lanterns-over-the-weir.musicxml"
 LEAD_S = 3.0
 
@@ -129,7 +129,9 @@ def test_sigint_leaves_nothing(tmp_path, one_piece):
     files = list(out.iterdir()) if out.exists() else []
     if code == 0:  # finished before the signal: then every file is whole (nothing to check)
         pytest.skip("the run finished before the interrupt arrived")
-    assert code == 130
+    # 130 = 128 + SIGINT, the shell's code for an interrupted command; a process that dies by the
+    # signal itself (Popen's -2) shows as the same 130 in a shell
+    assert code in (130, -signal.SIGINT)
     assert files == []
 
 

@@ -48,7 +48,7 @@ __all__ = ["Scenario", "render_scenario", "write_scenario", "SCORES", "SR", "CLO
 
 ROOT = Path(__file__).resolve().parents[2]
 #: The example scores played, in order (relative to the repository root).
-SCORES = ("example_scores/lanterns-over-the-weir.musicxml", "example_scores/paper-kites-at-dusk.musicxml")
+SCORES = ("example_scores/lanterns-over-the-weir.musicxml", "example_scores/kites-at-dusk.musicxml")
 SR = 22050
 SEED = 20261201
 CLOCK_OFFSET_S = 7.25

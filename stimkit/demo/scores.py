@@ -13,7 +13,7 @@ hand, broken-chord or waltz accompaniment in the left hand.
   major, meter 4/4 -> 3/4 -> 4/4, tempos Andante q = 84, più mosso, Allegretto q = 112, rit.,
   Tempo I q = 84; dynamics pp..ff with hairpins, accents (sfz, sf, fp), fermatas and a general
   pause bar.
-- :data:`PIECE_TWO` ``paper-kites-at-dusk.musicxml``: about 70 seconds; 6/8 in D minor with a
+- :data:`PIECE_TWO` ``kites-at-dusk.musicxml``: about 70 seconds; 6/8 in D minor with a
   middle section in F major (meno mosso), a tempo, accel. to the end; dotted-quarter metronome
   marks.
 
@@ -30,9 +30,9 @@ from pathlib import Path
 __all__ = ["build_scores", "write_scores", "PIECE_ONE", "PIECE_TWO", "SCORE_FILES"]
 
 PIECE_ONE = "lanterns-over-the-weir"
-PIECE_TWO = "paper-kites-at-dusk"
+PIECE_TWO = "kites-at-dusk"
 SCORE_FILES = (f"{PIECE_ONE}.musicxml", f"{PIECE_TWO}.musicxml")
-TITLES = {PIECE_ONE: "Lanterns over the Weir", PIECE_TWO: "Paper Kites at Dusk"}
+TITLES = {PIECE_ONE: "Lanterns over the Weir", PIECE_TWO: "Kites at Dusk"}
 
 # rhythm patterns of the melody, in quarter notes, by bar length
 _RH_PATTERNS = {

@@ -26,7 +26,7 @@ ROOT = Path(__file__).resolve().parents[2]
 # (label, source, timbre, seed, room)
 PIECES = [
     ("lanterns", ROOT / "example_scores" / "lanterns-over-the-weir.musicxml", "piano", 11, False),
-    ("paper-kites", ROOT / "example_scores" / "paper-kites-at-dusk.musicxml", "organ", 12, True),
+    ("kites-at-dusk", ROOT / "example_scores" / "kites-at-dusk.musicxml", "organ", 12, True),
     ("bwv66.6", "bach/bwv66.6", "organ", 13, False),
     ("k545", "mozart/k545/movement1_exposition.mxl", "piano", 14, True),
     ("prayer", "beach/prayer_of_a_tired_child.musicxml", "piano", 15, False),
