@@ -50,6 +50,7 @@ References
 
 from __future__ import annotations
 
+import librosa
 import numpy as np
 import pandas as pd
 from scipy.signal import butter, sosfilt
@@ -71,9 +72,8 @@ _SHAPE = {"piano": (0.09, 5.0, 0.0015), "organ": (0.05, 120.0, 0.012), "strings"
 _ORGAN_RANKS = np.array([[1, 1.0], [2, 0.55], [3, 0.30], [4, 0.28], [5, 0.10], [6, 0.14], [8, 0.10]])
 
 
-def midi_to_hz(pitch) -> np.ndarray:
-    """Equal-tempered frequency of a MIDI number, A4 = MIDI 69 = 440 Hz."""
-    return 440.0 * 2.0 ** ((np.asarray(pitch, dtype=np.float64) - 69.0) / 12.0)
+#: Equal-tempered frequency of a MIDI number, A4 = MIDI 69 = 440 Hz (librosa's own function).
+midi_to_hz = librosa.midi_to_hz
 
 
 def _stretch_cents(pitch: float) -> float:
