@@ -53,6 +53,8 @@ import numba
 import numpy as np
 from scipy import signal
 
+from .read import as_block
+
 __all__ = ["k_weighting_sos", "channel_weights", "EnergyGrid", "LoudnessMeter", "power_to_lufs",
            "GRID_STEP_S", "MOMENTARY_S", "SHORT_TERM_S", "true_peak_filter"]
 
@@ -359,11 +361,7 @@ class LoudnessMeter:
 
     # -- feeding -------------------------------------------------------------------------
     def push(self, block: np.ndarray) -> None:
-        x = np.asarray(block)
-        if x.dtype not in (np.float32, np.float64):
-            x = x.astype(np.float64)
-        if x.ndim == 1:
-            x = x[:, None]
+        x = as_block(block)
         if x.shape[0] == 0:
             return
         n = x.shape[0]

@@ -47,7 +47,8 @@ import pandas as pd
 from ..errors import InputError
 from . import rhythm, silence, spectral, tonal
 from .loudness import EnergyGrid, LoudnessMeter, window_mean
-from .read import MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, audio_info, iter_blocks
+from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, as_block, audio_info,
+                   iter_blocks)
 
 __all__ = ["FeatureResult", "compute_features", "features_from_array", "write_features",
            "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "MAX_RATE_HZ", "BLOCK_S"]
@@ -148,11 +149,7 @@ class _Analyser:
         self._rough.append(tonal.roughness(power, freqs=self.freqs).astype(np.float32))
 
     def push(self, block: np.ndarray) -> None:
-        x = np.asarray(block)
-        if x.dtype not in (np.float32, np.float64):
-            x = x.astype(np.float64)
-        if x.ndim == 1:
-            x = x[:, None]
+        x = as_block(block)
         # the native-rate loudness path runs in a worker thread while this one does the spectra
         fut = self._pool.submit(self.loud.push, x)
         try:

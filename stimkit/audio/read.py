@@ -41,8 +41,8 @@ import soundfile as sf
 
 from ..errors import InputError
 
-__all__ = ["AudioInfo", "audio_info", "iter_blocks", "StreamResampler", "MIN_SAMPLE_RATE_HZ",
-           "MAX_SAMPLE_RATE_HZ"]
+__all__ = ["AudioInfo", "audio_info", "iter_blocks", "StreamResampler", "as_block",
+           "MIN_SAMPLE_RATE_HZ", "MAX_SAMPLE_RATE_HZ"]
 
 MIN_SAMPLE_RATE_HZ = 8000
 MAX_SAMPLE_RATE_HZ = 768000
@@ -118,6 +118,17 @@ class StreamResampler:
         if self._passthrough:
             return x
         return self._rs.resample_chunk(x, last=last)
+
+
+def as_block(block) -> np.ndarray:
+    """``block`` as a float array of shape ``(n, channels)``: float32/float64 are kept, anything
+    else is cast to float64; a 1-D block is one channel."""
+    x = np.asarray(block)
+    if x.dtype not in (np.float32, np.float64):
+        x = x.astype(np.float64)
+    if x.ndim == 1:
+        x = x[:, None]
+    return x
 
 
 def _clean(block: np.ndarray, counts: dict | None) -> np.ndarray:
