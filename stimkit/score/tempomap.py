@@ -186,7 +186,7 @@ def build_tempo_map(events: list[dict], *, fermatas: list[tuple[float, float]], 
         extra = np.zeros_like(knots)
         for a, b in merged:
             ta, tb = np.interp(a, x, y), np.interp(b, x, y)
-            inside = np.clip(np.interp(knots, x, y), ta, tb) - ta
+            inside = np.clip(base, ta, tb) - ta
             extra += (FERMATA_FACTOR - 1.0) * inside
         x, y = knots, base + extra
     keep = np.concatenate([[True], np.diff(x) > 1e-12])
