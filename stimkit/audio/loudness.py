@@ -298,25 +298,32 @@ def _max_full_window(sums, counts, n_full, *, window_s: float, step: int = 1 << 
     return max(best, 0.0)
 
 
+def _gate(power: np.ndarray, relative_lu: float):
+    """The two gates of BS.1770 / Tech 3342 -> ``(lk, mask)``: the loudness of each power, and the
+    mask of those above the absolute gate and above the mean of the absolutely gated powers plus
+    ``relative_lu``; the mask is None when nothing passes the absolute gate."""
+    lk = power_to_lufs(power)
+    above = lk > ABSOLUTE_GATE_LUFS
+    if not above.any():
+        return lk, None
+    rel = float(power_to_lufs(power[above].mean())) + relative_lu
+    return lk, above & (lk > rel)
+
+
 def gated_integrated(block_power: np.ndarray) -> float:
     """BS.1770-4 gated integration of 400 ms block powers -> LUFS (``-inf``/NaN if nothing passes)."""
-    lk = power_to_lufs(block_power)
-    keep = block_power[lk > ABSOLUTE_GATE_LUFS]
-    if keep.size == 0:
+    _, keep = _gate(block_power, RELATIVE_GATE_LU)
+    if keep is None:
         return float("nan")
-    rel = float(power_to_lufs(keep.mean())) + RELATIVE_GATE_LU
-    keep2 = block_power[(lk > ABSOLUTE_GATE_LUFS) & (lk > rel)]
-    return float(power_to_lufs(keep2.mean()))
+    return float(power_to_lufs(block_power[keep].mean()))
 
 
 def loudness_range(short_term_power: np.ndarray) -> float:
     """EBU Tech 3342 LRA in LU from short-term powers (NaN if none pass the gates)."""
-    lk = power_to_lufs(short_term_power)
-    keep = short_term_power[lk > ABSOLUTE_GATE_LUFS]
-    if keep.size == 0:
+    lk, keep = _gate(short_term_power, LRA_RELATIVE_GATE_LU)
+    if keep is None:
         return float("nan")
-    rel = float(power_to_lufs(keep.mean())) + LRA_RELATIVE_GATE_LU
-    vals = lk[(lk > ABSOLUTE_GATE_LUFS) & (lk > rel)]
+    vals = lk[keep]
     if vals.size == 0:
         return float("nan")
     return float(np.percentile(vals, 95) - np.percentile(vals, 10))
