@@ -452,7 +452,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
             b.coda = 2 if b.coda % 2 == 0 else 1
 
     # --- spanners: wedges and voltas -----------------------------------------------------------
-    seen_volta = set()
+    bar_of_measure = {id(mm): i for pm in part_measures for i, mm in pm}  # music21 Measure -> bar
     raw_wedges = getattr(score, "_stimkit_wedges", None)
     if raw_wedges:
         # <part> index -> the first music21 part (staff) built from it
@@ -475,13 +475,9 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
         elif isinstance(sp, spanner.RepeatBracket):
             nums = _volta_numbers(sp)
             for m in sp.getSpannedElements():
-                if not isinstance(m, stream.Measure):
-                    continue
-                for k, pm in enumerate(part_measures):
-                    for i, mm in pm:
-                        if mm is m and (i, nums) not in seen_volta:
-                            seen_volta.add((i, nums))
-                            marks[i].voltas = tuple(sorted(set(marks[i].voltas) | set(nums)))
+                i = bar_of_measure.get(id(m))
+                if i is not None:
+                    marks[i].voltas = tuple(sorted(set(marks[i].voltas) | set(nums)))
     notes = pd.DataFrame(note_rows, columns=["part", "bar", "off", "dur", "pitch", "tie", "accent", "vel"])
     events = pd.DataFrame(ev)
     for c in ("text", "text2"):
