@@ -60,13 +60,11 @@ Known limits
 
 References
 ----------
-.. [1] M. Müller, H. Mattes, F. Kurth. "An efficient multiscale approach to audio
-   synchronization", ISMIR 2006.
-.. [2] T. Prätzlich, J. Driedger, M. Müller. "Memory-restricted multiscale dynamic time
-   warping", ICASSP 2016.
-.. [3] S. Ewert, M. Müller, P. Grosche. "High resolution audio synchronization using chroma
-   onset features", ICASSP 2009.
-.. [4] C. Raffel, D. P. W. Ellis. "Optimizing DTW-based audio-to-MIDI alignment and matching",
+The multiscale DTW (Müller, Mattes & Kurth 2006; Prätzlich, Driedger & Müller 2016) and the
+chroma-onset features (Ewert, Müller & Grosche 2009) are cited where they are implemented, in
+:mod:`stimkit.align.dtw` and :mod:`stimkit.align.chroma`.
+
+.. [1] C. Raffel, D. P. W. Ellis. "Optimizing DTW-based audio-to-MIDI alignment and matching",
    ICASSP 2016.
 """
 
