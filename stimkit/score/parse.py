@@ -339,6 +339,12 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
         d.update(kw)
         ev.append(d)
 
+    def add_key(k, i, off, ks):
+        is_key = isinstance(ks, key.Key)  # a Key carries its mode and tonic, a KeySignature not
+        mode = getattr(ks, "mode", None) if is_key else None
+        tonic = ks.tonic.name if is_key else None
+        add("key", k, i, off, num=float(ks.sharps), text=mode or "", text2=tonic or "")
+
     for k, pm in enumerate(part_measures):
         key_cur = None
         for i, m in pm:
@@ -363,9 +369,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                 for el in container.elements:
                     off = base + float(container.elementOffset(el))
                     if isinstance(el, key.KeySignature):
-                        mode = getattr(el, "mode", None) if isinstance(el, key.Key) else None
-                        tonic = el.tonic.name if isinstance(el, key.Key) else None
-                        add("key", k, i, off, num=float(el.sharps), text=mode or "", text2=tonic or "")
+                        add_key(k, i, off, el)
                         key_cur = el
                         key_here = True
                         continue
@@ -443,9 +447,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                 ctx = m.getContextByClass(key.KeySignature)
                 if ctx is not None:
                     key_cur = ctx
-                    mode = getattr(ctx, "mode", None) if isinstance(ctx, key.Key) else None
-                    tonic = ctx.tonic.name if isinstance(ctx, key.Key) else None
-                    add("key", k, i, 0.0, num=float(ctx.sharps), text=mode or "", text2=tonic or "")
+                    add_key(k, i, 0.0, ctx)
     # marks from later parts collapse to one entry per bar (the union is what matters)
     for b in marks:
         if b.coda > 2:
