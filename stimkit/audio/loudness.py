@@ -405,12 +405,11 @@ class LoudnessMeter:
         bound = cmax.copy()
         bound[1:] = np.maximum(cmax[1:], cmax[:-1])
         hot = np.flatnonzero(bound > self.true_peak / self._l1)
-        hist = self._hist
-        self._hist = np.concatenate([hist, x])[-(T - 1):].astype(np.float64)
+        seg = np.concatenate([self._hist, x.astype(np.float64, copy=False)], axis=0)
+        self._hist = seg[-(T - 1):].copy()
         self._hist_abs = padded[n_in - (T - 1):n_in].copy()
         if hot.size == 0:
             return
-        seg = np.concatenate([hist, x.astype(np.float64, copy=False)], axis=0)
         self.true_peak = float(_true_peak_chunks(seg, hot.astype(np.int64), C, self._hphase,
                                                  self.true_peak))
 
