@@ -406,13 +406,12 @@ BEAT_INFO: dict[str, tuple[str, str, str | None]] = {
     "onset": ("Beat onset", "Time of the beat on the same clock as the events file's onset.", "s"),
     "duration": ("Beat duration", "Time to the next beat of the same piece (n/a for the last beat).", "s"),
     "piece": ("Piece", "Name of the piece the beat belongs to.", None),
-    "measure": ("Measure", "Bar number as printed in the score (a pickup may be 0).", None),
+    "measure": COLUMN_INFO["measure"],
     "pass": ("Pass", "1 on the first playing of a bar, 2 on its first repeat, and so on.", None),
-    "beat": ("Beat", "1-based beat within the bar, in the bar's beat unit.", None),
+    "beat": COLUMN_INFO["beat"],
     "is_downbeat": ("Downbeat", "true on the first beat of a bar.", None),
-    "score_qn": ("Score position", "Quarter notes from the start of the piece as performed "
-                 "(repeats expanded).", "quarter notes"),
-    "recording": ("Recording time", "Seconds from the first sample of the recording file.", "s"),
+    "score_qn": COLUMN_INFO["score_qn"],
+    "recording": COLUMN_INFO["recording"],
 }
 
 
