@@ -250,14 +250,11 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
                       written=written, gap_s=float(gap_s))
 
 
-def _mmss(s: float) -> str:
-    s = max(float(s), 0.0)
-    return f"{int(s // 60)}:{s % 60:04.1f}"
-
-
 def summary_tables(result: PlanResult) -> list:
     """rich tables for the terminal: one row per piece, then boundary counts by kind."""
     from rich.table import Table
+
+    from ..report.cuesheet import _t as _mmss  # m:ss.s, the cue sheet's time format
 
     t1 = Table(title="Programme (nominal)")
     for c in ("#", "piece", "start", "duration", "bars", "boundaries", "warnings"):
