@@ -46,7 +46,7 @@ import pandas as pd
 
 from ..errors import InputError
 from . import rhythm, silence, spectral, tonal
-from .loudness import EnergyGrid, LoudnessMeter, window_mean
+from .loudness import GRID_STEP_S, EnergyGrid, LoudnessMeter, window_mean
 from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, as_block, audio_info,
                    iter_blocks)
 
@@ -276,9 +276,8 @@ def _analyse(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int
     cols["short_term_lufs"] = np.maximum(np.nan_to_num(loud.short_term(centres), nan=LEVEL_FLOOR_DB,
                                                        neginf=LEVEL_FLOOR_DB), LEVEL_FLOOR_DB)
     rs, rc = an.rms.finish()
-    period = 1.0 / rate_hz
-    rms_pow = window_mean(rs, rc, centres_s=centres, window_s=period) if period >= 0.005 else \
-        window_mean(rs, rc, centres_s=centres, window_s=0.005)
+    # the frame interval, at least one 5 ms grid step
+    rms_pow = window_mean(rs, rc, centres_s=centres, window_s=max(1.0 / rate_hz, GRID_STEP_S))
     # the window edges are on the 5 ms grid; 10 log10 of the mean square (full-scale sine = -3.01)
     cols["rms_dbfs"] = _level_db(rms_pow)
     t_env = (np.arange(env.shape[0]) + rhythm.SHIFT_FRAMES) / fr
