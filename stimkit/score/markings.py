@@ -111,11 +111,6 @@ def _part_label(names, all_parts) -> str:
     return ", ".join(s)
 
 
-def _bar_of(model: ScoreModel, qn: float) -> str:
-    loc = model.locate([qn]).iloc[0]
-    return f"{int(loc['measure'])}"
-
-
 # --------------------------------------------------------------------------------------------
 # tempo
 # --------------------------------------------------------------------------------------------
