@@ -113,38 +113,17 @@ def _timemap_call(tm):
 
 
 def _confidence_fn(result):
-    try:
-        from ..align.run import confidence_at
-    except ImportError:
-        return None
-    return lambda q: np.asarray(confidence_at(result, np.asarray(q, dtype=np.float64)), dtype=np.float64)
+    from ..align.run import confidence_at
+
+    return lambda q: confidence_at(result, np.asarray(q, dtype=np.float64))
 
 
 def _regions(result) -> list[tuple[float, float]]:
-    """Low-confidence regions of an alignment as ``(start, end)`` recording seconds."""
-    reg = getattr(result, "regions", None)
-    out = []
-    if reg is None:
-        return out
-    if isinstance(reg, pd.DataFrame):
-        cols = [c for c in ("start_recording", "start_s", "start", "recording_start") if c in reg.columns]
-        cole = [c for c in ("end_recording", "end_s", "end", "recording_end") if c in reg.columns]
-        if cols and cole:
-            out = list(zip(reg[cols[0]].astype(float), reg[cole[0]].astype(float)))
-    else:
-        for r in reg:
-            if isinstance(r, dict):
-                s = r.get("start_recording", r.get("start_s", r.get("start")))
-                e = r.get("end_recording", r.get("end_s", r.get("end")))
-            elif isinstance(r, (tuple, list)) and len(r) >= 2:
-                s, e = r[0], r[1]
-            else:
-                s = getattr(r, "start_s", getattr(r, "start", None))
-                e = getattr(r, "end_s", getattr(r, "end", None))
-            if s is not None and e is not None:
-                out.append((float(s), float(e)))
-    loc = getattr(result, "local", None)
-    if isinstance(loc, pd.DataFrame) and len(loc) and {"score_qn", "confidence"} <= set(loc.columns):
+    """Low-confidence regions of an alignment as ``(start, end)`` recording seconds: its flagged
+    regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
+    out = [(float(r["start"]), float(r["end"])) for r in result.regions]
+    loc = result.local
+    if len(loc):
         q = loc["score_qn"].to_numpy(dtype=np.float64)
         low = loc["confidence"].to_numpy(dtype=np.float64) < LOW_CONFIDENCE
         edges = np.diff(np.r_[0, low.astype(int), 0])
@@ -157,29 +136,8 @@ def _regions(result) -> list[tuple[float, float]]:
 
 def _silences(features) -> pd.DataFrame:
     """Silence segments ``start_s, end_s`` (recording seconds) from the audio stage."""
-    segs = (getattr(features, "summary", None) or {}).get("silence_segments")
-    if segs is not None:
-        arr = np.asarray(segs, dtype=np.float64).reshape(-1, 2)
-        return pd.DataFrame({"start_s": arr[:, 0], "end_s": arr[:, 1]})
-    seg = getattr(features, "silences", None)
-    if seg is None:
-        seg = getattr(features, "silence", None)
-    if isinstance(seg, pd.DataFrame) and {"start_s", "end_s"} <= set(seg.columns):
-        return seg[["start_s", "end_s"]]
-    if isinstance(seg, pd.DataFrame) and {"start", "end"} <= set(seg.columns):
-        return seg.rename(columns={"start": "start_s", "end": "end_s"})[["start_s", "end_s"]]
-    frame = features.frame
-    col = next((c for c in ("silence", "is_silence", "silent") if c in frame.columns), None)
-    if col is None:
-        return pd.DataFrame({"start_s": [], "end_s": []})
-    flag = frame[col].to_numpy().astype(bool)
-    t = np.asarray(frame.index, dtype=np.float64)
-    if t.size < 2:
-        return pd.DataFrame({"start_s": [], "end_s": []})
-    hop = float(np.median(np.diff(t)))
-    edges = np.diff(np.r_[0, flag.astype(int), 0])
-    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
-    return pd.DataFrame({"start_s": t[starts] - hop / 2, "end_s": t[ends - 1] + hop / 2})
+    arr = np.asarray(features.summary["silence_segments"], dtype=np.float64).reshape(-1, 2)
+    return pd.DataFrame({"start_s": arr[:, 0], "end_s": arr[:, 1]})
 
 
 def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
@@ -297,10 +255,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         beats.append(ev.beat_table(sc, piece=p.name, to_recording=to_rec, clock=clock))
         row = t.iloc[0]
         low_conf.extend(_regions(res))
-        if conf is not None and len(sc.notes):
-            med = float(np.nanmedian(conf(np.unique(sc.notes["score_qn"].to_numpy(dtype=np.float64)))))
-        else:
-            med = float(getattr(res, "confidence", float("nan")))
+        med = float(np.nanmedian(conf(np.unique(sc.notes["score_qn"].to_numpy(dtype=np.float64)))))
         pieces_out.append(PieceResult(
             name=p.name, score_path=p.score, start_recording_s=float(row["recording"]),
             end_recording_s=float(row["recording"]) + float(row["duration"]) / clock.slope,
