@@ -47,8 +47,8 @@ import pandas as pd
 from ..errors import InputError
 from . import rhythm, silence, spectral, tonal
 from .loudness import GRID_STEP_S, EnergyGrid, LoudnessMeter, window_mean
-from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, as_block, audio_info,
-                   iter_blocks)
+from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, _clean, as_block,
+                   audio_info, iter_blocks)
 
 __all__ = ["FeatureResult", "compute_features", "features_from_array", "write_features",
            "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "MAX_RATE_HZ", "BLOCK_S"]
@@ -402,10 +402,8 @@ def features_from_array(y, sr: int, *, rate_hz: float = 1.0, block_s: float = BL
         raise InputError(f"sample rate {sr} Hz is outside {MIN_SAMPLE_RATE_HZ}..{MAX_SAMPLE_RATE_HZ} Hz")
     if x.shape[0] / sr * rate < 1.0 - 1e-9:
         raise InputError(f"signal is {x.shape[0] / sr:.6g} s long, shorter than one frame at {rate:g} Hz")
-    bad = ~np.isfinite(x)
-    counts = {"nonfinite": int(bad.sum())}
-    if counts["nonfinite"]:
-        x = np.where(bad, 0.0, x)
+    counts: dict = {}
+    x = _clean(x, counts)  # NaN/Inf -> 0, as iter_blocks does for files
     step = max(1, int(round(block_s * sr)))
     blocks = (x[i:i + step] for i in range(0, x.shape[0], step))
     frame, summary = _run(blocks, sample_rate_hz=int(sr), channels=x.shape[1], n_samples=x.shape[0],
