@@ -72,11 +72,15 @@ _HAIRPIN_WORDS = {"cresc": 1, "cresc.": 1, "crescendo": 1, "dim": -1, "dim.": -1
 _TYPE_ORDER = {t: k for k, t in enumerate(TRIAL_TYPES)}
 
 
+def _velocity(level):
+    """MIDI velocity (float, unrounded) of dynamic level(s) 1..10, linear between the table's entries."""
+    ks = np.arange(1, 11)
+    return np.interp(np.clip(level, 1, 10), ks, [VELOCITY[k] for k in ks])
+
+
 def velocity_of_level(level: float) -> int:
     """MIDI velocity of a dynamic level 1..10 (linear between the table's entries)."""
-    lv = np.clip(level, 1, 10)
-    ks = np.arange(1, 11)
-    return int(round(np.interp(lv, ks, [VELOCITY[k] for k in ks])))
+    return int(round(_velocity(level)))
 
 
 @dataclass
@@ -336,7 +340,7 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
                     later = [sq for sq in qs if sq >= q1 - 1e-6]
                     stop = later[0] if later else np.inf
                     level[(q >= q1) & (q < stop)] = l1
-        v = np.interp(np.clip(level, 1, 10), np.arange(1, 11), [VELOCITY[k] for k in range(1, 11)])
+        v = _velocity(level)
         # accents: momentary marks and articulation accents
         for s in steps:
             if np.isfinite(s[2]):
