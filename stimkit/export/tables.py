@@ -32,9 +32,20 @@ __all__ = [
     "gzip_bytes",
     "check_output_dir",
     "atomic_write_bytes",
+    "is_missing",
 ]
 
 NA = "n/a"
+
+
+def is_missing(v) -> bool:
+    """True for ``None`` and for what :func:`pandas.isna` calls missing (NaN, NaT, ``pd.NA``)."""
+    if v is None:
+        return True
+    try:
+        return bool(pd.isna(v))
+    except (TypeError, ValueError):
+        return False
 
 
 def _fmt_value(v, float_format: str) -> str:
@@ -49,11 +60,8 @@ def _fmt_value(v, float_format: str) -> str:
         return "true" if v else "false"
     if isinstance(v, (int, np.integer)):
         return str(int(v))
-    try:
-        if pd.isna(v):
-            return NA
-    except (TypeError, ValueError):
-        pass
+    if is_missing(v):
+        return NA
     s = str(v)
     return s.replace("\t", " ").replace("\n", " ").replace("\r", " ") or NA
 

@@ -27,7 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from ..export.tables import OutputSet
+from ..export.tables import OutputSet, is_missing
 from ..levels import EVENT_COLUMNS
 
 __all__ = ["write_report", "report_html", "HEADINGS"]
@@ -72,20 +72,11 @@ def _esc(v) -> str:
     return html.escape(str(v), quote=True)
 
 
-def _is_missing(v) -> bool:
-    if v is None:
-        return True
-    try:
-        return bool(pd.isna(v))
-    except (TypeError, ValueError):
-        return False
-
-
 def _fmt(v, *, column: str = "") -> tuple[str, bool]:
     """(text, is_number) for one cell."""
     if isinstance(v, (list, tuple, np.ndarray)):
         return ", ".join(_fmt(x)[0] for x in v), False
-    if _is_missing(v):
+    if is_missing(v):
         return "n/a", False
     if isinstance(v, (bool, np.bool_)):
         return ("yes" if v else "no"), False
@@ -183,12 +174,12 @@ def _events_section(events: pd.DataFrame, *, max_rows_per_kind: int) -> str:
         return "<p>No events.</p>"
     if "trial_type" not in events.columns:
         return _table(events, max_rows=max_rows_per_kind)
-    kind = events["trial_type"].map(lambda v: "n/a" if _is_missing(v) else str(v)).to_numpy()
+    kind = events["trial_type"].map(lambda v: "n/a" if is_missing(v) else str(v)).to_numpy()
     kinds = list(dict.fromkeys(kind))
     parts = [_table(pd.DataFrame({"kind": kinds, "events": [int((kind == k).sum()) for k in kinds]}))]
     order = [c for c in EVENT_COLUMNS if c in events.columns] + \
         [c for c in events.columns if c not in EVENT_COLUMNS]
-    show = [c for c in order if c != "trial_type" and not events[c].map(_is_missing).all()]
+    show = [c for c in order if c != "trial_type" and not events[c].map(is_missing).all()]
     for k in kinds:
         parts.append(f"<h3>{_esc(k)}</h3>")
         parts.append(_table(events.loc[kind == k, show], max_rows=max_rows_per_kind))

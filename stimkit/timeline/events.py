@@ -25,6 +25,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from ..export.tables import is_missing
 from ..levels import EVENT_COLUMNS, TRIAL_TYPES
 
 __all__ = ["with_tail", "piece_events", "silence_events", "sync_events", "change_events", "merge_events",
@@ -55,13 +56,8 @@ def _num(v) -> float:
 
 
 def _text(v):
-    if v is None:
+    if is_missing(v):
         return None
-    try:
-        if pd.isna(v):
-            return None
-    except (TypeError, ValueError):
-        pass
     s = str(v)
     return s if s else None
 
