@@ -355,10 +355,9 @@ class LoudnessMeter:
         self.grid = EnergyGrid(sample_rate_hz=self.fs)
         self.sample_peak = 0.0
         self._tp = true_peak
-        self._h = true_peak_filter()
-        self._up = 4
-        self._taps_phase = self._h.shape[0] // self._up
-        self._hphase = np.ascontiguousarray(self._h.reshape(-1, self._up))  # h[up*j + p] at [j, p]
+        up = 4
+        self._hphase = np.ascontiguousarray(true_peak_filter(up=up).reshape(-1, up))  # h[up*j + p] at [j, p]
+        self._taps_phase = self._hphase.shape[0]
         self._l1 = float(np.abs(self._hphase).sum(axis=0).max())
         self._hist = np.zeros((self._taps_phase - 1, self.channels))
         self._hist_abs = np.zeros(self._taps_phase - 1)
@@ -460,7 +459,7 @@ class LoudnessMeter:
             j0 = np.clip(i - h, lo, hi) - lo
             j1 = np.clip(i + h, lo, hi) - lo
             with np.errstate(divide="ignore", invalid="ignore"):
-                out[a - 0:b] = power_to_lufs(np.maximum(cs[j1] - cs[j0], 0.0) / (cn[j1] - cn[j0]))
+                out[a:b] = power_to_lufs(np.maximum(cs[j1] - cs[j0], 0.0) / (cn[j1] - cn[j0]))
         return out
 
     def integrated(self) -> float:
