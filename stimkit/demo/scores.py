@@ -24,6 +24,7 @@ and relative changes as words. Bar numbers start at 1.
 from __future__ import annotations
 
 import random
+import re
 import sys
 from pathlib import Path
 
@@ -285,8 +286,6 @@ def write_scores(out_dir: str | Path = "example_scores") -> list[Path]:
         for stem, sc in build_scores().items():
             data = GeneralObjectExporter(sc).parse()
             # drop the export date so equal music gives equal bytes
-            import re
-
             data = re.sub(rb"<encoding-date>[^<]*</encoding-date>", b"", data)
             outs.write_bytes(f"{stem}.musicxml", data)
     return list(outs.committed)
