@@ -142,9 +142,9 @@ def window_summary(windows: pd.DataFrame) -> pd.DataFrame:
     if windows is None or not len(windows):
         return pd.DataFrame(columns=cols)
     w = windows[np.isfinite(windows["difference"].to_numpy(np.float64))]
-    kinds = list(dict.fromkeys(w["trial_type"].map(lambda v: "n/a" if pd.isna(v) else str(v))))
-    feats = list(dict.fromkeys(w["feature"]))
     tt = w["trial_type"].map(lambda v: "n/a" if pd.isna(v) else str(v)).to_numpy()
+    kinds = list(dict.fromkeys(tt))
+    feats = list(dict.fromkeys(w["feature"]))
     ff = w["feature"].to_numpy()
     d = w["difference"].to_numpy(np.float64)
     rows = []
