@@ -25,7 +25,7 @@ runaway loop) raises :class:`RepeatError`; the caller then keeps the printed ord
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 __all__ = ["BarMarks", "RepeatError", "performed_order"]
 
@@ -47,7 +47,6 @@ class BarMarks:
     fine: bool = False
     jump: str | None = None  # "dc", "ds"
     jump_to: str | None = None  # None, "fine", "coda"
-    notes: list[str] = field(default_factory=list)
 
 
 def performed_order(bars: list[BarMarks], *, max_factor: int = 16) -> list[int]:
