@@ -146,8 +146,8 @@ def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
     seconds); NaN outside the pieces."""
     out = np.full(times_s.size, np.nan)
     for res, p in zip(aligned, pieces):
-        t = getattr(res, "tempo", None)
-        if not isinstance(t, pd.DataFrame) or len(t) < 2 or not {"recording", "bpm"} <= set(t.columns):
+        t = res.tempo
+        if len(t) < 2:
             continue
         r = t["recording"].to_numpy(dtype=np.float64)
         b = t["bpm"].to_numpy(dtype=np.float64)
@@ -219,24 +219,20 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         except WorkFailed as exc:
             raise WorkFailed(f"piece '{p.name}' ({lo:.1f}-{hi:.1f} s of the recording): {exc}") from None
         aligned.append(res)
-        warnings.extend(f"{p.name}: {w}" for w in getattr(res, "warnings", []) or [])
+        warnings.extend(f"{p.name}: {w}" for w in res.warnings)
     lap("alignment")
 
     from ..audio.pipeline import compute_features
 
     feats = compute_features(session.recording, rate_hz=session.rate_hz, progress=progress)
-    warnings.extend(str(w) for w in getattr(feats, "warnings", []) or [])
     frame = feats.frame
     lap("features")
 
-    changes = None
-    try:
-        from ..stats.changes import change_points
+    from ..stats.changes import change_points
 
-        piece_spans = pd.DataFrame({"start": [s.start_s for s in spans], "end": [s.end_s for s in spans]})
+    piece_spans = pd.DataFrame({"start": [s.start_s for s in spans], "end": [s.end_s for s in spans]})
+    try:
         changes = change_points(frame.select_dtypes("number"), spans=piece_spans)
-    except ImportError:
-        changes = None
     except WorkFailed as exc:
         warnings.append(f"feature change points skipped: {exc}")
         changes = None
@@ -269,9 +265,9 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     events = ev.merge_events(tables)
     frame = frame.copy()
     frame[ALIGNED_TEMPO] = _aligned_tempo(np.asarray(frame.index, dtype=np.float64), aligned, pieces_out)
-    units = dict(getattr(feats, "units", {}) or {})
+    units = dict(feats.units)
     units[ALIGNED_TEMPO] = "BPM"
-    descriptions = dict(getattr(feats, "descriptions", {}) or {})
+    descriptions = dict(feats.descriptions)
     descriptions[ALIGNED_TEMPO] = ("Tempo of the performance from the score alignment: beats per minute in "
                                    "the bar's beat unit, smoothed over a few beats; n/a outside the pieces.")
     beat_df = pd.concat(beats, ignore_index=True) if beats else pd.DataFrame()
