@@ -72,7 +72,7 @@ def locate_piece(score, audio_path=None, *, search_span_s: tuple[float, float] |
     A = features
     rate = A.rate_hz
     j0, j1 = 0, A.n_frames
-    if search_span_s is not None and features is not None:
+    if search_span_s is not None:
         j0 = max(int(np.floor((search_span_s[0] - A.start_s) * rate)), 0)
         j1 = min(int(np.ceil((search_span_s[1] - A.start_s) * rate)) + 1, A.n_frames)
     if (j1 - j0) / rate < 1.0:
