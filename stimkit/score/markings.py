@@ -70,6 +70,10 @@ BOUNDARY_TABLE_COLUMNS = BOUNDARY_COLUMNS + BOUNDARY_EXTRA_COLUMNS
 _HAIRPIN_WORDS = {"cresc": 1, "cresc.": 1, "crescendo": 1, "dim": -1, "dim.": -1, "diminuendo": -1,
                   "decresc": -1, "decresc.": -1, "decrescendo": -1, "poco a poco cresc.": 1}
 _TYPE_ORDER = {t: k for k, t in enumerate(TRIAL_TYPES)}
+#: music21 repeat-expression class name -> label
+_REPEAT_MARK_LABELS = {"DaCapo": "D.C.", "DaCapoAlFine": "D.C. al Fine", "DaCapoAlCoda": "D.C. al Coda",
+                       "DalSegno": "D.S.", "DalSegnoAlFine": "D.S. al Fine", "DalSegnoAlCoda": "D.S. al Coda",
+                       "AlSegno": "al Segno", "Segno": "segno", "Coda": "coda", "Fine": "Fine"}
 
 
 def _velocity(level):
@@ -494,11 +498,8 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
             glob.append(_row("section", f"rehearsal mark {r.text.strip()}", r.score_qn, part=r.part_name,
                              detail="rehearsal mark"))
         for r in ev[ev["kind"] == "repeatmark"].itertuples(index=False):
-            nice = {"DaCapo": "D.C.", "DaCapoAlFine": "D.C. al Fine", "DaCapoAlCoda": "D.C. al Coda",
-                    "DalSegno": "D.S.", "DalSegnoAlFine": "D.S. al Fine", "DalSegnoAlCoda": "D.S. al Coda",
-                    "AlSegno": "al Segno", "Segno": "segno", "Coda": "coda", "Fine": "Fine"}
             bar_len = float(bar_len_of[int(r.perf)])
-            glob.append(_row("section", nice.get(r.text, r.text), r.score_qn, part=r.part_name,
+            glob.append(_row("section", _REPEAT_MARK_LABELS.get(r.text, r.text), r.score_qn, part=r.part_name,
                              detail="repeat instruction", at_end=r.off >= bar_len - 1e-9 and r.off > 0))
         for r in ev[ev["kind"] == "barline"].itertuples(index=False):
             side, btype, direction = (str(r.text).split(":") + ["", "", ""])[:3]
