@@ -377,7 +377,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
 
 def _stem(p: Path) -> str:
     name = p.name
-    for suf in (".musicxml", ".xml", ".mxl", ".midi", ".mid"):
+    for suf in SCORE_SUFFIXES:
         if name.lower().endswith(suf):
             return name[: -len(suf)]
     return p.stem
