@@ -54,6 +54,7 @@ from matplotlib.figure import Figure
 from matplotlib.font_manager import FontProperties
 from matplotlib.lines import Line2D
 
+from ..export.tables import is_missing
 from ..stats.roles import pick_column
 
 __all__ = ["overview_figure", "figure_png", "LANE_ROLES", "MARK_COLOURS", "LABEL_PRIORITY"]
@@ -104,9 +105,9 @@ def _as_time(df: pd.DataFrame | None, candidates) -> str | None:
 def _mark_text(row) -> str:
     lab = row.get("label")
     tt = row.get("trial_type")
-    text = str(lab) if lab is not None and not pd.isna(lab) and str(lab) else str(tt)
+    text = str(lab) if not is_missing(lab) and str(lab) else str(tt)
     meas = row.get("measure")
-    if meas is not None and not pd.isna(meas):
+    if not is_missing(meas):
         try:
             meas = int(meas) if float(meas) == int(float(meas)) else meas
         except (TypeError, ValueError):
