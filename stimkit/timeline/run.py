@@ -13,6 +13,12 @@ What it does, in order
    features, and hands everything to :func:`.handoff.write_handoff`, which writes all files
    or none.
 
+Steps 1, 3 and 4 depend only on the recording and the scores: :func:`analyse_recording` does
+them alone, so sessions that share one recording (several participants hearing one
+performance, each on their own recorder clock) compute them once and pass the result to
+:func:`annotate` (``analysis=``), which then runs steps 2 and 5 only. The clock is fitted first
+either way, so a sync problem is reported before the long steps.
+
 Conventions
 -----------
 Kinds of time as in DESIGN.md. Step timings go to ``provenance.json`` (the only part of the
@@ -35,7 +41,8 @@ from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offse
     read_recorder_times
 from .handoff import ALIGNED_TEMPO, HandoffData, output_base, write_handoff
 
-__all__ = ["AnnotateResult", "annotate", "summary_lines", "output_base"]
+__all__ = ["AnnotateResult", "RecordingAnalysis", "analyse_recording", "annotate", "summary_lines",
+           "output_base"]
 
 #: Seconds of recording kept on each side of a located piece for its alignment.
 SPAN_PAD_S = 8.0
@@ -159,22 +166,39 @@ def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
     return out
 
 
-def annotate(session, *, progress=None, command: list[str] | None = None) -> AnnotateResult:
-    """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
+@dataclass
+class RecordingAnalysis:
+    """What the chain learns from the recording and the scores alone, before any clock: the
+    parsed scores, where each piece is, its alignment, the features and their change points (all
+    in ``recording`` seconds). Several sessions that share one recording (participants who heard
+    the same performance) can share one analysis (:func:`analyse_recording`)."""
+
+    duration_s: float
+    scores: list
+    spans: list
+    aligned: list
+    features: object                 # stimkit.audio.pipeline.FeatureResult
+    changes: pd.DataFrame | None
+    score_warnings: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    timings_s: dict = field(default_factory=dict)
+
+
+def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
+    """Steps 1, 3 and 4 of the chain (see module notes): scores, pieces, alignment, features
+    and change points of ``session.recording``; the session's sync is not used.
 
     Raises
     ------
     InputError
         A score or the recording cannot be read (exit 2).
     WorkFailed
-        A sync mark or a piece cannot be found, or an alignment is refused (exit 1).
+        A piece cannot be found or an alignment is refused (exit 1).
     """
     from ..audio.read import audio_info
-    from ..export.tables import check_output_dir
     from ..score.parse import load_score
 
     timings: dict[str, float] = {}
-    warnings: list[str] = []
     clock0 = time.perf_counter()
 
     def lap(name):
@@ -183,22 +207,17 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         timings[name] = timings.get(name, 0.0) + now - clock0
         clock0 = now
 
-    out_dir = check_output_dir(session.out_dir)
     info = audio_info(session.recording)
     duration_s = info.duration_s
-    scores = []
+    scores, score_warnings, warnings = [], [], []
     for p in session.pieces:
         sc = load_score(p.score, expand_repeats=session.expand_repeats)
         scores.append(sc)
-        warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
+        score_warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
     lap("scores")
 
-    clock, mark_times, w = _clock(session, duration_s=duration_s, progress=progress)
-    warnings.extend(w)
-    lap("sync")
-
     # pieces
-    from .segment import MAX_RATIO, find_pieces
+    from .segment import find_pieces
 
     names = [p.name for p in session.pieces]
     spans = find_pieces(scores, names, session.recording, rough_starts=[p.start_s for p in session.pieces],
@@ -225,18 +244,64 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     from ..audio.pipeline import compute_features
 
     feats = compute_features(session.recording, rate_hz=session.rate_hz, progress=progress)
-    frame = feats.frame
     lap("features")
 
     from ..stats.changes import change_points
 
     piece_spans = pd.DataFrame({"start": [s.start_s for s in spans], "end": [s.end_s for s in spans]})
     try:
-        changes = change_points(frame.select_dtypes("number"), spans=piece_spans)
+        changes = change_points(feats.frame.select_dtypes("number"), spans=piece_spans)
     except WorkFailed as exc:
         warnings.append(f"feature change points skipped: {exc}")
         changes = None
     lap("change points")
+    return RecordingAnalysis(duration_s=duration_s, scores=scores, spans=spans, aligned=aligned,
+                             features=feats, changes=changes, score_warnings=score_warnings,
+                             warnings=warnings, timings_s=timings)
+
+
+def annotate(session, *, progress=None, command: list[str] | None = None,
+             analysis: RecordingAnalysis | None = None) -> AnnotateResult:
+    """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
+
+    ``analysis``, when given, is :func:`analyse_recording`'s result for this session's recording
+    and pieces (computed once for several sessions that share the recording); the chain then
+    only fits the clock and writes the hand-off.
+
+    Raises
+    ------
+    InputError
+        A score or the recording cannot be read (exit 2).
+    WorkFailed
+        A sync mark or a piece cannot be found, or an alignment is refused (exit 1).
+    """
+    from ..export.tables import check_output_dir
+    from .segment import MAX_RATIO
+
+    from ..audio.read import audio_info
+
+    out_dir = check_output_dir(session.out_dir)
+    timings: dict[str, float] = {}
+    clock0 = time.perf_counter()
+
+    def lap(name):
+        nonlocal clock0
+        now = time.perf_counter()
+        timings[name] = timings.get(name, 0.0) + now - clock0
+        clock0 = now
+
+    # the clock first: a sync problem is found before the long steps
+    duration_s = audio_info(session.recording).duration_s if analysis is None else analysis.duration_s
+    clock, mark_times, sync_warnings = _clock(session, duration_s=duration_s, progress=progress)
+    lap("sync")
+    if analysis is None:
+        analysis = analyse_recording(session, progress=progress)
+        clock0 = time.perf_counter()
+    timings.update(analysis.timings_s)
+    warnings: list[str] = list(analysis.score_warnings) + sync_warnings + list(analysis.warnings)
+    scores, spans, aligned, feats, changes = (analysis.scores, analysis.spans, analysis.aligned,
+                                              analysis.features, analysis.changes)
+    frame = feats.frame
 
     # events
     tables = []
