@@ -69,6 +69,7 @@ def build_provenance(
     settings: dict,
     warnings: list[str],
     timings: dict[str, float] | None = None,
+    show_path=str,
 ) -> dict:
     """The provenance record of one run.
 
@@ -84,6 +85,8 @@ def build_provenance(
         Warnings raised during the run, in the order they occurred.
     timings : dict, optional
         Step -> seconds; kept under ``"timings_s"`` (rounded to 0.01 s), see module notes.
+    show_path : callable, optional
+        How an input's path is written (default: as given); e.g. relative to a study's folder.
 
     Returns
     -------
@@ -100,7 +103,7 @@ def build_provenance(
             size = p.stat().st_size
         except OSError as exc:
             raise InputError(f"input file not found ({exc.strerror})", path=p) from None
-        ins[str(role)] = {"path": str(inputs[role]), "sha256": sha256_file(p), "bytes": int(size)}
+        ins[str(role)] = {"path": show_path(inputs[role]), "sha256": sha256_file(p), "bytes": int(size)}
     data = {
         "software": {
             "stimkit": __version__,

@@ -60,6 +60,8 @@ class HandoffData:
     warnings: list[str]
     timings: dict
     settings: dict = field(default_factory=dict)  # extra settings of the chain
+    show_path: object = str             # how a path is written into the outputs (provenance, report)
+    keep_timings: bool = True           # step timings in provenance.json (the one varying part)
 
 
 def output_base(session) -> str:
@@ -165,7 +167,7 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     if changes is not None and len(changes):
         stats_tables["feature change points (recording time)"] = changes
     summary = {
-        "recording file": str(session.recording),
+        "recording file": d.show_path(session.recording),
         "duration (s)": round(duration_s, 3),
         "pieces": len(pieces_out),
         "boundaries placed": int(sum(p.n_boundaries for p in pieces_out)),
@@ -178,19 +180,19 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     lap("report")
 
     settings = {
-        "recording": str(session.recording),
-        "pieces": [{"name": p.name, "score": str(p.score), "start_s": p.start_s, "anchors": p.anchors}
+        "recording": d.show_path(session.recording),
+        "pieces": [{"name": p.name, "score": d.show_path(p.score), "start_s": p.start_s, "anchors": p.anchors}
                    for p in session.pieces],
         "sync": {"mode": session.sync.mode, "kind": session.sync.kind, "frequency_hz": session.sync.frequency_hz,
                  "duration_s": session.sync.duration_s, "recorder_s": session.sync.recorder_s,
-                 "recorder_file": None if session.sync.recorder_file is None else str(session.sync.recorder_file),
+                 "recorder_file": None if session.sync.recorder_file is None else d.show_path(session.sync.recorder_file),
                  "recorder_column": session.sync.recorder_column, "offset_s": session.sync.offset_s,
                  "search_start_s": session.sync.search_start_s, "search_end_s": session.sync.search_end_s},
         "bids": dict(session.bids),
         "feature_rate_hz": session.rate_hz,
         "expand_repeats": session.expand_repeats,
         "force": session.force,
-        "output": str(session.out_dir),
+        "output": d.show_path(session.out_dir),
         **d.settings,
         "sync_detection": _defaults(detect_sync_marks, ("min_score", "min_jump_db", "min_level_db",
                                                         "min_gap_s", "block_s")),
@@ -225,6 +227,6 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         prov = provenance.build_provenance(
             command=list(command) if command else ["stimkit", "annotate",
                                                    str(session.source or session.recording)],
-            inputs=inputs, settings=settings, warnings=warnings, timings=timings)
-        written.append(provenance.write_provenance(outs, prov, with_timings=True))
+            inputs=inputs, settings=settings, warnings=warnings, timings=timings, show_path=d.show_path)
+        written.append(provenance.write_provenance(outs, prov, with_timings=d.keep_timings))
     return [Path(w) for w in written]

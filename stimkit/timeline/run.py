@@ -261,12 +261,15 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
 
 
 def annotate(session, *, progress=None, command: list[str] | None = None,
-             analysis: RecordingAnalysis | None = None) -> AnnotateResult:
+             analysis: RecordingAnalysis | None = None, show_path=str,
+             keep_timings: bool = True) -> AnnotateResult:
     """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
 
     ``analysis``, when given, is :func:`analyse_recording`'s result for this session's recording
     and pieces (computed once for several sessions that share the recording); the chain then
-    only fits the clock and writes the hand-off.
+    only fits the clock and writes the hand-off. ``show_path(path) -> str`` is how paths are
+    written into ``provenance.json`` and the report (default: as given); ``keep_timings=False``
+    leaves the step timings out of ``provenance.json``, so reruns give identical bytes.
 
     Raises
     ------
@@ -343,7 +346,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
         beats=beat_df, frame=frame, units=units, descriptions=descriptions, pieces=pieces_out,
         spans=spans, low_confidence=low_conf, changes=changes, warnings=warnings, timings=timings,
         settings={"span_pad_s": SPAN_PAD_S, "piece_search_max_ratio": MAX_RATIO,
-                  "low_confidence_below": LOW_CONFIDENCE}),
+                  "low_confidence_below": LOW_CONFIDENCE},
+        show_path=show_path, keep_timings=keep_timings),
         command=command, lap=lap)
     base = output_base(session)
     return AnnotateResult(out_dir=out_dir, base=base, written=[Path(w) for w in written], pieces=pieces_out,
