@@ -16,7 +16,7 @@ from pathlib import Path
 import pandas as pd
 
 from . import state
-from .layout import DERIVATIVES, group_dir, write_dataset_files
+from .layout import DERIVATIVES, derivative_dir, group_dir, write_dataset_files
 
 __all__ = ["finish_study", "collect_tables"]
 
@@ -36,7 +36,7 @@ def collect_tables(study, plan, outcomes, *, out_root: Path) -> dict[str, pd.Dat
         rec = state.read_session_record(state.session_record_file(out_root, job.base)) or {"files": {}}
         for p in s.physio:
             for t in TABLES:
-                rel = (DERIVATIVES / f"sub-{s.participant}" / f"ses-{s.session}" / table_file_name(s, p, t)).as_posix()
+                rel = (derivative_dir(Path("."), s) / table_file_name(s, p, t)).as_posix()
                 if rel not in rec["files"]:
                     continue
                 df = pd.read_csv(Path(out_root) / rel, sep="\t", na_values="n/a", keep_default_na=False)

@@ -152,8 +152,8 @@ def _session(task: SessionTask) -> dict:
             d_rel = deriv.relative_to(out_root).as_posix()
             r_rel = raw.relative_to(out_root).as_posix()
             for f in sorted(result.written, key=lambda p: p.name):
-                if f.name == "dataset_description.json":
-                    continue  # the dataset's own description is written once, at its root
+                if f.name in ("dataset_description.json", ".bidsignore"):
+                    continue  # the dataset's own files are written once, at its root
                 data = Path(f).read_bytes()
                 outs.write_bytes(f"{d_rel}/{f.name}", data)
                 if f.name.endswith(RAW_SUFFIXES):

@@ -13,7 +13,7 @@ Layout (BIDS 1.11, "Common principles" and "Derivatives")::
                                                                 the physiological file, when given as BIDS physio
       derivatives/stimkit/
         dataset_description.json      DatasetType derivative, GeneratedBy stimkit
-        sub-<p>/ses-<s>/              everything else of the session: beats, report, provenance, and
+        sub-<p>/ses-<s>/beh/          everything else of the session: beats, report, provenance, and
                                       the physiology tables named after their physiological file
                                       (``<physio name>_boundarytests.tsv``, ...)
         group/                        the study-level results and the study report
@@ -50,8 +50,8 @@ def raw_dir(out_root: Path, s) -> Path:
 
 
 def derivative_dir(out_root: Path, s) -> Path:
-    """``OUT/derivatives/stimkit/sub-<p>/ses-<s>`` of a study session."""
-    return Path(out_root) / DERIVATIVES / f"sub-{s.participant}" / f"ses-{s.session}"
+    """``OUT/derivatives/stimkit/sub-<p>/ses-<s>/beh`` of a study session."""
+    return Path(out_root) / DERIVATIVES / f"sub-{s.participant}" / f"ses-{s.session}" / "beh"
 
 
 def group_dir(out_root: Path) -> Path:

@@ -328,6 +328,7 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
 
     # -- performances ------------------------------------------------------------------------
     performances: dict[str, PerformanceSpec] = {}
+    declared: set[str] = set()     # ids written, valid or not (a bad one is reported once, where it is)
     pl = data.get("performance", [])
     if not isinstance(pl, list) or not all(isinstance(p, dict) for p in pl):
         bad("'performance' must be written as [[performance]] tables", "performance")
@@ -344,8 +345,9 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
         elif not isinstance(pid, str) or not _ID.match(pid):
             bad(f"{where}: id must be letters, digits, '-' or '_' in quotes", *at, "id")
             pid = f"#{i + 1}"
-        elif pid in performances:
+        elif pid in declared:
             bad(f"{where}: id '{pid}' is used twice; give each performance its own id", *at, "id")
+        declared.add(pid)
         where = f"[[performance]] '{pid}'"
         sess = _performance_session(p, where=where, at=at, rate=float(rate), rel=rel, bad=bad)
         if sess is not None:
@@ -389,6 +391,7 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
     # -- sessions ----------------------------------------------------------------------------
     sessions: list[StudySession] = []
     seen_s: dict[tuple, int] = {}
+    implicit: dict[Path, str] = {}
     sl = data.get("session")
     if sl is None:
         problems.append((None, "no sessions: add one [[session]] table per participant and session"))
@@ -444,8 +447,8 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
             bad(f"{where}: give exactly one of performance = \"<id>\" (a [[performance]] above) or "
                 "session_file = \"file.toml\" (an annotate session file)", *at)
         elif perf_id is not None:
-            if not isinstance(perf_id, str) or perf_id not in performances:
-                known = ", ".join(sorted(performances)) or "none"
+            if not isinstance(perf_id, str) or perf_id not in declared:
+                known = ", ".join(sorted(declared)) or "none"
                 bad(f"{where}: performance '{perf_id}' is not a [[performance]] id (known: {known})",
                     *at, "performance")
                 perf_id = None
@@ -459,9 +462,17 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
                 except InputError as exc:
                     bad(f"{where}: session_file '{sfile}': {' '.join(str(exc).split())}", *at, "session_file")
                 else:
-                    perf_id = f"{_stem_id(session_file)}"
-                    # one implicit performance per session file; identical ones are shared later
-                    performances.setdefault(perf_id, PerformanceSpec(id=perf_id, session=from_file))
+                    # one implicit performance per session file (identical ones are shared later,
+                    # by content); its id is the file's name, kept apart from the declared ids
+                    perf_id = implicit.get(session_file)
+                    if perf_id is None:
+                        stem, k = _stem_id(session_file), 1
+                        perf_id = stem
+                        while perf_id in declared or perf_id in performances:
+                            k += 1
+                            perf_id = f"{stem}-{k}"
+                        implicit[session_file] = perf_id
+                        performances[perf_id] = PerformanceSpec(id=perf_id, session=from_file)
                     sync = from_file.sync
                     if "sync" in s:
                         bad(f"{where}: [session.sync] and session_file both give a clock; keep one", *at, "sync")
