@@ -165,11 +165,12 @@ def hall_response(sr: int, *, rt60_s: float = 2.0, predelay_s: float = 0.02, see
     n_pre = max(int(round(predelay_s * sr)), 1)
     n = int(round(1.1 * rt60_s * max(HALL_BAND_RT) * sr))
     t = np.arange(n) / sr
-    noise = rng.standard_normal(n)
-    lo = sosfilt(butter(2, 500.0, btype="lowpass", fs=sr, output="sos"), noise)
-    hi = sosfilt(butter(2, min(4000.0, 0.45 * sr), btype="highpass", fs=sr, output="sos"), noise)
-    mid = noise - lo - hi
-    tail = sum(b * 10.0 ** (-3.0 * t / (rt60_s * f)) for b, f in zip((lo, mid, hi), HALL_BAND_RT))
+    bands = [butter(4, 500.0, btype="lowpass", fs=sr, output="sos"),
+             butter(4, [500.0, min(4000.0, 0.4 * sr)], btype="bandpass", fs=sr, output="sos"),
+             butter(4, min(4000.0, 0.4 * sr), btype="highpass", fs=sr, output="sos")]
+    # each band: its own decaying noise, filtered after the envelope so the band keeps its decay
+    tail = sum(sosfilt(sos, rng.standard_normal(n) * 10.0 ** (-3.0 * t / (rt60_s * f)))
+               for sos, f in zip(bands, HALL_BAND_RT))
     tail *= 1.0 - np.exp(-t / 0.05)                 # diffuse build-up
     n_early = min(int(0.08 * sr), n)
     k = np.sort(rng.integers(0, n_early, rng.integers(10, 15)))
