@@ -110,7 +110,8 @@ class StudyPlan:
 
 
 def _performance_settings(sess) -> dict:
-    return {"pieces": [{"name": p.name, "start_s": p.start_s, "anchors": list(p.anchors)} for p in sess.pieces],
+    return {"pieces": [{"name": p.name, "start_s": p.start_s, "anchors": list(p.anchors),
+                        "repeats": sess.repeats_of(p)} for p in sess.pieces],
             "feature_rate_hz": float(sess.rate_hz), "expand_repeats": bool(sess.expand_repeats),
             "force": bool(sess.force)}
 

@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import InputError
-from ..session import (_ANCHOR, AUDIO_SUFFIXES, SCORE_SUFFIXES, PieceSpec, Session, SyncSpec, _stem,
-                       load_session, parse_sync_table)
+from ..session import (_ANCHOR, AUDIO_SUFFIXES, REPEAT_VALUES, SCORE_SUFFIXES, PieceSpec, Session, SyncSpec,
+                       _stem, load_session, parse_sync_table)
 
 __all__ = ["Study", "PerformanceSpec", "StudySession", "PhysioSpec", "StudyFileError", "load_study",
            "parse_study_text", "template_text", "toml_lines", "ANALYSIS_DEFAULTS", "GROUP_DEFAULTS"]
@@ -42,8 +42,8 @@ _ID = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_\-]*$")
 _COLUMN = re.compile(r"^[a-z][a-z0-9_]*$")
 _TOP_KEYS = {"name", "output", "task", "seed", "workers", "scheduler", "feature_rate_hz", "analysis", "group",
              "performance", "participant", "session", "authors", "license"}
-_PERF_KEYS = {"id", "recording", "session_file", "feature_rate_hz", "expand_repeats", "force", "piece"}
-_PIECE_KEYS = {"score", "name", "start_s", "anchors"}
+_PERF_KEYS = {"id", "recording", "session_file", "feature_rate_hz", "expand_repeats", "repeats", "force", "piece"}
+_PIECE_KEYS = {"score", "name", "start_s", "anchors", "repeats"}
 _SESSION_KEYS = {"participant", "session", "performance", "session_file", "task", "run", "sync", "physio"}
 _PHYSIO_KEYS = {"file", "kind", "column", "label", "mode"}
 
@@ -550,6 +550,11 @@ def _performance_session(p: dict, *, where, at, rate, rel, bad) -> Session | Non
             bad(f"{where}: {k} must be true or false", *at, k)
             v = default
         flags[k] = v
+    repeats = p.get("repeats", "auto")
+    if repeats not in REPEAT_VALUES:
+        bad(f"{where}: repeats must be one of {', '.join(REPEAT_VALUES)} (auto: decide from the recording)",
+            *at, "repeats")
+        repeats = "auto"
     pl = p.get("piece")
     if pl is None:
         bad(f"{where}: no pieces: add one [[performance.piece]] table with score = \"file.musicxml\" per piece", *at)
@@ -599,18 +604,23 @@ def _performance_session(p: dict, *, where, at, rate, rel, bad) -> Session | Non
         for a in anchors:
             if not _ANCHOR.match(a):
                 bad(f"{pw}: anchor '{a}' is not MEASURE[.BEAT][@PASS]=SECONDS (e.g. \"12.3=61.5\")", *pat, "anchors")
+        prep = q.get("repeats")
+        if prep is not None and prep not in REPEAT_VALUES:
+            bad(f"{pw}: repeats must be one of {', '.join(REPEAT_VALUES)} (auto: decide from the recording)",
+                *pat, "repeats")
+            prep = None
         if score is None:
             ok = False
             continue
         pieces.append(PieceSpec(score=score, name=nm, start_s=None if start is None else float(start),
-                                anchors=list(anchors)))
+                                anchors=list(anchors), repeats=prep))
     starts = [q.start_s for q in pieces if q.start_s is not None]
     if any(b <= a for a, b in zip(starts, starts[1:])):
         bad(f"{where}: the pieces' start_s must increase in the order the pieces are listed", *at)
     if not ok:
         return None
     return Session(recording=recording, pieces=pieces, rate_hz=float(prate), out_dir=Path("."),
-                   expand_repeats=flags["expand_repeats"], force=flags["force"], source=None)
+                   expand_repeats=flags["expand_repeats"], force=flags["force"], source=None, repeats=repeats)
 
 
 def _physio_tables(pl, *, where, at, rel, bad) -> list[PhysioSpec]:
@@ -697,13 +707,14 @@ alpha = 0.05                    # a participant "responds" when their share test
 [[performance]]
 id = "concert1"
 recording = "recordings/concert-1.flac"
-# expand_repeats = true
+# repeats = "auto"            # which repeats were played: "auto" (from the recording), "all", "none"
 # force = false
 [[performance.piece]]
 score = "scores/first-piece.musicxml"
 # name = "first"              # optional; default: the score's file name
 # start_s = 45                # optional rough start in the recording (seconds)
 # anchors = ["17.1=123.4"]    # optional: bar 17, beat 1 sounded at 123.4 s of the recording
+# repeats = "all"             # optional: this piece's own repeats setting
 [[performance.piece]]
 score = "scores/second-piece.musicxml"
 
