@@ -51,10 +51,13 @@ REPEAT_VALUES = ("auto", "all", "none")
 class SessionFileError(InputError):
     """Several problems in one session file: the message keeps one line per problem."""
 
+    #: What the file is called in the message.
+    what = "session file"
+
     def __init__(self, path: Path | None, problems: list[tuple[int | None, str]]):
         where = f"{path}: " if path is not None else ""
-        head = (f"{where}{len(problems)} problem{'s' if len(problems) != 1 else ''} in the session "
-                f"file; fix {'them' if len(problems) != 1 else 'it'} and rerun:")
+        head = (f"{where}{len(problems)} problem{'s' if len(problems) != 1 else ''} in the {self.what}; "
+                f"fix {'them' if len(problems) != 1 else 'it'} and rerun:")
         problems = sorted(problems, key=lambda p: (p[0] is None, p[0] or 0))
         body = [f"  line {ln}: {msg}" if ln else f"  {msg}" for ln, msg in problems]
         Exception.__init__(self, "\n".join([head] + body))

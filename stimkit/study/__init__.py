@@ -32,6 +32,13 @@ def summary_lines(result: StudyResult) -> list[str]:
     if g is not None and len(g.mixed):
         sig = g.mixed[g.mixed["p"] < g.alpha]
         lines.append(f"mixed model: {len(g.mixed)} kind x family means, {len(sig)} with p < {g.alpha:g}")
+    said: dict[str, list[str]] = {}
+    for o in result.sessions:
+        for w in o.warnings:
+            said.setdefault(w, []).append(o.name)
+    for w, names in said.items():  # doubts are said here, not only in the reports
+        who = names[0] if len(names) == 1 else f"{len(names)} sessions"
+        lines.append(f"warning ({who}): {w}")
     for w in result.warnings:
         lines.append(f"warning: {w}")
     for o in result.failed:

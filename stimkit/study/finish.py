@@ -64,6 +64,13 @@ def finish_study(study, plan, outcomes, *, out_root: Path, command=None):
 
     tables = collect_tables(study, plan, outcomes, out_root=out_root)
     group = group_results(tables, alpha=study.group["alpha"])
+    listed = {(j.spec.participant, j.spec.session) for j in plan.sessions}
+    stale = sorted(f"{d.parent.name}/{d.name}" for d in Path(out_root).glob("sub-*/ses-*")
+                   if d.is_dir() and (d.parent.name[4:], d.name[4:]) not in listed)
+    if stale:
+        group.warnings.append(f"{len(stale)} session folder(s) in the output are not in the study file "
+                              f"({', '.join(stale[:5])}{', ...' if len(stale) > 5 else ''}); remove them or "
+                              "choose another output folder, or BIDS tools will count them")
     failed = [(o.name, _clean_reason(o.reason, (out_root, study.root))) for o in outcomes if o.status == "failed"]
     g_rel = group_dir(out_root).relative_to(out_root).as_posix()
     inputs = {}

@@ -31,8 +31,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from ..errors import InputError
-from ..session import (_ANCHOR, AUDIO_SUFFIXES, REPEAT_VALUES, SCORE_SUFFIXES, PieceSpec, Session, SyncSpec,
-                       _stem, load_session, parse_sync_table)
+from ..session import (_ANCHOR, AUDIO_SUFFIXES, REPEAT_VALUES, SCORE_SUFFIXES, PieceSpec, Session,
+                       SessionFileError, SyncSpec, _stem, load_session, parse_sync_table)
 
 __all__ = ["Study", "PerformanceSpec", "StudySession", "PhysioSpec", "StudyFileError", "load_study",
            "parse_study_text", "template_text", "toml_lines", "ANALYSIS_DEFAULTS", "GROUP_DEFAULTS"]
@@ -61,19 +61,10 @@ GROUP_DEFAULTS = {
 }
 
 
-class StudyFileError(InputError):
+class StudyFileError(SessionFileError):
     """Several problems in one study file: the message keeps one line per problem."""
 
-    def __init__(self, path: Path | None, problems: list[tuple[int | None, str]]):
-        where = f"{path}: " if path is not None else ""
-        n = len(problems)
-        head = (f"{where}{n} problem{'s' if n != 1 else ''} in the study file; fix "
-                f"{'them' if n != 1 else 'it'} and rerun:")
-        problems = sorted(problems, key=lambda p: (p[0] is None, p[0] or 0))
-        body = [f"  line {ln}: {msg}" if ln else f"  {msg}" for ln, msg in problems]
-        Exception.__init__(self, "\n".join([head] + body))
-        self.path = path
-        self.problems = list(problems)
+    what = "study file"
 
 
 @dataclass

@@ -117,6 +117,19 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
     return fit, got, warnings + list(fit.warnings)
 
 
+def _stopwatch(timings: dict):
+    """``lap(name)``: add the seconds since the previous lap to ``timings[name]`` (``None``: skip)."""
+    last = [time.perf_counter()]
+
+    def lap(name):
+        now = time.perf_counter()
+        if name is not None:
+            timings[name] = timings.get(name, 0.0) + now - last[0]
+        last[0] = now
+
+    return lap
+
+
 def _timemap_call(tm):
     return lambda q: tm(np.asarray(q, dtype=np.float64))
 
@@ -201,13 +214,7 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
     from ..score.parse import load_score
 
     timings: dict[str, float] = {}
-    clock0 = time.perf_counter()
-
-    def lap(name):
-        nonlocal clock0
-        now = time.perf_counter()
-        timings[name] = timings.get(name, 0.0) + now - clock0
-        clock0 = now
+    lap = _stopwatch(timings)
 
     info = audio_info(session.recording)
     duration_s = info.duration_s
@@ -280,20 +287,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
     WorkFailed
         A sync mark or a piece cannot be found, or an alignment is refused (exit 1).
     """
+    from ..audio.read import audio_info
     from ..export.tables import check_output_dir
     from .segment import MAX_RATIO
 
-    from ..audio.read import audio_info
-
     out_dir = check_output_dir(session.out_dir)
     timings: dict[str, float] = {}
-    clock0 = time.perf_counter()
-
-    def lap(name):
-        nonlocal clock0
-        now = time.perf_counter()
-        timings[name] = timings.get(name, 0.0) + now - clock0
-        clock0 = now
+    lap = _stopwatch(timings)
 
     # the clock first: a sync problem is found before the long steps
     duration_s = audio_info(session.recording).duration_s if analysis is None else analysis.duration_s
@@ -301,7 +301,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
     lap("sync")
     if analysis is None:
         analysis = analyse_recording(session, progress=progress)
-        clock0 = time.perf_counter()
+        lap(None)  # restart the watch: the analysis timed its own steps
     timings.update(analysis.timings_s)
     warnings: list[str] = list(analysis.score_warnings) + sync_warnings + list(analysis.warnings)
     scores, spans, aligned, feats, changes = (analysis.scores, analysis.spans, analysis.aligned,
