@@ -53,6 +53,7 @@ class RelateSettings:
     guard_s: float = 0.0
     min_valid_share: float = 0.8
     n_pseudo: int = 1000
+    pseudo_away: bool = True
     ci_method: str = "pseudo"
     correction: str = "fdr_bh"
     alpha: float = 0.05
@@ -205,7 +206,8 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
                     rho1=rho1, k_pseudo=settings.n_pseudo, share_null=settings.share_null,
                     r_share=settings.n_share_null, min_shift_s=settings.min_shift_s,
                     alpha=settings.alpha, correction=settings.correction, ci_method=settings.ci_method,
-                    rng_pseudo=rp, rng_share=rs, participant=participant, series=name)
+                    rng_pseudo=rp, rng_share=rs, participant=participant, series=name,
+                    pseudo_away=settings.pseudo_away)
                 if verdict == "unreliable":
                     tab["flags"] = tab["flags"].map(lambda f: ",".join([x for x in (f, "unreliable") if x]))
                 bt.append(tab)

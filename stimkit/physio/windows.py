@@ -18,7 +18,12 @@ For one series, one window size and one boundary family (``trial_type``):
   Storch 1995), and **T4**, the primary test: T1's t at K pseudo-boundaries placed uniformly in
   Omega wherever both windows fit under the same rules; p_cal = (1 + #{|t_k| >= |t_obs|}) /
   (K + 1) (Phipson & Smyth 2010), z_null = (t_obs - mean t_k) / sd t_k. The null carries the
-  participant's own autocorrelation, drift and artefact pattern.
+  participant's own autocorrelation, drift and artefact pattern. Pseudo-boundaries are placed
+  where no boundary of the family lies inside their windows (``pseudo_placement`` ``away``),
+  so that responses at the real boundaries do not enter their own null; under the null the
+  boundary times are independent of the series, so this choice does not change the null
+  distribution. When that leaves too little room (dense families: fewer than K/4 places), they
+  are placed anywhere (``anywhere``), which is conservative when the participant responds.
 - **CI** (default ``pseudo``): with c_k the centred pseudo-boundary differences,
   [delta - q97.5(c), delta - q2.5(c)]; ``iid`` gives Welch's interval instead.
 - **Multiplicity**: Benjamini-Hochberg (1995) on p_cal within the family (or ``fdr_by``,
@@ -53,7 +58,7 @@ from scipy import stats
 from .span import Span
 
 __all__ = ["WindowSetup", "lag1_autocorrelation", "effective_n", "hedges_g", "hodges_lehmann",
-           "adjust_pvalues", "boundary_table", "family_tests", "BOUNDARY_TEST_COLUMNS",
+           "adjust_pvalues", "adjust_rows", "boundary_table", "family_tests", "BOUNDARY_TEST_COLUMNS",
            "BOUNDARY_SUMMARY_COLUMNS"]
 
 BOUNDARY_TEST_COLUMNS = [
@@ -64,7 +69,7 @@ BOUNDARY_TEST_COLUMNS = [
     "significant", "direction", "flags", "status"]
 BOUNDARY_SUMMARY_COLUMNS = [
     "participant", "series", "trial_type", "N", "window_unit", "B", "n_boundaries", "K",
-    "s_obs", "null_q05", "null_q50", "null_q95", "p_share", "s_obs_q", "null_q95_q", "p_share_q",
+    "pseudo_placement", "s_obs", "null_q05", "null_q50", "null_q95", "p_share", "s_obs_q", "null_q95_q", "p_share_q",
     "share_null", "R", "n_significant", "n_up", "n_down", "chance_delta_q05", "chance_delta_q95",
     "rho1", "correction", "alpha"]
 
@@ -117,6 +122,33 @@ def adjust_pvalues(p, *, method: str = "fdr_bh", alpha: float = 0.05) -> np.ndar
     ok = np.isfinite(p)
     if ok.any():
         out[ok] = multipletests(p[ok], alpha=alpha, method=method)[1]
+    return out
+
+
+def adjust_rows(p: np.ndarray, *, method: str = "fdr_bh") -> np.ndarray:
+    """Row-wise adjusted p-values of a 2-D array (NaN = not tested), vectorised; the same
+    step-up/step-down formulas as :func:`adjust_pvalues` (the tests check they agree)."""
+    p = np.atleast_2d(np.asarray(p, dtype=np.float64))
+    R, B = p.shape
+    m = np.sum(np.isfinite(p), axis=1)[:, None].astype(np.float64)
+    order = np.argsort(np.where(np.isfinite(p), p, np.inf), axis=1, kind="stable")
+    ps = np.take_along_axis(p, order, axis=1)
+    rank = np.arange(1, B + 1, dtype=np.float64)[None, :]
+    valid = rank <= m
+    if method in ("fdr_bh", "fdr_by"):
+        c = np.ones_like(m)
+        if method == "fdr_by":
+            c = np.array([[np.sum(1.0 / np.arange(1, int(k) + 1)) if k else 1.0] for k in m[:, 0]])
+        adj = np.where(valid, ps * m * c / rank, np.inf)
+        adj = np.minimum.accumulate(adj[:, ::-1], axis=1)[:, ::-1]
+    elif method == "holm":
+        adj = np.where(valid, ps * (m - rank + 1), -np.inf)
+        adj = np.maximum.accumulate(adj, axis=1)
+    else:
+        raise ValueError(f"unknown correction '{method}' (fdr_bh, fdr_by, holm)")
+    adj = np.where(valid, np.minimum(adj, 1.0), np.nan)
+    out = np.empty_like(adj)
+    np.put_along_axis(out, order, adj, axis=1)
     return out
 
 
@@ -219,25 +251,44 @@ class WindowSetup:
         return self.x[sl][self.ok[sl]]
 
 
-def _pseudo_null(setup: WindowSetup, size, *, k: int, rng: np.random.Generator, max_batches: int = 40):
+def _window_spans(setup: WindowSetup, tb: np.ndarray, size):
+    """(first, last) time covered by the before and after windows of each boundary."""
+    i0, i1, j0, j1, _ = setup.bounds(tb, size)
+    if setup.fixed_rate_hz is None:
+        n = setup.t.size
+        return setup.t[np.clip(i0, 0, n - 1)], setup.t[np.clip(j1 - 1, 0, n - 1)]
+    return tb - float(size), tb + setup.guard_s + float(size)
+
+
+def _pseudo_null(setup: WindowSetup, size, *, k: int, rng: np.random.Generator, avoid=None,
+                 max_batches: int = 40):
     """T1 t and delta at up to ``k`` pseudo-boundaries placed uniformly in Omega where the
-    windows fit (status ok)."""
+    windows fit (status ok); with ``avoid`` (the family's boundary times), only where no such
+    boundary lies inside the windows, falling back to anywhere when that leaves fewer than
+    ``k / 4``. Returns (t, delta, placement)."""
     T = setup.span.total_s
-    ts, ds = [], []
-    got = 0
-    for _ in range(max_batches):
-        u = rng.uniform(0.0, T, size=4 * k)
-        tb = setup.span.from_axis(u)
-        t, _, _, d, status = setup.welch(tb, size)
-        keep = (status == 0) & np.isfinite(t)
-        ts.append(t[keep])
-        ds.append(d[keep])
-        got += int(keep.sum())
-        if got >= k:
-            break
-    t = np.concatenate(ts)[:k] if ts else np.zeros(0)
-    d = np.concatenate(ds)[:k] if ds else np.zeros(0)
-    return t, d
+    av = np.sort(np.asarray(avoid, dtype=np.float64)) if avoid is not None else np.zeros(0)
+    for placement in (("away",) if av.size else ()) + ("anywhere",):
+        ts, ds = [], []
+        got = 0
+        for _ in range(max_batches):
+            u = rng.uniform(0.0, T, size=4 * k)
+            tb = setup.span.from_axis(u)
+            t, _, _, d, status = setup.welch(tb, size)
+            keep = (status == 0) & np.isfinite(t)
+            if placement == "away":
+                lo, hi = _window_spans(setup, tb, size)
+                keep &= np.searchsorted(av, hi, "right") == np.searchsorted(av, lo, "left")
+            ts.append(t[keep])
+            ds.append(d[keep])
+            got += int(keep.sum())
+            if got >= k:
+                break
+        if got >= k / 4 or placement == "anywhere":
+            t = np.concatenate(ts)[:k] if ts else np.zeros(0)
+            d = np.concatenate(ds)[:k] if ds else np.zeros(0)
+            return t, d, placement
+    raise AssertionError("unreachable")
 
 
 def _p_cal(t_obs, abs_null_sorted: np.ndarray):
@@ -319,11 +370,12 @@ def _share_null_sets(setup: WindowSetup, tb: np.ndarray, *, method: str, r: int,
 def family_tests(setup: WindowSetup, bounds: pd.DataFrame, *, size, rho1: float, k_pseudo: int,
                  share_null: str, r_share: int, min_shift_s: float, alpha: float, correction: str,
                  ci_method: str, rng_pseudo: np.random.Generator, rng_share: np.random.Generator,
-                 participant: str, series: str) -> tuple[pd.DataFrame, dict]:
+                 participant: str, series: str, pseudo_away: bool = True) -> tuple[pd.DataFrame, dict]:
     """Analysis A for one family and one window size: (boundary rows, summary row)."""
     tb_all = bounds["onset"].to_numpy(np.float64)
     unit = "s" if setup.fixed_rate_hz is not None else "beats"
-    t_null, d_null = _pseudo_null(setup, size, k=k_pseudo, rng=rng_pseudo)
+    t_null, d_null, placement = _pseudo_null(setup, size, k=k_pseudo, rng=rng_pseudo,
+                                             avoid=tb_all if pseudo_away else None)
     abs_null = np.sort(np.abs(t_null))
     c = d_null - d_null.mean() if d_null.size else d_null
     t_obs, _, p1, delta, status = setup.welch(tb_all, size)
@@ -402,12 +454,9 @@ def family_tests(setup: WindowSetup, bounds: pd.DataFrame, *, size, rho1: float,
         with np.errstate(invalid="ignore"):
             null_s = np.where(cnt > 0, np.sum((pn < alpha) & okn, axis=1) / np.maximum(cnt, 1), np.nan)
         if has_null:
-            pc = _p_cal(tn, abs_null)
-            null_sq = np.full(R, np.nan)
-            for i in range(R):
-                if cnt[i]:
-                    qq = adjust_pvalues(np.where(okn[i], pc[i], np.nan), method=correction, alpha=alpha)
-                    null_sq[i] = float(np.mean(qq[okn[i]] < alpha))
+            qq = adjust_rows(np.where(okn, _p_cal(tn, abs_null), np.nan), method=correction)
+            with np.errstate(invalid="ignore"):
+                null_sq = np.where(cnt > 0, np.sum((qq < alpha) & okn, axis=1) / np.maximum(cnt, 1), np.nan)
         null_s = null_s[np.isfinite(null_s)]
         null_sq = null_sq[np.isfinite(null_sq)]
 
@@ -421,7 +470,8 @@ def family_tests(setup: WindowSetup, bounds: pd.DataFrame, *, size, rho1: float,
     summary = {
         "participant": participant, "series": series, "trial_type": bounds["trial_type"].iloc[0]
         if len(bounds) else np.nan, "N": size, "window_unit": unit, "B": B,
-        "n_boundaries": int(len(bounds)), "K": int(t_null.size), "s_obs": s_obs,
+        "n_boundaries": int(len(bounds)), "K": int(t_null.size), "pseudo_placement": placement,
+        "s_obs": s_obs,
         "null_q05": qs(null_s, 0.05), "null_q50": qs(null_s, 0.5), "null_q95": qs(null_s, 0.95),
         "p_share": pshare(null_s, s_obs), "s_obs_q": s_obs_q, "null_q95_q": qs(null_sq, 0.95),
         "p_share_q": pshare(null_sq, s_obs_q), "share_null": share_null, "R": int(null_s.size),
