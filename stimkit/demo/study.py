@@ -9,10 +9,12 @@ different time and runs at a different rate (:data:`CLOCKS`), so every session h
 participant's recorder logged them (0.1 ms resolution, as in the scenario). The performance is
 the same in all six sessions, so the study aligns it once.
 
-When the physiology analysis is available (:mod:`stimkit.physio`), each session also gets a
-simulated beat-interval series of that participant on their own recorder clock, with responses
-planted as stated in :data:`RESPONSES` (one participant slows at boundaries, one speeds up, one
-does not respond), written as BIDS physio.
+Each session also gets a simulated beat-interval series of that participant on their own recorder
+clock (:func:`simulate_beats`), written as BIDS physio: after each rehearsal mark inside the pieces
+(:data:`PLANTED_RECORDING_S`) the beat interval of p01 rises by 60 ms for 15 s (the heart slows),
+that of p02 falls by as much, and p03 does not respond (:data:`RESPONSES`). Nothing is planted
+anywhere else; the marks coincide with some key and tempo changes, so those families carry the
+responses too.
 
 :func:`write_demo_study` writes ``study.toml`` and its inputs into a folder (the recording and
 scores are copied, so the folder stands alone); ``stimkit study --demo -o DIR`` writes it to
@@ -22,7 +24,6 @@ scores are copied, so the folder stands alone); ``stimkit study --demo -o DIR`` 
 from __future__ import annotations
 
 import json
-import shutil
 from pathlib import Path
 
 __all__ = ["write_demo_study", "CLOCKS", "PARTICIPANTS", "RESPONSES", "SESSIONS"]
@@ -44,7 +45,8 @@ CLOCKS = {
     ("p02", "1"): (31.2, -20.0), ("p02", "2"): (18.4, -20.0),
     ("p03", "1"): (7.1, 8.0), ("p03", "2"): (44.0, 8.0),
 }
-#: Planted response of each participant at the score boundaries (sign of the change in beat interval).
+#: Planted response of each participant after the planted boundaries: the sign of the change of the
+#: beat interval (p02 mirrors p01, so a group mean over participants hides two clear responders).
 RESPONSES = {"p01": +1, "p02": -1, "p03": 0}
 RECORDER_RESOLUTION_S = 1e-4
 
@@ -58,16 +60,70 @@ def _recorder_times(offset_s: float, drift_ppm: float) -> list[float]:
     return out
 
 
+#: Where responses are planted (recording seconds, the renderer's ground truth): the rehearsal
+#: marks inside the pieces (A again at the repeat, B, C, D of the first piece; B, C of the second).
+PLANTED_RECORDING_S = (36.327, 63.386, 107.569, 134.059, 207.025, 233.454)
+BASE_MS, RESPONSE_MS, RESPONSE_S, PHI, SD_MS = 820.0, 60.0, 15.0, 0.5, 25.0
+PHYSIO_RATE_HZ = 500.0
+
+
+def simulate_beats(participant: str, session: str, *, seed: int = 20261203):
+    """Beat times (s, on the participant's recorder clock) and intervals (ms) of one session.
+
+    The interval is ``BASE_MS`` plus AR(1) noise (phi ``PHI``, marginal SD ``SD_MS``; a common first
+    model of beat-to-beat fluctuation) plus a response of ``RESPONSE_MS`` for ``RESPONSE_S``
+    seconds after each planted time, times the participant's sign in :data:`RESPONSES` (+1: the
+    heart slows, -1: it speeds up, 0: no response).
+    """
+    import numpy as np
+
+    rng = np.random.default_rng([seed, int(participant[1:]), int(session)])
+    sign = RESPONSES[participant]
+    off, ppm = CLOCKS[(participant, session)]
+    steps = np.asarray(PLANTED_RECORDING_S)
+    sd_innov = SD_MS * np.sqrt(1.0 - PHI ** 2)
+    rec, rr = [], []
+    now, noise = 0.5, rng.normal(0.0, SD_MS)
+    end = json.loads(TRUTH.read_text(encoding="utf-8"))["sync_marks"][-1]["recording_s"] + 0.5
+    while now < end:
+        responding = bool(np.any((now >= steps) & (now < steps + RESPONSE_S)))
+        noise = PHI * noise + rng.normal(0.0, sd_innov)
+        x = BASE_MS + (sign * RESPONSE_MS if responding else 0.0) + noise
+        now += x / 1000.0
+        rec.append(now)
+        rr.append(x)
+    t = off + (1.0 + ppm * 1e-6) * np.asarray(rec)
+    return t, np.asarray(rr)
+
+
 def _physio_files(folder: Path) -> dict:
-    """Simulated physiology per session, when the physiology analysis offers a simulator."""
-    try:
-        from ..physio import demo as physio_demo  # noqa: F401
-    except ImportError:
-        return {}
-    return {}
+    """Simulated BIDS physio per session (``value_at_beat``: the interval at each beat's sample)."""
+    import numpy as np
+
+    from ..export.tables import OutputSet, gzip_bytes
+
+    out = {}
+    with OutputSet(folder) as outs:
+        for p in PARTICIPANTS:
+            for ses in SESSIONS:
+                t, rr = simulate_beats(p["id"], ses)
+                start = float(np.floor(t[0]) - 1.0)
+                k = np.round((t - start) * PHYSIO_RATE_HZ).astype(np.int64)
+                col = np.zeros(int(k[-1]) + int(PHYSIO_RATE_HZ), dtype=np.float64)
+                col[k] = np.round(rr, 1)
+                body = "\n".join("0" if v == 0 else f"{v:.1f}" for v in col) + "\n"
+                name = f"physio/sub-{p['id']}_ses-{ses}_recording-heart_physio"
+                outs.write_bytes(f"{name}.tsv.gz", gzip_bytes(body.encode("ascii")))
+                outs.write_text(f"{name}.json", json.dumps({
+                    "SamplingFrequency": PHYSIO_RATE_HZ, "StartTime": start, "Columns": ["rr"],
+                    "rr": {"Description": "Beat-to-beat (RR) interval, written at the sample of the beat that "
+                                          "closes it; 0 between beats (simulated, invented participant)",
+                           "Units": "ms"}}, indent=2) + "\n")
+                out[(p["id"], ses)] = [{"file": f"{name}.tsv.gz", "kind": "rr", "label": "heart"}]
+    return out
 
 
-def write_demo_study(folder, *, sessions=SESSIONS, participants=PARTICIPANTS) -> Path:
+def write_demo_study(folder) -> Path:
     """Write the demo study (``study.toml``, recording, scores, physiology) into ``folder``; returns
     the study file. Existing files of an earlier demo are replaced."""
     from ..export.tables import OutputSet
@@ -83,11 +139,11 @@ def write_demo_study(folder, *, sessions=SESSIONS, participants=PARTICIPANTS) ->
     pieces = "".join(f'[[performance.piece]]\nscore = "scores/{Path(s).name}"\nname = "{Path(s).name.split(".")[0]}"\n'
                      for s in SCORES)
     people = "".join(f'[[participant]]\nid = "{p["id"]}"\nage = {p["age"]}\ngroup = "{p["group"]}"\n\n'
-                     for p in participants)
+                     for p in PARTICIPANTS)
     rows = []
     sync_files: dict[str, str] = {}
-    for p in participants:
-        for ses in sessions:
+    for p in PARTICIPANTS:
+        for ses in SESSIONS:
             off, ppm = CLOCKS[(p["id"], ses)]
             sync_file = f"sync/sub-{p['id']}_ses-{ses}_recorder-sync.tsv"
             sync_files[sync_file] = "mark\tonset\n" + "".join(
@@ -96,7 +152,7 @@ def write_demo_study(folder, *, sessions=SESSIONS, participants=PARTICIPANTS) ->
                      f"[session.sync]                # recorder clock: offset {off:g} s, drift {ppm:+g} ppm\n"
                      f'frequency_hz = 1000\nduration_s = 0.05\nrecorder_file = "{sync_file}"\n')
             for f in physio.get((p["id"], ses), []):
-                block += f'[[session.physio]]\nfile = "{f["file"]}"\nkind = "{f["kind"]}"\n'
+                block += f'[[session.physio]]\nfile = "{f["file"]}"\nkind = "{f["kind"]}"\nlabel = "{f["label"]}"\n'
             rows.append(block)
     text = ("# The stimkit demo study: three invented participants, two sessions each, one recorded\n"
             "# performance (the bundled demo session) played back to them; each participant has their\n"
@@ -113,7 +169,3 @@ def write_demo_study(folder, *, sessions=SESSIONS, participants=PARTICIPANTS) ->
             outs.write_text(name, body)
         outs.write_text("study.toml", text)
     return folder / "study.toml"
-
-
-def _remove(folder: Path) -> None:  # pragma: no cover - convenience for manual runs
-    shutil.rmtree(folder, ignore_errors=True)

@@ -25,8 +25,11 @@ def summary_lines(result: StudyResult) -> list[str]:
              f"performances: {result.performances_total}, analysed in this run: {result.performances_computed}"]
     g = result.group
     if g is not None and len(g.prevalence):
-        for r in g.prevalence.itertuples(index=False):
-            lines.append(f"prevalence {r.series}, N = {r.N}: {r.k} of {r.n} participants respond "
+        found = g.prevalence[g.prevalence["k"] > 0]
+        lines.append(f"prevalence: responders in {len(found)} of {len(g.prevalence)} boundary families "
+                     f"(series x N x kind)")
+        for r in found.itertuples(index=False):
+            lines.append(f"  {r.series}, N = {r.N}, {r.trial_type}: {r.k} of {r.n} participants respond "
                          f"(binomial p = {r.p_binom:.3g}; prevalence MAP {r.gamma_map:.2f}, "
                          f"95 % HPDI {r.hpdi_low:.2f}-{r.hpdi_high:.2f})")
     if g is not None and len(g.mixed):

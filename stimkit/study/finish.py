@@ -42,6 +42,7 @@ def collect_tables(study, plan, outcomes, *, out_root: Path) -> dict[str, pd.Dat
                 df = pd.read_csv(Path(out_root) / rel, sep="\t", na_values="n/a", keep_default_na=False)
                 ids = pd.DataFrame({"participant": s.participant, "session": s.session, "performance": perf_id,
                                     "series": p.label or p.kind or "series"}, index=df.index)
+                df = df.drop(columns=[c for c in ids.columns if c in df.columns])
                 frames[t].append(pd.concat([ids, df], axis=1))
     return {t: (pd.concat(v, ignore_index=True) if v else pd.DataFrame()) for t, v in frames.items()}
 

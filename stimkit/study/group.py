@@ -3,10 +3,11 @@
 What it computes
 ----------------
 - **Prevalence of responders** (:func:`prevalence_table`). A participant *responds* in a family
-  (series × window N) when their share of significant boundaries beats its own chance band:
-  ``p_share < alpha``. With several sessions the participant's p is the Bonferroni minimum over
-  their sessions (``min(1, m * min p)``), so each participant keeps a false-positive rate of at
-  most ``alpha``, as the binomial null needs. Of ``n`` participants ``k`` respond:
+  (series × window N × boundary kind, PHYSIO-STATS §2.4) when their share of significant
+  boundaries beats its own chance band: ``p_share < alpha``. With several sessions the
+  participant's p is the Bonferroni minimum over their sessions (``min(1, m * min p)``), so each
+  participant keeps a false-positive rate of at most ``alpha``, as the binomial null needs. Of
+  ``n`` participants ``k`` respond:
 
   * ``scipy.stats.binomtest(k, n, alpha, alternative="greater")`` -- could k be chance alone?
   * the Bayesian prevalence of Ince et al. (2021) with a uniform prior and full
@@ -108,32 +109,37 @@ def participant_p(p_values) -> float:
     return float(min(1.0, p.size * p.min())) if p.size else float("nan")
 
 
-_FAMILY = ["series", "N"]
+_FAMILY = ["series", "N", "trial_type"]
 
 
 def prevalence_table(summary: pd.DataFrame, *, alpha: float) -> tuple[pd.DataFrame, pd.DataFrame]:
     """``(prevalence, responders)`` from the stacked ``boundary_summary`` tables.
 
-    ``responders``: one row per participant × series × N with ``sessions``, ``p_share`` (per
-    :func:`participant_p`) and ``responder``. ``prevalence``: one row per series × N with ``k``,
-    ``n``, ``alpha``, ``gamma_map``, ``hpdi_low``, ``hpdi_high``, ``p_binom``.
+    ``responders``: one row per participant × family (series × N × trial_type) with
+    ``sessions``, ``p_share`` (per :func:`participant_p`) and ``responder``. ``prevalence``: one
+    row per family with ``k``, ``n``, ``alpha``, ``gamma_map``, ``hpdi_low``, ``hpdi_high``,
+    ``p_binom``.
     """
-    cols_r = ["series", "N", "participant", "sessions", "p_share", "responder"]
-    cols_p = ["series", "N", "k", "n", "alpha", "gamma_map", "hpdi_low", "hpdi_high", "p_binom"]
+    cols_r = _FAMILY + ["participant", "sessions", "p_share", "responder"]
+    cols_p = _FAMILY + ["k", "n", "alpha", "gamma_map", "hpdi_low", "hpdi_high", "p_binom"]
     if summary is None or not len(summary) or "p_share" not in summary.columns:
         return pd.DataFrame(columns=cols_p), pd.DataFrame(columns=cols_r)
     rows = []
-    for (series, n_beats, part), g in summary.groupby(_FAMILY + ["participant"], sort=True):
+    for (series, n_beats, kind, part), g in summary.groupby(_FAMILY + ["participant"], sort=True):
         p = participant_p(g["p_share"].to_numpy(dtype=np.float64))
-        rows.append({"series": series, "N": int(n_beats), "participant": part, "sessions": int(len(g)),
-                     "p_share": p, "responder": bool(p < alpha) if math.isfinite(p) else None})
+        rows.append({"series": series, "N": int(n_beats), "trial_type": kind, "participant": part,
+                     "sessions": int(g["p_share"].notna().sum()), "p_share": p,
+                     "responder": bool(p < alpha) if math.isfinite(p) else None})
     resp = pd.DataFrame(rows, columns=cols_r)
     prev = []
-    for (series, n_beats), g in resp.groupby(_FAMILY, sort=True):
+    for (series, n_beats, kind), g in resp.groupby(_FAMILY, sort=True):
         g = g[g["responder"].notna()]
         k, n = int(g["responder"].astype(bool).sum()), int(len(g))
+        if n == 0:
+            continue
         r = bayesian_prevalence(k, n, alpha=alpha)
-        prev.append({"series": series, "N": int(n_beats), "k": k, "n": n, "alpha": alpha, "gamma_map": r.gamma_map,
+        prev.append({"series": series, "N": int(n_beats), "trial_type": kind, "k": k, "n": n, "alpha": alpha,
+                     "gamma_map": r.gamma_map,
                      "hpdi_low": r.hpdi_low, "hpdi_high": r.hpdi_high, "p_binom": r.p_binom})
     return pd.DataFrame(prev, columns=cols_p), resp
 
@@ -217,7 +223,7 @@ def mixed_model_table(tests: pd.DataFrame, *, value: str = "delta") -> tuple[pd.
     if not len(t) or value not in t.columns or "trial_type" not in t.columns:
         return pd.DataFrame(columns=cols), notes
     rows = []
-    for (series, n_beats), g in t.groupby(_FAMILY, sort=True):
+    for (series, n_beats), g in t.groupby(["series", "N"], sort=True):
         g = g[np.isfinite(g[value].to_numpy(dtype=np.float64))]
         g = g.sort_values(["participant", "session", "trial_type", "onset"] if "onset" in g.columns
                           else ["participant", "session", "trial_type"], kind="mergesort")
@@ -306,6 +312,7 @@ _DESCRIPTIONS = {
     "prevalence": {
         "series": "physiological series (the recording label of its file)",
         "N": "beats per window before / after each boundary",
+        "trial_type": "boundary family (kind of boundary)",
         "k": "participants whose share of significant boundaries beat their own chance band (p_share < alpha)",
         "n": "participants with a share test",
         "alpha": "the within-participant test level, also the binomial test's chance rate",
@@ -315,7 +322,8 @@ _DESCRIPTIONS = {
         "p_binom": "scipy.stats.binomtest(k, n, alpha, alternative='greater')",
     },
     "responders": {
-        "series": "physiological series", "N": "beats per window", "participant": "BIDS subject label",
+        "series": "physiological series", "N": "beats per window", "trial_type": "boundary family",
+        "participant": "BIDS subject label",
         "sessions": "sessions with a share test",
         "p_share": "the participant's p for the share of significant boundaries: min(1, sessions x min p_share)",
         "responder": "p_share < alpha",

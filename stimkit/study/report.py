@@ -107,37 +107,25 @@ def _num(v) -> str:
 def group_figures(group) -> list[tuple[str, object]]:
     """``(caption, figure)`` for the prevalence, direction and mixed-model figures that have data."""
     out = []
-    if len(group.responders):
-        fams = list(group.responders.groupby(["series", "N"], sort=True))
-        fig = _fig(10.0, 2.3 * len(fams) + 0.4)
-        axes = fig.subplots(len(fams), 2, squeeze=False)
-        for (ax1, ax2), ((series, n_beats), g) in zip(axes, fams):
-            p = np.clip(g["p_share"].to_numpy(dtype=np.float64), 1e-4, 1.0)
-            resp = g["responder"].astype(str).str.lower().eq("true").to_numpy()
-            y = np.arange(len(g))
-            ax1.scatter(p, y, c=np.where(resp, _UP, _NONE), s=22, zorder=3)
-            ax1.axvline(group.alpha, color="#444444", lw=0.8, ls="--")
-            ax1.set_xscale("log")
-            ax1.set_yticks(y)
-            ax1.set_yticklabels([f"sub-{v}" for v in g["participant"]], fontsize=7)
-            ax1.set_xlabel("p_share (each participant's own chance band)", fontsize=7)
-            ax1.set_title(f"{series}, N = {n_beats}: responders (p_share < {group.alpha:g})", fontsize=8, loc="left")
-            pr = group.prevalence[(group.prevalence["series"] == series) & (group.prevalence["N"] == n_beats)]
-            if len(pr):
-                r = pr.iloc[0]
-                ax2.errorbar([r["gamma_map"]], [0], xerr=[[r["gamma_map"] - r["hpdi_low"]],
-                                                          [r["hpdi_high"] - r["gamma_map"]]],
-                             fmt="o", color=_UP, capsize=4)
-                ax2.set_xlim(0, 1)
-                ax2.set_yticks([])
-                ax2.set_xlabel("population prevalence (MAP, 95 % HPDI)", fontsize=7)
-                ax2.set_title(f"{int(r['k'])} of {int(r['n'])} respond; binomial p = {_num(r['p_binom'])}",
-                              fontsize=8, loc="left")
-            for a in (ax1, ax2):
-                a.tick_params(labelsize=7)
+    pr = group.prevalence
+    if len(pr):
+        fig = _fig(10.0, 0.32 * len(pr) + 1.2)
+        ax = fig.subplots(1, 1)
+        y = np.arange(len(pr))[::-1]
+        g = pr["gamma_map"].to_numpy(dtype=np.float64)
+        lo, hi = pr["hpdi_low"].to_numpy(dtype=np.float64), pr["hpdi_high"].to_numpy(dtype=np.float64)
+        ax.errorbar(g, y, xerr=[g - lo, hi - g], fmt="o", color=_UP, capsize=3)
+        ax.set_yticks(y)
+        ax.set_yticklabels([f"{r.series}, N = {r.N}, {r.trial_type}: {r.k} of {r.n} (p = {_num(r.p_binom)})"
+                            for r in pr.itertuples(index=False)], fontsize=7)
+        ax.set_xlim(0, 1)
+        ax.set_xlabel("population prevalence of responders (MAP and 95 % HPDI)", fontsize=7)
+        ax.set_title(f"responders: p_share < {group.alpha:g} within the participant (own chance band); "
+                     "binomial test against alpha", fontsize=8, loc="left")
+        ax.tick_params(labelsize=7)
         fig.tight_layout()
-        out.append(("Prevalence of responders: each participant's test against their own chance band, "
-                    "and the Bayesian population prevalence (Ince et al. 2021).", fig))
+        out.append(("Prevalence of responders per boundary family: the Bayesian population prevalence "
+                    "(Ince et al. 2021) with the number of responders and the binomial test.", fig))
     d = group.direction
     if len(d):
         fams = list(d.groupby(["performance", "series", "N"], sort=True))

@@ -44,10 +44,13 @@ def write_tiny_study(folder: Path, *, clocks=CLOCKS, extra_sessions: str = "") -
         sync = folder / f"sync-{pid}.tsv"
         if not sync.exists():  # kept as it is when the folder already has one
             sync.write_text("onset\n" + "".join(f"{round(off + (1 + ppm * 1e-6) * t, 4):.4f}\n" for t in marks))
+        physio = _write_beats(folder, pid, off, ppm, bids=(pid == "b2"))
         sessions.append(f'[[session]]\nparticipant = "{pid}"\nsession = "1"\nperformance = "kites"\n'
-                        f'[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\nrecorder_file = "sync-{pid}.tsv"\n')
+                        f'[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\nrecorder_file = "sync-{pid}.tsv"\n'
+                        f'[[session.physio]]\nfile = "{physio}"\nkind = "rr"\nlabel = "heart"\n')
     people = "".join(f'[[participant]]\nid = "{pid}"\nage = {40 + i}\n' for i, pid in enumerate(clocks))
     text = ('name = "tiny study"\nauthors = ["stimkit tests"]\ntask = "listening"\nseed = 7\n'
+            "[analysis]\npseudo_boundaries = 49\nshare_sets = 49\nsurrogates = 19\n"
             '[[performance]]\nid = "kites"\nrecording = "performance.flac"\n'
             f'[[performance.piece]]\nscore = "{SCORE.name}"\n'
             + people + "".join(sessions) + extra_sessions)
@@ -55,3 +58,33 @@ def write_tiny_study(folder: Path, *, clocks=CLOCKS, extra_sessions: str = "") -
         (folder / SCORE.name).write_bytes(SCORE.read_bytes())
     (folder / "study.toml").write_text(text)
     return folder / "study.toml"
+
+
+def _write_beats(folder: Path, pid: str, off: float, ppm: float, *, bids: bool) -> str:
+    """A simulated beat-interval series (820 ms + AR(1) noise, phi 0.5, SD 25 ms) over the whole
+    recording on the participant's clock: a plain beat table, or BIDS physio (value at beat)."""
+    import gzip
+    import json
+
+    rng = np.random.default_rng(sum(map(ord, pid)))
+    dur = sf.info(folder / "performance.flac").duration
+    t, x, noise, now = [], [], 0.0, 0.3
+    while now < dur - 0.3:
+        noise = 0.5 * noise + rng.normal(0.0, 25.0 * np.sqrt(0.75))
+        v = 820.0 + noise
+        now += v / 1000.0
+        t.append(off + (1 + ppm * 1e-6) * now)
+        x.append(round(v, 1))
+    if not bids:
+        name = f"beats-{pid}.tsv"
+        (folder / name).write_text("beat_time\trr\n" + "".join(f"{a:.4f}\t{b:.1f}\n" for a, b in zip(t, x)))
+        return name
+    fs, start = 500.0, float(np.floor(t[0]) - 1.0)
+    k = np.round((np.asarray(t) - start) * fs).astype(int)
+    col = np.zeros(k[-1] + 10)
+    col[k] = x
+    name = f"sub-{pid}_physio.tsv.gz"
+    (folder / name).write_bytes(gzip.compress("".join("0\n" if v == 0 else f"{v:.1f}\n" for v in col).encode(), mtime=0))
+    (folder / name.replace(".tsv.gz", ".json")).write_text(json.dumps(
+        {"SamplingFrequency": fs, "StartTime": start, "Columns": ["rr"], "rr": {"Units": "ms"}}))
+    return name

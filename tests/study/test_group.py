@@ -60,7 +60,7 @@ def _summary(p_by_participant, *, n_beats=20):
     for pid, ps in p_by_participant.items():
         for j, p in enumerate(ps):
             rows.append({"participant": pid, "session": str(j + 1), "performance": "x", "series": "rr",
-                         "N": n_beats, "p_share": p})
+                         "N": n_beats, "trial_type": "key", "p_share": p})
     return pd.DataFrame(rows)
 
 
