@@ -25,6 +25,8 @@ Conventions
   above ~43 Hz) the value is linearly interpolated at the frame centre. Onset rate, tempo and key
   are windowed around the frame centre (windows stated in the column descriptions). With rates
   above 4 Hz, tempo is evaluated at 4 Hz and each frame takes the nearest value.
+- Frames whose centre lies in a silent segment get n/a (NaN; ``None`` for the key name) for the
+  tempo, key and tonal columns (:data:`UNDEFINED_IN_SILENCE`): nothing is measured there.
 - Memory is bounded by the block length (10 s, two blocks decoded ahead in a reader thread) plus
   a few floats per STFT frame and per 5 ms. The loudness path runs in a second thread.
 
@@ -51,7 +53,8 @@ from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, _cle
                    audio_info, iter_blocks)
 
 __all__ = ["FeatureResult", "compute_features", "features_from_array", "write_features",
-           "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "MAX_RATE_HZ", "BLOCK_S"]
+           "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "UNDEFINED_IN_SILENCE", "MAX_RATE_HZ",
+           "BLOCK_S"]
 
 MAX_RATE_HZ = 100.0
 BLOCK_S = 10.0
