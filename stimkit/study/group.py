@@ -180,6 +180,9 @@ def direction_table(tests: pd.DataFrame, *, alpha: float = 0.05) -> pd.DataFrame
         return pd.DataFrame(columns=cols)
     t = t.copy()
     t["boundary"] = boundary_keys(t)
+    # time order of the boundaries: each participant's rank of the boundary (clocks differ, order does not)
+    t["_rank"] = t.groupby(["participant", "session", "series", "N"], sort=False)["onset"].rank(method="first") \
+        if "onset" in t.columns else 0.0
     t = t[np.isfinite(t["z_null"].to_numpy(dtype=np.float64))]
     rows = []
     for (perf, series, n_beats, bkey), g in t.groupby(["performance", "series", "N", "boundary"], sort=True):
@@ -189,14 +192,16 @@ def direction_table(tests: pd.DataFrame, *, alpha: float = 0.05) -> pd.DataFrame
                "trial_type": first.get("trial_type"), "label": first.get("label"),
                "measure": first.get("measure"), "beat": first.get("beat"), "boundary": bkey,
                "n": int(z.size), "n_up": int((z > 0).sum()), "n_down": int((z < 0).sum()),
-               "mean_z": float(z.mean()), "W": float("nan"), "p_wilcoxon": float("nan")}
+               "mean_z": float(z.mean()), "W": float("nan"), "p_wilcoxon": float("nan"),
+               "_rank": float(g["_rank"].mean())}
         if np.count_nonzero(z) >= 2:
             with _warnings.catch_warnings():
                 _warnings.simplefilter("ignore")
                 r = stats.wilcoxon(z, alternative="two-sided")
             row["W"], row["p_wilcoxon"] = float(r.statistic), float(r.pvalue)
         rows.append(row)
-    out = pd.DataFrame(rows)
+    out = pd.DataFrame(rows).sort_values(["performance", "series", "N", "_rank", "boundary"], kind="mergesort")
+    out = out.reset_index(drop=True)
     out["q_bh"] = np.nan
     for _, idx in out.groupby(["performance", "series", "N"], sort=True).groups.items():
         p = out.loc[idx, "p_wilcoxon"].to_numpy(dtype=np.float64)

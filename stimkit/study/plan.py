@@ -43,9 +43,11 @@ class HashCache:
 
     def __init__(self, known: dict | None = None):
         self.known: dict[str, list] = dict(known or {})
+        self.used: set[str] = set()
 
     def __call__(self, path: Path) -> str:
         p = os.path.abspath(path)
+        self.used.add(p)
         st = os.stat(p)
         hit = self.known.get(p)
         if hit and hit[0] == st.st_size and hit[1] == st.st_mtime_ns:

@@ -75,10 +75,10 @@ def participant_figure(pid: str, tests: pd.DataFrame, summary: pd.DataFrame):
         cap = f"ses-{ses}, {series}, N = {n_min}"
         s = summary[(summary["participant"] == pid) & (summary["session"] == ses) & (summary["series"] == series)
                     & (summary["N"] == n_min)] if len(summary) else summary
-        if len(s):
-            r = s.iloc[0]
-            cap += (f": share of significant boundaries {_num(r.get('s_obs'))} (chance 95th percentile "
-                    f"{_num(r.get('null_q95', r.get('q95')))}), p_share {_num(r.get('p_share'))}")
+        if len(s) and "p_share" in s.columns:
+            fams = [f"{r.trial_type} {_num(r.s_obs)} vs {_num(r.null_q95)} (p {_num(r.p_share)})"
+                    for r in s.itertuples(index=False) if math.isfinite(float(r.p_share))]
+            cap += ": share significant vs chance 95th percentile: " + "; ".join(fams)
         ax.set_title(cap, fontsize=8, loc="left")
         ax.set_ylabel("after - before", fontsize=7)
         ax.tick_params(labelsize=7)

@@ -25,7 +25,6 @@ from __future__ import annotations
 import concurrent.futures as cf
 import multiprocessing
 import os
-import time
 from contextlib import contextmanager
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -140,7 +139,7 @@ def run_study(study, *, scheduler: str | None = None, workers: int | None = None
     progress = progress or (lambda task, fraction: None)
     hashes = HashCache(state.load_hashes(out_root, study.root))
     plan = plan_study(study, hashes=hashes)
-    state.save_hashes(out_root, study.root, hashes.known)
+    state.save_hashes(out_root, study.root, {k: v for k, v in hashes.known.items() if k in hashes.used})
     study_file = study.show(study.source) if study.source is not None else None
 
     outcomes: dict[str, SessionOutcome] = {}

@@ -305,8 +305,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
         lap(None)  # restart the watch: the analysis timed its own steps
     timings.update(analysis.timings_s)
     warnings: list[str] = list(analysis.score_warnings) + sync_warnings + list(analysis.warnings)
-    scores, spans, aligned, feats, changes = (analysis.scores, analysis.spans, analysis.aligned,
-                                              analysis.features, analysis.changes)
+    spans, aligned, feats, changes = analysis.spans, analysis.aligned, analysis.features, analysis.changes
     frame = feats.frame
 
     # events
