@@ -164,8 +164,13 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         piece_table = report_pieces
     if changes is not None and len(changes):
         stats_tables["feature change points (recording time)"] = changes
+    base_dir = Path(session.source).parent if session.source is not None else Path.cwd()
+
+    def portable(path):
+        return None if path is None else provenance.portable_path(path, base_dir)
+
     summary = {
-        "recording file": str(session.recording),
+        "recording file": portable(session.recording),
         "duration (s)": round(duration_s, 3),
         "pieces": len(pieces_out),
         "boundaries placed": int(sum(p.n_boundaries for p in pieces_out)),
@@ -178,19 +183,19 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     lap("report")
 
     settings = {
-        "recording": str(session.recording),
-        "pieces": [{"name": p.name, "score": str(p.score), "start_s": p.start_s, "anchors": p.anchors}
+        "recording": portable(session.recording),
+        "pieces": [{"name": p.name, "score": portable(p.score), "start_s": p.start_s, "anchors": p.anchors}
                    for p in session.pieces],
         "sync": {"mode": session.sync.mode, "kind": session.sync.kind, "frequency_hz": session.sync.frequency_hz,
                  "duration_s": session.sync.duration_s, "recorder_s": session.sync.recorder_s,
-                 "recorder_file": None if session.sync.recorder_file is None else str(session.sync.recorder_file),
+                 "recorder_file": portable(session.sync.recorder_file),
                  "recorder_column": session.sync.recorder_column, "offset_s": session.sync.offset_s,
                  "search_start_s": session.sync.search_start_s, "search_end_s": session.sync.search_end_s},
         "bids": dict(session.bids),
         "feature_rate_hz": session.rate_hz,
         "expand_repeats": session.expand_repeats,
         "force": session.force,
-        "output": str(session.out_dir),
+        "output": ".",
         **d.settings,
         "sync_detection": _defaults(detect_sync_marks, ("min_score", "min_jump_db", "min_level_db",
                                                         "min_gap_s", "block_s")),
@@ -223,8 +228,9 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                                 warnings=warnings, sync=clock.to_dict() if clock.method != "none" else None)
         lap("write")
         prov = provenance.build_provenance(
-            command=list(command) if command else ["stimkit", "annotate",
-                                                   str(session.source or session.recording)],
-            inputs=inputs, settings=settings, warnings=warnings, timings=timings)
+            command=provenance.portable_command(
+                list(command) if command else ["stimkit", "annotate", str(session.source or session.recording)],
+                base_dir=base_dir, out_dir=out_dir),
+            inputs=inputs, settings=settings, warnings=warnings, timings=timings, base_dir=base_dir)
         written.append(provenance.write_provenance(outs, prov, with_timings=True))
     return [Path(w) for w in written]

@@ -182,6 +182,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         now = time.perf_counter()
         timings[name] = timings.get(name, 0.0) + now - clock0
         clock0 = now
+        if progress is not None:  # a stage finished: lets a piped CLI print one line per stage
+            progress(name, 1.0)
 
     out_dir = check_output_dir(session.out_dir)
     info = audio_info(session.recording)
@@ -297,8 +299,10 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
     c = result.clock
     if c.method == "marks":
+        res = ("residuals zero by construction (two marks fix offset and drift exactly)"
+               if c.recording_s.size == 2 else f"largest residual {c.max_residual_s * 1000:.2f} ms")
         lines.append(f"clock: {c.recording_s.size} sync marks, offset {c.offset_s:.4f} s, drift "
-                     f"{c.drift_ppm:+.2f} ppm, largest residual {c.max_residual_s * 1000:.2f} ms")
+                     f"{c.drift_ppm:+.2f} ppm, {res}")
     elif c.method == "offset":
         lines.append(f"clock: stated offset {c.offset_s:.4f} s, no drift")
     else:
