@@ -37,7 +37,8 @@ def _interactive() -> bool:
 
 
 class _StageLines:
-    """Progress for pipes, notebooks and logs: one line on stderr per stage as it finishes.
+    """Progress for pipes, notebooks and logs: one line on stdout per stage as it finishes
+    (stderr stays for the one-line error).
 
     A stage is one run of a ``progress(task, fraction)`` task up to ``fraction == 1``; a task
     that starts again (its fraction falls) is a new stage and gets its own line."""
@@ -55,7 +56,7 @@ class _StageLines:
         self._last[task] = fraction
         if fraction >= 1.0 and (before is None or before < 1.0):
             print(f"stimkit: {task} done ({self._clock() - self._t0:.1f} s)",
-                  file=self._stream or sys.stderr, flush=True)
+                  file=self._stream or sys.stdout, flush=True)
 
 
 def _with_progress(fn, *args, **kwargs):

@@ -54,7 +54,7 @@ def test_piped_progress_prints_one_line_per_finished_stage(capsys, monkeypatch):
         return "ok"
 
     assert cli._with_progress(work) == "ok"
-    lines = capsys.readouterr().err.strip().splitlines()
+    lines = capsys.readouterr().out.strip().splitlines()
     # a task reported again at 1.0 is the same stage; a task that starts again is a new one
     assert [ln.split(" done")[0] for ln in lines] == [
         "stimkit: scores", "stimkit: features", "stimkit: audio features", "stimkit: audio features"]
