@@ -46,7 +46,8 @@ DEFAULT_FEATURE_RATE_HZ = 10.0
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
-_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "bids", "sync", "piece"}
+_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "check_audio",
+             "bids", "sync", "piece"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
@@ -108,6 +109,7 @@ class Session:
     out_dir: Path = Path("annotated")
     expand_repeats: bool = True
     force: bool = False
+    check_audio: bool = True   # write check-by-ear.flac beside the report
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
 
@@ -240,7 +242,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
         bad("'output' must be a folder name in quotes", key="output")
         output = "annotated"
     flags = {}
-    for k, default in (("expand_repeats", True), ("force", False)):
+    for k, default in (("expand_repeats", True), ("force", False), ("check_audio", True)):
         v = data.get(k, default)
         if not isinstance(v, bool):
             bad(f"'{k}' must be true or false", key=k)
@@ -417,6 +419,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
     out = Path(out_dir) if out_dir is not None else rel(output)
     return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
                    out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
+                   check_audio=flags["check_audio"],
                    source=source, repeats=repeats)
 
 
@@ -488,6 +491,10 @@ repeats = "auto"
 
 # Keep an alignment that looks like the wrong piece instead of stopping (use with care).
 force = false
+
+# Write check-by-ear.flac beside the report: the recording with clicks at the placed bars and
+# boundaries, to verify the alignment by listening (about 1.2 MB per minute of recording).
+check_audio = true
 
 # BIDS naming of the outputs: sub-<subject>_ses-<session>_task-<task>_run-<run>_events.tsv.
 # All optional; letters and digits only.

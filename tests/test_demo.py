@@ -244,9 +244,10 @@ def test_outputs_name_no_machine_folder(runs):
 
 def test_report_is_self_contained(out):
     html = (out / "report.html").read_text()
-    assert "data:image/png;base64," in html
-    assert "http://" not in html and "https://" not in html
+    assert html.count("<svg") == 3                     # the overview and one panel per piece
+    assert "http://" not in html and "https://" not in html and "<script src" not in html
     assert (out / "report.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
+    assert (out / "check-by-ear.flac").read_bytes()[:4] == b"fLaC"          # FLAC stream marker
 
 
 def test_demo_prints_a_summary(runs, truth):
