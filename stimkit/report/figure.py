@@ -656,8 +656,9 @@ def _piece(piece, start, end, features, units, events, beats, regions, time_colu
     sys_h = [rail_h + row_h * n for n in n_rows]
     top_in, bottom_in = (0.45 if title else 0.15), 0.35
     gaps = 0.42
-    heights = [lane_h] * len(lanes) + sys_h
-    total = sum(heights) + gaps * (len(heights) - 1) + top_in + bottom_in + (0.25 if lanes else 0)
+    spacer = [0.3] if lanes else []          # room between the lanes' clock and the first system
+    heights = [lane_h] * len(lanes) + spacer + sys_h
+    total = sum(heights) + gaps * (len(heights) - 1) + top_in + bottom_in
     fig = Figure(figsize=(width_in, total), dpi=_DPI)
     FigureCanvasAgg(fig)
     gs = fig.add_gridspec(len(heights), 1, height_ratios=heights,
@@ -689,13 +690,11 @@ def _piece(piece, start, end, features, units, events, beats, regions, time_colu
             top.xaxis.set_major_locator(FixedLocator(bt))
             top.xaxis.set_major_formatter(FuncFormatter(lambda v, p, _l=bl: _l[p] if p is not None and p < len(_l) else ""))
             top.tick_params(labelsize=6, length=2, colors=pal.MUTED)
-    if lane_axes:
-        lane_axes[-1].set_xlabel(f"{clock_label} (m:ss)", labelpad=1)
 
     for s in range(n_sys):
         a = start + s * sys_len
         b = a + sys_len
-        ax = fig.add_subplot(gs[len(lanes) + s, 0])
+        ax = fig.add_subplot(gs[len(lanes) + len(spacer) + s, 0])
         ax.set_xlim(a - pad, b + pad)
         ax.set_ylim(0, rail_h / row_h + n_rows[s] + 0.2)
         ax.set_yticks([])
@@ -725,8 +724,8 @@ def _piece(piece, start, end, features, units, events, beats, regions, time_colu
             top.xaxis.set_major_formatter(FuncFormatter(lambda v, p, _l=bl2: _l[p] if p is not None and p < len(_l) else ""))
             top.tick_params(labelsize=6, length=0, pad=1, colors=pal.MUTED)
         if s == 0:
-            ax.set_title(f"every boundary, {n_sys} system{'s' if n_sys != 1 else ''} of {clock_text(sys_len)}; "
-                         "bar numbers on top (\u2032 = repeated pass)", loc="left", fontsize=6.5,
+            ax.set_title(f"every boundary, {n_sys} system{'s' if n_sys != 1 else ''} of {clock_text(sys_len)} "
+                         f"({clock_label}, m:ss); bar numbers on top (\u2032 = repeated pass)", loc="left", fontsize=6.5,
                          color=pal.MUTED, pad=12 if bt.size else 2)
         for i in np.flatnonzero(sys_of == s):
             row = marks.iloc[i]
