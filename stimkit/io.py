@@ -92,6 +92,18 @@ def _typed(df: pd.DataFrame) -> pd.DataFrame:
     return df
 
 
+def _read_headed(path, what: str) -> pd.DataFrame:
+    """A headed hand-off table (events, beats), typed, with its sidecar (if any) in ``attrs``."""
+    tsv, side = _pair(path, ".tsv")
+    df = _typed(_read_tsv(tsv, dtype=str))
+    if "onset" not in df.columns:
+        raise InputError(f"not {what}: no 'onset' column", path=tsv)
+    sc = _sidecar(side, required=False)
+    df.attrs["sidecar"] = sc
+    df.attrs["units"] = _units(sc, df.columns)
+    return df
+
+
 def read_events(path) -> pd.DataFrame:
     """The event table of a run (``<base>_events.tsv``), typed, with its sidecar in ``attrs``.
 
@@ -100,14 +112,7 @@ def read_events(path) -> pd.DataFrame:
     >>> ev = read_events("out/sub-01_task-music_events.tsv")          # doctest: +SKIP
     >>> ev[ev.trial_type == "dynamic"][["onset", "label", "measure"]]  # doctest: +SKIP
     """
-    tsv, side = _pair(path, ".tsv")
-    df = _typed(_read_tsv(tsv, dtype=str))
-    if "onset" not in df.columns:
-        raise InputError("not an events table: no 'onset' column", path=tsv)
-    sc = _sidecar(side, required=False)
-    df.attrs["sidecar"] = sc
-    df.attrs["units"] = _units(sc, df.columns)
-    return df
+    return _read_headed(path, "an events table")
 
 
 def read_stim(path) -> pd.DataFrame:
@@ -147,11 +152,4 @@ def read_stim(path) -> pd.DataFrame:
 def read_beats(path) -> pd.DataFrame:
     """The beat grid (``<base>_beats.tsv``): one row per beat with ``onset``, ``piece``,
     ``measure``, ``pass``, ``beat``, ``is_downbeat`` (boolean), ``score_qn``, ``recording``."""
-    tsv, side = _pair(path, ".tsv")
-    df = _typed(_read_tsv(tsv, dtype=str))
-    if "onset" not in df.columns:
-        raise InputError("not a beat table: no 'onset' column", path=tsv)
-    sc = _sidecar(side, required=False)
-    df.attrs["sidecar"] = sc
-    df.attrs["units"] = _units(sc, df.columns)
-    return df
+    return _read_headed(path, "a beat table")
