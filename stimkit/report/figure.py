@@ -17,17 +17,18 @@ rows with their names on the left:
 5. *tempo* -- the performed tempo (BPM) from the alignment, per piece.
 
 :func:`piece_figure` -- one piece, zoomed to it: small lanes of loudness, tempo, tonal
-tension and onset rate (:data:`LANE_ROLES`) with bar numbers on a second axis, then the piece
+tonality and onset rate (:data:`LANE_ROLES`) with bar numbers on a second axis, then the piece
 written out in *systems* (rows of equal length, like lines of a score) in which every boundary
 is a glyph (colour = family, shape = kind; :mod:`stimkit.report.palette`) with its label; labels
 that would collide are stacked, never dropped. Each system carries the bar numbers on top
 (``′`` marks a bar of a repeated pass) and the clock below.
 
-Tonal tension lane: tonal ambiguity ``1 - key clarity`` when key clarity is there: key clarity
-(the best correlation of the chroma with the Krumhansl-Kessler key profiles) is a slow,
-bounded measure of how firmly a key is established, and its loss is the tonal component of
-published tension models (Lerdahl & Krumhansl 2007; Farbood 2012). Fallbacks: harmonic change
-(Harte, Sandler & Gasser 2006) and sensory roughness (Sethares 1993).
+Tonality lane: key ambiguity ``1 - key strength`` when key strength is there: key strength (the
+best correlation of the chroma with the Krumhansl-Kessler key profiles; Krumhansl 1990) is a
+slow, bounded measure of how firmly a key is established; its loss is related to, but not the
+same as, the tonal component of published tension models (Lerdahl & Krumhansl 2007; Farbood
+2012), so the lane is not called tension. Fallbacks: harmonic change (Harte, Sandler & Gasser
+2006) and sensory roughness (Sethares 1993).
 
 Conventions
 -----------
@@ -77,7 +78,7 @@ __all__ = ["overview_figure", "piece_figure", "figure_png", "figure_svg", "clock
 LANE_ROLES = (
     ("loudness", "loudness", "LUFS"),
     ("tempo", "tempo", "BPM"),
-    ("tension", "tonal tension", ""),
+    ("tonality", "tonality", ""),
     ("onset_rate", "onset rate", "1/s"),
 )
 
@@ -248,8 +249,8 @@ def _lane_series(features, role, override, units, fallback_unit):
     if not np.isfinite(y).any():
         return None
     unit, label = units.get(col, fallback_unit), col
-    if role == "tension" and col == "key_clarity":
-        y, label, unit = 1.0 - y, "1 - key_clarity", ""
+    if role == "tonality" and col == "key_strength":
+        y, label, unit = 1.0 - y, "key ambiguity (1 - key_strength)", ""
     if role == "loudness":
         y = np.where(np.isfinite(y) & (y > -70.0), y, np.nan)  # silence below the -70 gate
     return y, label, unit

@@ -101,3 +101,14 @@ def test_empty_features_still_draw(session):
     assert figure_png(fig).startswith(PNG_SIGNATURE)
     fig = _piece(session, features=None)
     assert figure_png(fig).startswith(PNG_SIGNATURE)
+
+
+def test_piece_lanes_by_role_with_fallback(session):
+    def rights(fig):
+        return [ax.get_title(loc="right") for ax in fig.axes]
+
+    assert "key ambiguity (1 - key_strength)" in rights(_piece(session))
+    f2 = session["features"].drop(columns=["tempo_bpm", "key_strength"])
+    f2["roughness"] = 0.1
+    titles = rights(_piece(session, features=f2))
+    assert "roughness" in titles and "tempo_bpm" not in titles   # absent column: lane skipped; fallback
