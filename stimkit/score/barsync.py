@@ -21,8 +21,9 @@ start of that bar, and the bar's length is decided once for all parts:
 Conventions
 -----------
 Lengths in quarter notes; ``TOL_QN`` = 1/1000 quarter note for equality. Content of a part in a
-bar = the end of its last note or rest (grace notes and full-bar rests do not count; a full-bar
-rest fits any bar length). Warnings list at most ``MAX_LISTED`` bars per part.
+bar = the end of its last note or rest (grace notes and full-bar rests do not count); a bar of
+rests only has no say (it fits any length: music21 even fills an empty bar with a rest as long as
+the time signature, which would turn a pickup into a full bar). Warnings list at most ``MAX_LISTED`` bars per part.
 """
 
 from __future__ import annotations

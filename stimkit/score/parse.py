@@ -454,7 +454,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                     right_barlines.append(len(ev))
                 add("barline", k, i, 0.0, text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
             key_here = False
-            end = 0.0
+            end, sounding = 0.0, False  # a bar of rests only does not decide the bar's length
             stack = [(m, delta)]
             while stack:
                 container, base = stack.pop()
@@ -477,6 +477,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                             dur = GRACE_QN
                         elif not (isinstance(el, note.Rest) and el.fullMeasure is True):
                             end = max(end, off - delta + dur)
+                            sounding = sounding or not isinstance(el, note.Rest)
                         where[id(el)] = (k, i, off, dur)
                         ferm = any(isinstance(x, expressions.Fermata) for x in el.expressions)
                         if isinstance(el, note.Rest):
@@ -542,7 +543,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
             if tr and not key_here and key_cur is not None and tr.changes_at(j):
                 add_key(k, i, 0.0, key_cur, iv)  # same written key, new concert key
             if in_step[k]:
-                content[k, i] = end
+                content[k, i] = end if sounding else 0.0
             elif i == n - 1:
                 tail = max(tail, delta + end)  # bars matched past the reference's last bar
             if key_cur is None and not key_here and j == 0:

@@ -212,3 +212,14 @@ def test_chorale_without_time_signature_and_with_a_truncated_part(chorale_xml, c
     assert any("no time signature" in x for x in m.warnings)
     assert any(x.startswith("Bass has") for x in m.warnings)
     assert np.isfinite(m.nominal_duration_s)
+
+
+def test_pickup_with_one_part_resting_stays_a_pickup(tmp_path):
+    # a one-quarter pickup where the second part's bar is empty (music21 fills an empty bar with a
+    # rest as long as the time signature): the pickup still lasts one quarter
+    a = [measure(0, A44 + quarters(1, "G", 4), implicit=True)] + bars_of(2, note_q=1.0)[0:2]
+    b = [measure(0, A44, implicit=True), measure(1, quarters(4)), measure(2, quarters(4))]
+    m = load_score(write(tmp_path, "pickup.musicxml", score([("A", a), ("B", b)])))
+    assert m.measures["score_qn"].tolist() == [0, 1, 5]
+    assert m.measures["first_beat"].iloc[0] == pytest.approx(4.0)
+    assert not any("shorter" in x or "longer" in x for x in m.warnings)
