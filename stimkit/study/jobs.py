@@ -18,7 +18,7 @@ Conventions
   the parallelism, and results do not depend on how many threads a worker's BLAS would use.
 - Workers on a cluster must see the study's inputs and its output folder at the same paths.
 - Paths written into outputs are relative: inputs to the study file's folder, outputs to the
-  study's output folder.
+  study's output folder (``.`` in a session's provenance).
 """
 
 from __future__ import annotations
@@ -62,25 +62,6 @@ class SessionTask:
     settings: dict                  # [analysis] settings
     seed: int
     state_file: Path
-
-
-def _shower(out_root: Path, study_root: Path, aliases: dict | None = None):
-    """``path -> text`` for outputs: under ``out_root`` relative to it, else relative to the study
-    file's folder; ``aliases`` maps a staging folder to where its files end up."""
-    out_root = Path(os.path.abspath(out_root))
-    study_root = Path(os.path.abspath(study_root))
-    aliases = {Path(os.path.abspath(k)): Path(os.path.abspath(v)) for k, v in (aliases or {}).items()}
-
-    def show(path) -> str:
-        p = Path(os.path.abspath(path))
-        for k, v in aliases.items():
-            if p == k or k in p.parents:
-                p = v / p.relative_to(k)
-        if p == out_root or out_root in p.parents:
-            return p.relative_to(out_root).as_posix() or "."
-        return Path(os.path.relpath(p, study_root)).as_posix()
-
-    return show
 
 
 def _failed(exc: BaseException, t0: float) -> dict:
@@ -135,17 +116,19 @@ def _session(task: SessionTask) -> dict:
     raw = raw_dir(out_root, s)
     staging = state.staging_dir(out_root, task.base)
     shutil.rmtree(staging, ignore_errors=True)
-    show = _shower(out_root, task.study_root, aliases={staging: deriv})
     with open(task.analysis_file, "rb") as fh:
         analysis = pickle.load(fh)
     old_record = state.read_session_record(task.state_file)
     bids = {"subject": s.participant, "session": s.session, "task": s.task}
     if s.run is not None:
         bids["run"] = str(s.run)
-    session = replace(task.performance, sync=s.sync, bids=bids, out_dir=staging, source=s.session_file)
+    # the click track for checking by ear is left out: it would be the same recording for every session
+    session = replace(task.performance, sync=s.sync, bids=bids, out_dir=staging, source=s.session_file,
+                      check_audio=False)
     command = ["stimkit", "study", task.study_file or "STUDY.toml"]
     try:
-        result = annotate(session, analysis=analysis, command=command, show_path=show, keep_timings=False)
+        result = annotate(session, analysis=analysis, command=command, paths_relative_to=task.study_root,
+                          keep_timings=False)
         warnings = list(result.warnings)
         # every file of the session appears together, or none does
         with OutputSet(out_root) as outs:
@@ -159,7 +142,7 @@ def _session(task: SessionTask) -> dict:
                 if f.name.endswith(RAW_SUFFIXES):
                     outs.write_bytes(f"{r_rel}/{f.name}", data)
             if s.physio:
-                warnings.extend(_physio(task, result, outs, d_rel, show))
+                warnings.extend(_physio(task, result, outs, d_rel))
             for src, name in physio_raw_files(s):
                 outs.write_bytes(f"{r_rel}/{name}", Path(src).read_bytes())
         written = list(outs.committed)
@@ -172,9 +155,9 @@ def _session(task: SessionTask) -> dict:
             "clock": result.clock.method, "pieces": len(result.pieces)}
 
 
-def _physio(task: SessionTask, result, outs, d_rel: str, show) -> list[str]:
+def _physio(task: SessionTask, result, outs, d_rel: str) -> list[str]:
     """The per-participant analysis of each physiological file of the session, staged into
     ``outs`` under ``d_rel`` (see :mod:`stimkit.study.physio_bridge`); returns notes for people."""
     from .physio_bridge import analyse_session_physio
 
-    return analyse_session_physio(task, result, outs, d_rel, show)
+    return analyse_session_physio(task, result, outs, d_rel)

@@ -41,7 +41,7 @@ def relate_settings(analysis: dict):
                           n_surrogates=int(analysis["surrogates"]), alpha=float(analysis["alpha"]), n_jobs=1)
 
 
-def analyse_session_physio(task, result, outs, d_rel: str, show) -> list[str]:
+def analyse_session_physio(task, result, outs, d_rel: str) -> list[str]:
     """Stage the physiology outputs of every physiological file of ``task``'s session; return notes."""
     from ..physio import read_physio, relate
     from ..physio.inputs import read_events

@@ -118,14 +118,17 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
     return fit, got, warnings + list(fit.warnings)
 
 
-def _stopwatch(timings: dict):
-    """``lap(name)``: add the seconds since the previous lap to ``timings[name]`` (``None``: skip)."""
+def _stopwatch(timings: dict, progress=None):
+    """``lap(name)``: add the seconds since the previous lap to ``timings[name]`` (``None``: skip)
+    and tell ``progress(name, 1.0)`` that the stage finished (a piped CLI prints one line each)."""
     last = [time.perf_counter()]
 
     def lap(name):
         now = time.perf_counter()
         if name is not None:
             timings[name] = timings.get(name, 0.0) + now - last[0]
+            if progress is not None:
+                progress(name, 1.0)
         last[0] = now
 
     return lap
@@ -141,10 +144,11 @@ def _confidence_fn(result):
     return lambda q: confidence_at(result, np.asarray(q, dtype=np.float64))
 
 
-def _regions(result) -> list[tuple[float, float]]:
-    """Low-confidence regions of an alignment as ``(start, end)`` recording seconds: its flagged
-    regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
-    out = [(float(r["start"]), float(r["end"])) for r in result.regions]
+def _regions(result) -> list[tuple[float, float, str]]:
+    """Low-confidence regions of an alignment as ``(start, end, reason)`` recording seconds: its
+    flagged regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
+    out = [(float(r["start"]), float(r["end"]), str(r.get("reason") or r.get("kind") or ""))
+           for r in result.regions]
     loc = result.local
     if len(loc):
         q = loc["score_qn"].to_numpy(dtype=np.float64)
@@ -152,8 +156,8 @@ def _regions(result) -> list[tuple[float, float]]:
         edges = np.diff(np.r_[0, low.astype(int), 0])
         for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
             r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
-            out.append((float(r[0]), float(max(r[1], r[0] + 0.1))))
-    out = [(s, e) for s, e in out if math.isfinite(s) and math.isfinite(e) and e > s]
+            out.append((float(r[0]), float(max(r[1], r[0] + 0.1)), "low local confidence"))
+    out = [(s, e, why) for s, e, why in out if math.isfinite(s) and math.isfinite(e) and e > s]
     return sorted(out)
 
 
@@ -215,7 +219,7 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
     from ..score.parse import load_score
 
     timings: dict[str, float] = {}
-    lap = _stopwatch(timings)
+    lap = _stopwatch(timings, progress)
 
     info = audio_info(session.recording)
     duration_s = info.duration_s
@@ -271,14 +275,15 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
 
 
 def annotate(session, *, progress=None, command: list[str] | None = None,
-             analysis: RecordingAnalysis | None = None, show_path=str,
+             analysis: RecordingAnalysis | None = None, paths_relative_to=None,
              keep_timings: bool = True) -> AnnotateResult:
     """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
 
     ``analysis``, when given, is :func:`analyse_recording`'s result for this session's recording
     and pieces (computed once for several sessions that share the recording); the chain then
-    only fits the clock and writes the hand-off. ``show_path(path) -> str`` is how paths are
-    written into ``provenance.json`` and the report (default: as given); ``keep_timings=False``
+    only fits the clock and writes the hand-off. ``paths_relative_to`` is the folder the paths in
+    ``provenance.json`` and the report are written relative to (default: the session file's
+    folder, else the current folder); ``keep_timings=False``
     leaves the step timings out of ``provenance.json``, so reruns give identical bytes.
 
     Raises
@@ -294,7 +299,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
 
     out_dir = check_output_dir(session.out_dir)
     timings: dict[str, float] = {}
-    lap = _stopwatch(timings)
+    lap = _stopwatch(timings, progress)
 
     # the clock first: a sync problem is found before the long steps
     duration_s = audio_info(session.recording).duration_s if analysis is None else analysis.duration_s
@@ -312,7 +317,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
     tables = []
     beats = []
     pieces_out: list[PieceResult] = []
-    low_conf: list[tuple[float, float]] = []
+    low_conf: list[tuple[float, float, str]] = []
     for p, sp, res in zip(session.pieces, spans, aligned):
         sc = res.score       # the score in the order performed (repeats as decided)
         to_rec = _timemap_call(res.timemap)
@@ -356,7 +361,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
         spans=spans, low_confidence=low_conf, changes=changes, warnings=warnings, timings=timings,
         settings={"span_pad_s": SPAN_PAD_S, "piece_search_max_ratio": MAX_RATIO,
                   "low_confidence_below": LOW_CONFIDENCE},
-        show_path=show_path, keep_timings=keep_timings),
+        base_dir=paths_relative_to, keep_timings=keep_timings),
         command=command, lap=lap)
     base = output_base(session)
     return AnnotateResult(out_dir=out_dir, base=base, written=[Path(w) for w in written], pieces=pieces_out,
@@ -395,8 +400,10 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
     c = result.clock
     if c.method == "marks":
+        res = ("residuals zero by construction (two marks fix offset and drift exactly)"
+               if c.recording_s.size == 2 else f"largest residual {c.max_residual_s * 1000:.2f} ms")
         lines.append(f"clock: {c.recording_s.size} sync marks, offset {c.offset_s:.4f} s, drift "
-                     f"{c.drift_ppm:+.2f} ppm, largest residual {c.max_residual_s * 1000:.2f} ms")
+                     f"{c.drift_ppm:+.2f} ppm, {res}")
     elif c.method == "offset":
         lines.append(f"clock: stated offset {c.offset_s:.4f} s, no drift")
     else:
