@@ -240,3 +240,24 @@ def test_demo_prints_a_summary(runs, truth):
     text = SAID["demo"]
     assert f"{len(truth['pieces'])} piece(s) found" in text  # the renderer's count of pieces and "drift" in text and "boundaries placed" in text
     assert "report.html" in text and "out" in text
+
+
+def test_demo_participant_planted_responses_found(out):
+    # the invented participant of stimkit/demo/participant.py: steps planted at three section
+    # boundaries (and after three loudness changes); the calibrated test flags exactly the planted
+    # section boundaries, and the change points coincide with loudness changes beyond the IAAFT null
+    from stimkit.demo.participant import PLANTED, loudness_feature
+
+    phys = out / "physio"
+    bt = pd.read_csv(phys / "boundary_tests.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
+    sec = bt[(bt.trial_type == "section") & (bt.N == 20) & (bt.status == "ok")]
+    planted = [t for t, what, _ in PLANTED if what == "section"]
+    hit = sec.onset.map(lambda t: any(abs(t - p) < 0.5 for p in planted))
+    assert hit.sum() == 3 and sec.loc[hit, "significant"].all()
+    assert not sec.loc[~hit, "significant"].any() and (~hit).sum() >= 1
+    cs = pd.read_csv(phys / "coincidence_summary.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
+    name = loudness_feature(cs.feature_set)  # read from the outputs, not a fixed column name
+    loud = cs[(cs.feature_set == name) & (cs.reference == "physio") & (cs.null_method == "iaaft")]
+    assert loud.p_global.iloc[0] < 0.05
+    page = (out / "report.html").read_text()
+    assert "Physiology and music" in page and "not a clinical tool" in page

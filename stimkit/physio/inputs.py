@@ -27,7 +27,7 @@ import pandas as pd
 from ..errors import InputError
 
 __all__ = ["PhysioSpec", "RelateRun", "read_events", "read_stim", "find_handoff", "relate_files",
-           "participant_label", "read_series"]
+           "participant_label", "read_series", "settings_from_options"]
 
 
 @dataclass
@@ -120,6 +120,31 @@ def find_handoff(folder) -> tuple[Path, Path | None]:
     return ev[0], stim if stim.is_file() else None
 
 
+def settings_from_options(opts: dict, base=None):
+    """RelateSettings from a session file's ``[relate]`` table (``surrogates``,
+    ``pseudo_boundaries``, ``window_beats``, ``window_s``, ``guard_s``, ``jobs``; ``seed`` is
+    passed separately)."""
+    from dataclasses import replace
+
+    from .relate import RelateSettings
+
+    s = base or RelateSettings()
+    kw = {}
+    if "surrogates" in opts:
+        kw.update(n_surrogates=int(opts["surrogates"]), n_share_null=int(opts["surrogates"]))
+    if "pseudo_boundaries" in opts:
+        kw["n_pseudo"] = int(opts["pseudo_boundaries"])
+    if "window_beats" in opts:
+        kw["window_beats"] = tuple(int(v) for v in opts["window_beats"])
+    if "window_s" in opts:
+        kw["window_s"] = tuple(float(v) for v in opts["window_s"])
+    if "guard_s" in opts:
+        kw["guard_s"] = float(opts["guard_s"])
+    if "jobs" in opts:
+        kw["n_jobs"] = int(opts["jobs"])
+    return replace(s, **kw)
+
+
 def read_series(spec: PhysioSpec):
     """Read one spec into a BeatSeries (offset applied)."""
     from .read import read_physio
@@ -151,7 +176,6 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
     if len(set(keys)) != len(keys):
         raise InputError("two physiological files have the same participant and series; give each its "
                          "own participant label")
-    out_dir = check_output_dir(out_dir)
     kids = root_seed(seed).spawn(len(specs))
     results, warnings = [], []
     for spec, label, s, kid in zip(specs, labels, series, kids):
@@ -167,6 +191,7 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
         side = Path(spec.file).with_name(Path(spec.file).name.replace(".tsv.gz", ".json"))
         if side != Path(spec.file) and side.is_file():
             inputs[f"physio_sidecar:{label}:{side.name}"] = side
+    out_dir = check_output_dir(out_dir)  # only now: a refused input leaves no folder behind
     with OutputSet(out_dir) as outs:
-        written = write_relate(outs, results, inputs=inputs, out_dir=out_dir, command=command)
+        written = write_relate(outs, results, inputs=inputs, command=command)
     return RelateRun(results=results, written=[Path(w) for w in written], warnings=warnings, out_dir=out_dir)

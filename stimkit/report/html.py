@@ -198,8 +198,10 @@ def report_html(
     sync: dict | None,
     max_rows_per_kind: int = 25,
     max_stat_rows: int = 200,
+    sections: list[str] | None = None,
 ) -> str:
-    """The report page as text (see :func:`write_report`)."""
+    """The report page as text (see :func:`write_report`); ``sections`` are ready HTML
+    fragments (each opening with an ``<h2>``) placed after the statistics."""
     from .. import __version__
 
     img = base64.b64encode(figure_png).decode("ascii")
@@ -223,6 +225,7 @@ def report_html(
             body.append(_block(v, max_rows=max_stat_rows))
     else:
         body.append("<p>none</p>")
+    body += list(sections or [])
     body += ["<h2>Events</h2>", _events_section(events, max_rows_per_kind=max_rows_per_kind),
              "<h2>Warnings</h2>"]
     if warnings:
@@ -246,6 +249,7 @@ def write_report(
     stats: dict | None,
     warnings: list[str],
     sync: dict | None,
+    sections: list[str] | None = None,
     name: str = "report",
     max_rows_per_kind: int = 25,
 ) -> list[Path]:
@@ -282,7 +286,7 @@ def write_report(
     """
     page = report_html(title=title, figure_png=figure_png, summary=summary, pieces=pieces,
                        events=events, stats=stats, warnings=warnings, sync=sync,
-                       max_rows_per_kind=max_rows_per_kind)
+                       max_rows_per_kind=max_rows_per_kind, sections=sections)
     p1 = outs.write_bytes(f"{name}.png", figure_png)
     p2 = outs.write_text(f"{name}.html", page)
     return [p1, p2]
