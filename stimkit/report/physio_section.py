@@ -100,7 +100,7 @@ def physio_section_html(results, *, figures: dict | None = None) -> str:
                                  "chance 5-95 %", "p_share"], rows))
             if bt is not None and len(bt):
                 sig = bt[bt["significant"].map(lambda v: v is True)]
-                rows = [[_n(x.onset, "{:.3f}"), _e(x.trial_type), _e(x.label), _e(x.measure), f"{x.N:g}",
+                rows = [[_n(x.onset, "{:.3f}"), _e(x.trial_type), _e(x.label), _n(x.measure, "{:.0f}"), f"{x.N:g}",
                          _n(x.delta, "{:.1f}"), f"{_n(x.ci_low, '{:.1f}')} to {_n(x.ci_high, '{:.1f}')}",
                          _n(x.p_cal), _n(x.q_bh), _e(x.direction)] for x in sig.itertuples(index=False)]
                 parts.append("<p>Significant boundaries:</p>")
