@@ -7,7 +7,9 @@ number of surrogates. Printed beside it, measured in the same run:
 - the naive detector, ``ruptures.Pelt(model="l2", jump=1)``, on a few surrogates, extrapolated
   to 1000 (the cost the KernelCPD choice avoids);
 - peak resident memory of the whole relate() run at 200 and at 1000 surrogates (flat: the
-  surrogates are generated, re-detected and reduced to their change-point times chunk by chunk).
+  surrogates are generated, re-detected and reduced to their change-point times chunk by chunk);
+- the calibration of analysis B's global test on 100 null series (level steps at random times,
+  music change points at other random times): p_global < 0.05 in about 5 % of them.
 
 Run by hand: ``.venv/bin/python bench/bench_relate.py`` (never from pytest). The machine may be
 shared: repeat a run before you trust a figure; CPU time is printed as well as wall time.
@@ -64,6 +66,43 @@ def peak_rss_mb(n_surrogates: int) -> float:
     return v
 
 
+def null_calibration(runs: int = 100, r: int = 99) -> None:
+    """Analysis B under the null: series with level steps at random times, music trains at other
+    random times; the share of p_global < 0.05 must lie in the binomial 99 % band around 0.05."""
+    from scipy import stats
+
+    from stimkit.physio import BeatSeries, RelateSettings, relate
+
+    rng = np.random.default_rng(42)
+    rej, tested = 0, 0
+    w0 = time.perf_counter()
+    for _ in range(runs):
+        steps = np.sort(rng.uniform(40, 560, 8))
+        t, rr, now, e = [], [], 0.0, 0.0
+        while now < 610.0:
+            e = 0.5 * e + rng.normal(0, 25 * np.sqrt(0.75))
+            x = 800 + 70 * (np.searchsorted(steps, now) % 2) + e
+            now += x / 1000
+            t.append(now)
+            rr.append(x)
+        ev = [dict(onset=5.0, duration=600.0, trial_type="piece", label="p", piece="p", confidence=np.nan)]
+        ev += [dict(onset=float(c), duration=0.0, trial_type="feature_change", label="short_term_lufs",
+                    piece=np.nan, confidence=np.nan) for c in np.sort(rng.uniform(10, 600, 12))]
+        s = BeatSeries(t=np.asarray(t), x=np.asarray(rr), valid=np.ones(len(t), bool), kind="rr", source="null")
+        res = relate(pd.DataFrame(ev), None, s, settings=replace(RelateSettings(), analyses=("coincidence",),
+                                                                  n_surrogates=r, null_methods=("iaaft",)),
+                     seed=int(rng.integers(1 << 31)))
+        cs = res.tables["coincidence_summary"]
+        row = cs[(cs.reference == "physio") & (cs.null_method == "iaaft")]
+        if len(row):
+            tested += 1
+            rej += bool(row.p_global.iloc[0] < 0.05)
+    lo, hi = stats.binom.interval(0.99, tested, 0.05)
+    print(f"analysis B under the null: {rej} of {tested} series with p_global < 0.05 ({rej / max(tested, 1):.3f}; "
+          f"binomial 99 % band {lo / tested:.3f}-{hi / tested:.3f}: {'inside' if lo <= rej <= hi else 'OUTSIDE'}); "
+          f"{time.perf_counter() - w0:.0f} s")
+
+
 def main() -> int:
     import ruptures as rpt
 
@@ -112,6 +151,7 @@ def main() -> int:
     print(f"naive ruptures.Pelt(l2, jump=1): {naive:.2f} s wall per surrogate -> ~{naive * R / 60:.0f} min for {R} "
           f"on 1 process; KernelCPD path {per * 1000:.0f} ms CPU per surrogate incl. IAAFT (~{naive / per:.0f}x)")
 
+    null_calibration()
     m200, m1000 = peak_rss_mb(200), peak_rss_mb(1000)
     print(f"peak RSS of relate (coincidence only): {m200:.0f} MB at 200 surrogates, {m1000:.0f} MB at 1000 "
           f"({'flat' if m1000 <= 1.15 * m200 else 'GROWS'})")
