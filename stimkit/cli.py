@@ -208,6 +208,9 @@ def relate(
     music_source: str = typer.Option("events", "--music-changes", help="events (feature_change rows) or detect "
                                      "(from the continuous features)."),
     max_radius_s: float = typer.Option(10.0, "--max-radius-s", help="Largest coincidence radius h (grid of 0.5 s)."),
+    music_leads: bool = typer.Option(False, "--music-leads", help="Count a coincidence only when the physiological "
+                                     "change follows the music change (by --lag-s to --lag-s + h)."),
+    lag_s: float = typer.Option(0.0, "--lag-s", help="Physiological latency for --music-leads (s)."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
     jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
 ):
@@ -232,7 +235,8 @@ def relate(
     settings = replace(RelateSettings(), window_beats=_numbers(window_beats, "--window-beats", int),
                        window_s=_numbers(window_s, "--window-s"), guard_s=guard_s, n_pseudo=pseudo_boundaries,
                        n_share_null=surrogates, n_surrogates=surrogates, music_source=music_source,
-                       h_grid_s=h, n_jobs=jobs)
+                       h_grid_s=h, n_jobs=jobs, coincidence_window="music_leads" if music_leads else "symmetric",
+                       lag_s=lag_s)
     if music_source not in ("events", "detect"):
         raise InputError("--music-changes must be events or detect")
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,

@@ -81,7 +81,6 @@ class RelateSettings:
     iaaft_tol: float = 1e-6
     min_cp_physio: int = 5
     min_cp_music: int = 3
-    crop_margin_s: float = 30.0
     n_jobs: int = 1
 
     def to_dict(self) -> dict:
