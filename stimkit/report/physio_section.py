@@ -12,7 +12,8 @@ counts, the h ranges above the null's 95th percentile and the global p), with th
 Conventions
 -----------
 Self-contained like the page it goes into: figures are embedded as ``data:`` URIs, every text
-from the data is escaped, numbers in a fixed format. The fragment starts with an ``<h2>``.
+from the data is escaped, numbers in a fixed format. The page adds the heading
+(:data:`SECTION_HEADING`) through its ``extra_sections`` hook.
 """
 
 from __future__ import annotations
@@ -21,7 +22,10 @@ import base64
 import html
 import math
 
-__all__ = ["physio_section_html", "CAUTION_TEXT"]
+__all__ = ["physio_section_html", "CAUTION_TEXT", "SECTION_HEADING"]
+
+#: The section's heading (the page adds the ``<h2>``).
+SECTION_HEADING = "Physiology and music"
 
 CAUTION_TEXT = (
     "Research statistics, not a clinical tool: these numbers describe one recording and carry no "
@@ -68,8 +72,7 @@ def physio_section_html(results, *, figures: dict | None = None) -> str:
     """The section (module notes) for a list of RelateResult; ``figures`` maps
     ``(participant, series)`` to ``{"forest": png, "coincidence": png}``."""
     figures = figures or {}
-    parts = ["<h2>Physiology and music</h2>",
-             f'<p class="lead"><strong>Caution.</strong> {_e(CAUTION_TEXT)}</p>']
+    parts = [f'<p class="caution"><strong>Caution.</strong> {_e(CAUTION_TEXT)}</p>']
     for r in results:
         m = r.meta
         parts.append(f"<h3>Participant {_e(r.participant)}: {_e(r.series_name)} "
