@@ -2,11 +2,10 @@
 
 What it does
 ------------
-- :func:`read_events` -- the ``_events.tsv`` (``n/a`` missing), checked for ``onset``,
-  ``duration``, ``trial_type`` and at least one ``piece`` row.
-- :func:`read_stim` -- the continuous ``_stim.tsv.gz`` with its ``_stim.json``: column names
-  from the sidecar's ``Columns`` (never assumed), rows at ``StartTime + k / SamplingFrequency``
-  on the recorder clock (the index, named ``onset``).
+- :func:`read_events` -- the ``_events.tsv`` through :func:`stimkit.io.read_events`, checked
+  for ``onset``, ``duration``, ``trial_type`` and at least one ``piece`` row.
+- :func:`read_stim` -- the continuous ``_stim.tsv.gz`` + ``_stim.json`` through
+  :func:`stimkit.io.read_stim` (column names from the sidecar, index ``onset``).
 - :func:`find_handoff` -- the events and stim files inside an annotate output folder.
 - :func:`relate_files` -- every :class:`PhysioSpec` read and checked first (bad input stops the
   run before any work), then :func:`stimkit.physio.relate.relate` per series with its own child
@@ -15,13 +14,10 @@ What it does
 
 from __future__ import annotations
 
-import json
-import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from ..errors import InputError
@@ -61,14 +57,12 @@ def participant_label(path: Path) -> str:
 
 
 def read_events(path) -> pd.DataFrame:
-    """The annotate event table (see module notes)."""
+    """The annotate event table (:func:`stimkit.io.read_events`), checked for what relate needs:
+    ``onset``, ``duration``, ``trial_type`` and at least one ``piece`` row."""
+    from ..io import read_events as _read
+
     path = Path(path)
-    if not path.is_file():
-        raise InputError("events file not found; give the _events.tsv written by stimkit annotate", path=path)
-    try:
-        ev = pd.read_csv(path, sep="\t", na_values=["n/a"], keep_default_na=False)
-    except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise InputError(f"cannot read the events table ({' '.join(str(exc).split())[:120]})", path=path) from None
+    ev = _read(path)
     for c in ("onset", "duration", "trial_type"):
         if c not in ev.columns:
             raise InputError(f"the events table has no '{c}' column (is it a BIDS _events.tsv?)", path=path)
@@ -79,33 +73,10 @@ def read_events(path) -> pd.DataFrame:
 
 
 def read_stim(path) -> pd.DataFrame:
-    """The continuous features indexed by ``onset`` (see module notes)."""
-    path = Path(path)
-    name = path.name
-    side = path.with_name(name[: -len(".tsv.gz")] + ".json") if name.endswith(".tsv.gz") else path.with_suffix(".json")
-    if not path.is_file():
-        raise InputError("continuous features file not found", path=path)
-    if not side.is_file():
-        raise InputError(f"sidecar {side.name} not found beside the continuous features", path=path)
-    try:
-        meta = json.loads(side.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot read the sidecar as JSON ({exc})", path=side) from None
-    for key in ("SamplingFrequency", "StartTime", "Columns"):
-        if key not in meta:
-            raise InputError(f"sidecar lacks the required key '{key}'", path=side)
-    fs, start, cols = meta["SamplingFrequency"], meta["StartTime"], meta["Columns"]
-    if not isinstance(fs, (int, float)) or not math.isfinite(fs) or fs <= 0:
-        raise InputError("SamplingFrequency must be a positive number", path=side)
-    try:
-        df = pd.read_csv(path, sep="\t", header=None, na_values=["n/a"], keep_default_na=False)
-    except (OSError, ValueError, EOFError, pd.errors.ParserError) as exc:
-        raise InputError(f"cannot read the continuous features ({exc})", path=path) from None
-    if df.shape[1] != len(cols):
-        raise InputError(f"{df.shape[1]} columns but the sidecar lists {len(cols)}", path=path)
-    df.columns = [str(c) for c in cols]
-    df.index = pd.Index(float(start) + np.arange(len(df)) / float(fs), name="onset")
-    return df
+    """The continuous features indexed by ``onset`` (:func:`stimkit.io.read_stim`)."""
+    from ..io import read_stim as _read
+
+    return _read(path)
 
 
 def find_handoff(folder) -> tuple[Path, Path | None]:

@@ -7,7 +7,6 @@ simulated series are AR(1) with planted steps as in test_relate.py.
 import contextlib
 import io
 import json
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
