@@ -123,8 +123,9 @@ def _session(task: SessionTask) -> dict:
     if s.run is not None:
         bids["run"] = str(s.run)
     # the click track for checking by ear is left out: it would be the same recording for every session
+    # (the physiology is analysed below with the study's settings, not by annotate's own step)
     session = replace(task.performance, sync=s.sync, bids=bids, out_dir=staging, source=s.session_file,
-                      check_audio=False)
+                      check_audio=False, physio=[], relate={})
     command = ["stimkit", "study", task.study_file or "STUDY.toml"]
     try:
         result = annotate(session, analysis=analysis, command=command, paths_relative_to=task.study_root,

@@ -56,8 +56,7 @@ def analyse_session_physio(task, result, outs, d_rel: str) -> list[str]:
     notes: list[str] = []
     for p in s.physio:
         label = p.label or p.kind or "series"
-        kw = {"kind": p.kind} if p.kind else {}
-        series = read_physio(p.file, column=p.column, mode=p.mode, **kw)
+        series = read_physio(p.file, kind=p.kind or "rr", column=p.column, mode=p.mode, offset_s=p.offset_s)
         res = relate(events, None, series, settings=settings, seed=session_seed(task.seed, label),
                      participant=s.participant, series_name=label)
         notes.extend(res.warnings)

@@ -45,7 +45,6 @@ _TOP_KEYS = {"name", "output", "task", "seed", "workers", "scheduler", "feature_
 _PERF_KEYS = {"id", "recording", "session_file", "feature_rate_hz", "expand_repeats", "repeats", "force", "piece"}
 _PIECE_KEYS = {"score", "name", "start_s", "anchors", "repeats"}
 _SESSION_KEYS = {"participant", "session", "performance", "session_file", "task", "run", "sync", "physio"}
-_PHYSIO_KEYS = {"file", "kind", "column", "label", "mode"}
 
 #: Settings of the per-participant analysis (``[analysis]``), with their defaults (PHYSIO-STATS §4).
 ANALYSIS_DEFAULTS = {
@@ -72,11 +71,11 @@ class PhysioSpec:
     """One physiological file of a session: ``file`` and how to read it (passed to the analysis)."""
 
     file: Path
-    kind: str | None = None
+    kind: str = "rr"
     column: str | None = None
-    label: str | None = None       # BIDS recording-<label>; default: from kind or the file's order
+    label: str | None = None       # BIDS recording-<label>; default: none for one file, else the kind
     mode: str | None = None
-    options: dict = field(default_factory=dict)
+    offset_s: float = 0.0          # added to the file's times (when its clock is the recorder's plus a known shift)
 
 
 @dataclass
@@ -476,6 +475,13 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
                                         bad=lambda msg, key=None, _at=at: bad(msg, *_at, "sync", *(
                                             (key,) if key else ())))
         physio = _physio_tables(s.get("physio", []), where=where, at=at, rel=rel, bad=bad)
+        if session_file is not None and perf_id is not None:
+            # the session file's own [[physio]] tables of this participant (or of nobody in particular)
+            own = [q for q in getattr(performances[perf_id].session, "physio", []) or []
+                   if getattr(q, "participant", None) in (None, part)]
+            physio += [PhysioSpec(file=q.file, kind=q.kind, column=q.column, mode=q.mode, offset_s=q.offset_s,
+                                  label=(re.sub(r"[^A-Za-z0-9]", "", q.kind) if len(own) + len(physio) > 1 else None))
+                       for q in own]
         if part and ses and perf_id:
             sessions.append(StudySession(participant=part, session=ses, performance=perf_id, task=stask,
                                          run=run, sync=sync, physio=physio, session_file=session_file))
@@ -615,48 +621,44 @@ def _performance_session(p: dict, *, where, at, rate, rel, bad) -> Session | Non
 
 
 def _physio_tables(pl, *, where, at, rel, bad) -> list[PhysioSpec]:
-    """The ``[[session.physio]]`` tables of one session (file checked here; its content is read
-    and checked by the analysis, with the file's name in the message)."""
-    out: list[PhysioSpec] = []
+    """The ``[[session.physio]]`` tables of one session: each is validated as a session file's
+    ``[[physio]]`` table (:func:`stimkit.session._physio_tables`), plus ``label``, the BIDS
+    ``recording-<label>`` of its outputs. The participant is the session's, never the table's."""
+    from ..session import _physio_tables as session_physio
+
     if not isinstance(pl, list) or not all(isinstance(q, dict) for q in pl):
         bad(f"{where}: physiological files must be written as [[session.physio]] tables", *at, "physio")
-        return out
-    labels: set[str] = set()
+        return []
+    labels, tables = [], []
     for j, q in enumerate(pl):
         pat = at + ("physio", j)
-        pw = f"{where} physio #{j + 1}"
-        for k in sorted(set(q) - _PHYSIO_KEYS):
-            bad(f"{pw}: unknown key '{k}' (known: {', '.join(sorted(_PHYSIO_KEYS))})", *pat, k)
-        f = q.get("file")
-        path = None
-        if f is None:
-            bad(f"{pw}: missing file = \"...\" (the physiological recording)", *pat)
-        elif not isinstance(f, str) or not f.strip():
-            bad(f"{pw}: file must be a file name in quotes", *pat, "file")
-        else:
-            path = rel(f)
-            if not path.is_file():
-                bad(f"{pw}: file '{f}' not found (looked for {path})", *pat, "file")
-                path = None
-        vals = {}
-        for k in ("kind", "column", "label", "mode"):
-            v = q.get(k)
-            if v is not None and (not isinstance(v, str) or not v.strip()):
-                bad(f"{pw}: {k} must be a text in quotes", *pat, k)
-                v = None
-            vals[k] = v
-        label = vals["label"] or vals["kind"] or (f"{j + 1}" if len(pl) > 1 else None)
-        if label is not None:
-            label = re.sub(r"[^A-Za-z0-9]", "", label)
-            if vals["label"] is not None and label != vals["label"]:
-                bad(f"{pw}: label must be letters and digits only (BIDS recording-<label>)", *pat, "label")
-            if label in labels:
-                bad(f"{pw}: two physiological files of this session share the label '{label}'; give each "
-                    "its own label = \"...\"", *pat)
-            labels.add(label)
-        if path is not None:
-            out.append(PhysioSpec(file=path, kind=vals["kind"], column=vals["column"], label=label or None,
-                                  mode=vals["mode"]))
+        q = dict(q)
+        lab = q.pop("label", None)
+        if "participant" in q:
+            bad(f"{where} physio #{j + 1}: leave participant out (the session's participant is the owner)",
+                *pat, "participant")
+            q.pop("participant")
+        if lab is not None and (not isinstance(lab, str) or not re.fullmatch(r"[A-Za-z0-9]+", lab)):
+            bad(f"{where} physio #{j + 1}: label must be letters and digits only (BIDS recording-<label>)",
+                *pat, "label")
+            lab = None
+        labels.append(lab)
+        tables.append(q)
+
+    def relay(msg, table="", index=0, key=None):
+        bad(f"{where} {msg.replace('[[physio]]', 'physio')}", *(at + ("physio", index) + ((key,) if key else ())))
+
+    specs = session_physio({"physio": tables}, relay, rel)[0] if tables else []
+    out: list[PhysioSpec] = []
+    seen: set[str] = set()
+    for j, (spec, lab) in enumerate(zip(specs, labels)):
+        label = lab or (re.sub(r"[^A-Za-z0-9]", "", spec.kind or "") if len(specs) > 1 else None) or None
+        if len(specs) > 1 and label in seen:
+            bad(f"{where} physio #{j + 1}: two physiological files of this session share the label '{label}'; "
+                "give each its own label = \"...\"", *(at + ("physio", j)))
+        seen.add(label or "")
+        out.append(PhysioSpec(file=spec.file, kind=spec.kind, column=spec.column, label=label, mode=spec.mode,
+                              offset_s=spec.offset_s))
     return out
 
 
