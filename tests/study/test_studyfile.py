@@ -127,3 +127,19 @@ def test_session_labels_and_duplicates(tmp_path):
     with pytest.raises(StudyFileError) as err:
         load_study(f)
     assert re.search(r"line 12: .*same participant, session, task and run", str(err.value))
+
+
+def test_a_session_file_gives_recording_pieces_clock_and_its_participants_physiology(tmp_path):
+    _touch(tmp_path, "r.flac", "s.musicxml", "a.tsv", "b.tsv")
+    (tmp_path / "day1.toml").write_text(
+        'recording = "r.flac"\n[sync]\noffset_s = 4.5\n[[piece]]\nscore = "s.musicxml"\n'
+        '[[physio]]\nfile = "a.tsv"\nparticipant = "01"\n[[physio]]\nfile = "b.tsv"\nparticipant = "02"\n')
+    (tmp_path / "study.toml").write_text(
+        '[[participant]]\nid = "01"\n[[participant]]\nid = "02"\n'
+        '[[session]]\nparticipant = "01"\nsession = "1"\nsession_file = "day1.toml"\n'
+        '[[session]]\nparticipant = "02"\nsession = "1"\nsession_file = "day1.toml"\n')
+    st = load_study(tmp_path / "study.toml")
+    assert len(st.performances) == 1                      # one session file, one performance
+    a, b = st.sessions
+    assert a.sync.offset_s == 4.5 and a.performance == b.performance == "day1"
+    assert [p.file.name for p in a.physio] == ["a.tsv"] and [p.file.name for p in b.physio] == ["b.tsv"]
