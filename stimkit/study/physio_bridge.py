@@ -64,6 +64,6 @@ def analyse_session_physio(task, result, outs, d_rel: str) -> list[str]:
         side = is_bids_physio(p.file)
         if side is not None:
             inputs[f"physio_sidecar:{label}"] = side
-        write_relate(outs, [res], inputs=inputs, out_dir=task.study_root, prefix=f"{d_rel}/{physio_base(s, p)}_",
+        write_relate(outs, [res], inputs=inputs, paths_base=task.study_root, prefix=f"{d_rel}/{physio_base(s, p)}_",
                      command=["stimkit", "study", task.study_file or "STUDY.toml"])
     return notes
