@@ -190,6 +190,9 @@ def test_chorale_with_an_overfull_and_an_underfull_bar(chorale_xml, clean, tmp_p
     assert m.measures["score_qn"].tolist() == clean.measures["score_qn"].tolist()
     assert any(x.startswith("bar 3 of Alto") and "shorter" in x for x in m.warnings)
     assert any(x.startswith("bar 5 of Tenor") and "longer" in x for x in m.warnings)
+    from stimkit.report.cuesheet import plain_remarks
+
+    assert plain_remarks(m.warnings)[1] == 0              # the cue sheet's raw-wording check
 
 
 def test_chorale_without_time_signature_and_with_a_truncated_part(chorale_xml, clean, tmp_path):

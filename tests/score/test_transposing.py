@@ -179,6 +179,9 @@ def test_corpus_piano_bars_out_of_step_are_named_and_resynchronised(weber):
                 long_bars.add((p.partName, m.number))
     assert sorted(long_bars) == [("Piano", 237), ("Piano", 238), ("Piano", 239)]
     long_bars = [237, 238, 239]
+    from stimkit.report.cuesheet import plain_remarks
+
+    assert plain_remarks(model.warnings)[1] == 0          # no raw library text (cue sheet's check)
     w = [x for x in model.warnings if "of Piano" in x and "longer" in x]
     assert w and all(str(b) in " ".join(w) for b in long_bars)
     # re-synchronised: every bar lasts 3 quarter notes from bar 237 on, the piano's final chord
