@@ -61,6 +61,8 @@ class HandoffData:
     warnings: list[str]
     timings: dict
     settings: dict = field(default_factory=dict)  # extra settings of the chain
+    physio: list = field(default_factory=list)         # stimkit.physio.RelateResult per [[physio]]
+    physio_inputs: dict = field(default_factory=dict)  # participant label -> physiological file
 
 
 def output_base(session) -> str:
@@ -173,6 +175,8 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         inputs["session"] = session.source
     if session.sync.recorder_file is not None:
         inputs["recorder_sync"] = session.sync.recorder_file
+    for label, f in d.physio_inputs.items():
+        inputs[f"physio:{label}"] = f
 
     stim = frame  # write_stim keeps numeric columns and lists the text ones it leaves out
     with OutputSet(out_dir) as outs:
@@ -186,12 +190,23 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                                    extra=stim_extra)
         written += bids.write_beats(outs, base, beat_df)
         written.append(bids.write_dataset_description(outs, name=f"stimkit annotation of {base}"))
+        extra_sections = []
+        if d.physio:  # relate results: physio/ tables and figures, and their report section
+            from ..physio.outputs import write_relate
+            from ..report.physio_section import SECTION_HEADING, physio_section_html
+
+            figs: dict = {}
+            written += write_relate(outs, d.physio, inputs={f"physio:{k}": v for k, v in d.physio_inputs.items()},
+                                    paths_base=Path(session.source).parent if session.source else None,
+                                    prefix="physio/", command=command, figures_out=figs)
+            extra_sections.append((SECTION_HEADING, physio_section_html(d.physio, figures=figs)))
         written += write_session_report(outs, parts, recording=session.recording,
                                         title=f"stimkit report: {base}", summary=summary,
                                         piece_table=piece_table, events=events, stats=stats_tables,
                                         warnings=warnings,
                                         sync=clock.to_dict() if clock.method != "none" else None,
-                                        check_audio=getattr(session, "check_audio", True))
+                                        check_audio=getattr(session, "check_audio", True),
+                                        extra_sections=extra_sections)
         lap("write")
         prov = provenance.build_provenance(
             command=provenance.portable_command(
