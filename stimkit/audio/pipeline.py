@@ -89,7 +89,7 @@ DESCRIPTIONS = {
     **{c: f"Chroma energy of pitch class {c.split('_', 1)[1]} (STFT chroma, A440, each STFT frame scaled to max 1), mean over the frame interval."
        for c in CHROMA_COLUMNS},
     "key": "Local key: best Pearson correlation of the chroma summed over a 10 s window centred on the frame with the 24 Krumhansl-Kessler profiles.",
-    "key_clarity": "Key clarity: that best correlation (-1..1).",
+    "key_clarity": "Key clarity: the best Pearson correlation (-1..1) of the chroma summed over a 10 s window centred on the frame with the 24 Krumhansl-Kessler key profiles (the key it belongs to is the text feature key).",
     "harmonic_change": "Harmonic change (Harte, Sandler & Gasser 2006): distance between smoothed tonal centroids of neighbouring STFT frames, mean over the frame interval.",
     "roughness": "Sensory roughness after Sethares (1993) from the 20 strongest spectral peaks, mean over the frame interval.",
     "silent": "1 if the frame centre lies in a silent segment (K-weighted 50 ms level below -50 LUFS for at least 1 s), else 0.",

@@ -9,10 +9,24 @@ no file): ``<base>_events.tsv/.json`` (BIDS events, :func:`stimkit.export.bids.w
 ``report.png`` and ``report.html`` (:mod:`stimkit.report`) and ``provenance.json``
 (:mod:`stimkit.export.provenance`).
 
+Layout (:func:`output_layout`)
+------------------------------
+- With a BIDS ``subject`` the output folder is a BIDS dataset: ``dataset_description.json`` and
+  ``.bidsignore`` at its top, and every file of the run in ``sub-<s>/[ses-<x>/]beh/`` named
+  ``<base>_...``: the BIDS files ``_events.tsv/.json`` and ``_stim.tsv.gz/.json``, and beside
+  them the files BIDS does not define, ``_beats.tsv/.json``, ``_report.html/.png`` and
+  ``_provenance.json``, which ``.bidsignore`` hides from validators. Several sessions and runs
+  can share one output folder without overwriting each other.
+- Without a subject the layout is flat: all files in the output folder, with ``report.html``,
+  ``report.png`` and ``provenance.json`` under those plain names.
+
 Conventions
 -----------
 - ``<base>`` is the BIDS name from the session's entities (``sub-01_ses-1_task-music_run-1``),
   or the recording's file name when none are given (:func:`output_base`).
+- No output may be, or link to, an input (the recording, a score, the session file, the
+  recorder's sync file): :func:`check_outputs_against_inputs` refuses such a session before
+  the work, and the :class:`~stimkit.export.tables.OutputSet` refuses it again when it writes.
 - The continuous file is on the recorder clock: its rows are at ``StartTime + k /
   SamplingFrequency`` with ``StartTime = onset(t0)`` and ``SamplingFrequency = rate_hz / slope``
   (the feature frames are evenly spaced on the recording clock, so on the recorder clock their
@@ -33,7 +47,8 @@ import pandas as pd
 
 from .clock import ClockFit, detect_sync_marks
 
-__all__ = ["HandoffData", "write_handoff", "output_base", "ALIGNED_TEMPO"]
+__all__ = ["HandoffData", "write_handoff", "output_base", "output_layout", "planned_outputs",
+           "session_inputs", "check_outputs_against_inputs", "ALIGNED_TEMPO", "BIDSIGNORE"]
 
 #: Column added to the continuous features: the tempo from the score alignment.
 ALIGNED_TEMPO = "aligned_tempo_bpm"
@@ -68,6 +83,86 @@ def output_base(session) -> str:
     fallback = Path(session.recording).name.split(".")[0] or "stimkit"
     return bids_name(subject=session.bids.get("subject"), session=session.bids.get("session"),
                      task=session.bids.get("task"), run=session.bids.get("run"), fallback=fallback)
+
+
+#: ``.bidsignore`` of a nested output folder: the files stimkit writes that BIDS does not define.
+BIDSIGNORE = ("# files written by stimkit beside the BIDS files; not defined by BIDS\n"
+              "*_beats.tsv\n*_beats.json\n*_report.html\n*_report.png\n*_provenance.json\n")
+
+
+@dataclass(frozen=True)
+class OutputLayout:
+    """Where one run's files go, relative to the output folder (see the module notes)."""
+
+    base: str
+    data_dir: str       # "" (flat) or "sub-01/ses-1/beh"
+    nested: bool
+
+    def data(self, suffix: str) -> str:
+        """Relative name of ``<base><suffix>`` in the data folder."""
+        return f"{self.data_dir}/{self.base}{suffix}" if self.data_dir else f"{self.base}{suffix}"
+
+    @property
+    def report(self) -> str:
+        """Name of the report without its extension (``write_report``'s ``name``)."""
+        return self.data("_report") if self.nested else "report"
+
+    @property
+    def provenance(self) -> str:
+        return self.data("_provenance.json") if self.nested else "provenance.json"
+
+    def names(self) -> list[str]:
+        """Every file a run writes, relative to the output folder."""
+        out = [self.data(s) for s in ("_events.tsv", "_events.json", "_stim.tsv.gz", "_stim.json",
+                                      "_beats.tsv", "_beats.json")]
+        out += ["dataset_description.json", f"{self.report}.png", f"{self.report}.html", self.provenance]
+        if self.nested:
+            out.append(".bidsignore")
+        return out
+
+
+def output_layout(session) -> OutputLayout:
+    """The run's :class:`OutputLayout`: nested BIDS folders when a subject is given, else flat."""
+    base = output_base(session)
+    sub, ses = session.bids.get("subject"), session.bids.get("session")
+    if not sub:
+        return OutputLayout(base=base, data_dir="", nested=False)
+    parts = [f"sub-{sub}"] + ([f"ses-{ses}"] if ses else []) + ["beh"]
+    return OutputLayout(base=base, data_dir="/".join(parts), nested=True)
+
+
+def session_inputs(session) -> dict[str, Path]:
+    """Role -> path of every file the session reads (hashed in the provenance, never overwritten)."""
+    inputs = {"recording": Path(session.recording)}
+    for p in session.pieces:
+        inputs[f"score:{p.name}"] = Path(p.score)
+    if session.source is not None:
+        inputs["session"] = Path(session.source)
+    if session.sync.recorder_file is not None:
+        inputs["recorder_sync"] = Path(session.sync.recorder_file)
+    return inputs
+
+
+def planned_outputs(session) -> list[Path]:
+    """Every file a run of ``session`` writes (absolute or relative to the current folder)."""
+    lay = output_layout(session)
+    return [Path(session.out_dir) / n for n in lay.names()]
+
+
+def check_outputs_against_inputs(session) -> None:
+    """Refuse (:class:`~stimkit.errors.InputError`, exit 2) a session one of whose outputs is, or
+    links to, one of its inputs -- before any work is done and nothing is written."""
+    from ..errors import InputError
+    from ..export.tables import input_clash
+
+    inputs = session_inputs(session)
+    for target in planned_outputs(session):
+        clash = input_clash(target, inputs.values())
+        if clash is not None:
+            role = next(r for r, q in inputs.items() if q == clash).split(":")[0].replace("_", " ")
+            raise InputError(f"the output {target.name} would overwrite the {role} file {clash}; "
+                             f"choose another output folder (output = ... in the session file, or "
+                             f"-o) or move that file", path=session.source or target)
 
 
 def _defaults(fn, names) -> dict:
@@ -123,7 +218,9 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     low_conf, changes, spans, timings = d.low_confidence, d.changes, d.spans, d.timings
     duration_s, beat_df, out_dir = d.duration_s, d.beats, d.out_dir
     names = [p.name for p in pieces_out]
-    base = output_base(session)
+    layout = output_layout(session)
+    base = layout.base
+    shown_events = bids.events_for_writing(events)  # the report shows the rows the TSV holds
     synchronized = clock.method != "none"
     t_frames = np.asarray(frame.index, dtype=np.float64)
     stim_extra = {
@@ -133,6 +230,8 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         "RecordingSamplingFrequency": float(session.rate_hz),
         "ClockFit": clock.to_dict(),
     }
+    if session.bids.get("task"):
+        stim_extra["TaskName"] = session.bids["task"]
     clock_label = "onset, recorder clock (s)" if synchronized else "recording time (s)"
 
     report_pieces = pd.DataFrame({
@@ -149,7 +248,7 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     lap("envelope")
 
     fig = overview_figure(
-        features=on_frame, units=units, events=events, columns={"tempo": ALIGNED_TEMPO},
+        features=on_frame, units=units, events=shown_events, columns={"tempo": ALIGNED_TEMPO},
         pieces=report_pieces, low_confidence=[(float(clock(a)), float(clock(b))) for a, b in low_conf],
         sync=sync_df, envelope=env, time_column="onset", clock_label=clock_label,
         title=f"{base}: {', '.join(names)}")
@@ -198,33 +297,35 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                           "method": s.method} for s in spans],
         "clock_fit": clock.to_dict(),
     }
-    inputs = {"recording": session.recording}
-    for p in session.pieces:
-        inputs[f"score:{p.name}"] = p.score
-    if session.source is not None:
-        inputs["session"] = session.source
-    if session.sync.recorder_file is not None:
-        inputs["recorder_sync"] = session.sync.recorder_file
+    inputs = session_inputs(session)
+    task = session.bids.get("task")
+    events_extra = {"TaskName": task} if task else {}
+    events_extra["ClockFit"] = clock.to_dict()
 
     stim = frame  # write_stim keeps numeric columns and lists the text ones it leaves out
-    with OutputSet(out_dir) as outs:
+    prefix = layout.data("")
+    with OutputSet(out_dir, inputs=inputs.values()) as outs:
         written = []
-        written += bids.write_events(outs, base, events, synchronized=synchronized,
-                                     extra={"ClockFit": clock.to_dict()})
-        written += bids.write_stim(outs, base, stim,
+        written += bids.write_events(outs, prefix, shown_events, synchronized=synchronized,
+                                     extra=events_extra)
+        written += bids.write_stim(outs, prefix, stim,
                                    sampling_hz=session.rate_hz / clock.slope,
                                    start_time_s=float(clock(t_frames[0])) if t_frames.size else 0.0,
                                    units=units, descriptions=descriptions,
                                    extra=stim_extra)
-        written += bids.write_beats(outs, base, beat_df)
-        written.append(bids.write_dataset_description(outs, name=f"stimkit annotation of {base}"))
+        written += bids.write_beats(outs, prefix, beat_df)
+        written.append(bids.write_dataset_description(
+            outs, name="stimkit stimulus annotation" if layout.nested else f"stimkit annotation of {base}"))
+        if layout.nested:
+            written.append(outs.write_text(".bidsignore", BIDSIGNORE))
         written += write_report(outs, title=f"stimkit report: {base}", figure_png=png, summary=summary,
-                                pieces=piece_table, events=events, stats=stats_tables,
-                                warnings=warnings, sync=clock.to_dict() if clock.method != "none" else None)
+                                pieces=piece_table, events=shown_events, stats=stats_tables,
+                                warnings=warnings, sync=clock.to_dict() if clock.method != "none" else None,
+                                name=layout.report)
         lap("write")
         prov = provenance.build_provenance(
             command=list(command) if command else ["stimkit", "annotate",
                                                    str(session.source or session.recording)],
             inputs=inputs, settings=settings, warnings=warnings, timings=timings)
-        written.append(provenance.write_provenance(outs, prov, with_timings=True))
+        written.append(provenance.write_provenance(outs, prov, name=layout.provenance, with_timings=True))
     return [Path(w) for w in written]

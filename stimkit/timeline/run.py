@@ -33,7 +33,7 @@ from ..errors import InputError, WorkFailed
 from . import events as ev
 from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offset_clock, pair_marks, \
     read_recorder_times
-from .handoff import ALIGNED_TEMPO, HandoffData, output_base, write_handoff
+from .handoff import ALIGNED_TEMPO, HandoffData, check_outputs_against_inputs, output_base, write_handoff
 
 __all__ = ["AnnotateResult", "annotate", "summary_lines", "output_base"]
 
@@ -183,7 +183,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         timings[name] = timings.get(name, 0.0) + now - clock0
         clock0 = now
 
-    out_dir = check_output_dir(session.out_dir)
+    check_outputs_against_inputs(session)  # never write over an input (before any work)
     info = audio_info(session.recording)
     duration_s = info.duration_s
     scores = []
@@ -191,6 +191,11 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         sc = load_score(p.score, expand_repeats=session.expand_repeats)
         scores.append(sc)
         warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
+    if session.sync.mode == "marks" and session.sync.recorder_s is None:
+        read_recorder_times(session.sync.recorder_file, column=session.sync.recorder_column)
+    # the inputs are checked: now the output folder (checked, not yet created: the writing
+    # creates it, so a run refused before then leaves no empty folder behind)
+    out_dir = check_output_dir(session.out_dir, create=False)
     lap("scores")
 
     clock, mark_times, w = _clock(session, duration_s=duration_s, progress=progress)
@@ -285,6 +290,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                           clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings)
 
 
+def _relative(p: Path, folder: Path) -> str:
+    try:
+        return Path(p).relative_to(folder).as_posix()
+    except ValueError:
+        return str(p)
+
+
 def summary_lines(result: AnnotateResult) -> list[str]:
     """Short lines for people: pieces, boundaries, confidence, clock, outputs."""
     lines = []
@@ -304,7 +316,7 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     else:
         lines.append("clock: no sync given; onset = recording time")
     if result.warnings:
-        lines.append(f"{len(result.warnings)} warning(s), listed in report.html and provenance.json")
+        lines.append(f"{len(result.warnings)} warning(s), listed in the report and the provenance file")
     lines.append(f"outputs in {result.out_dir}:")
-    lines.extend(f"  {p.name}" for p in sorted(result.written, key=lambda q: q.name))
+    lines.extend(f"  {_relative(p, result.out_dir)}" for p in sorted(result.written, key=lambda q: str(q)))
     return lines
