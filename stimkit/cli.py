@@ -117,6 +117,12 @@ def features(
         con.print(f"wrote {p}")
 
 
+def _repeats_option(value: str) -> str:
+    if value not in ("auto", "all", "none"):
+        raise InputError(f"--repeats must be auto, all or none, not {value!r}")
+    return value
+
+
 @app.command()
 def align(
     score: Path = typer.Argument(..., help="Score file."),
@@ -124,14 +130,15 @@ def align(
     out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
     anchor: List[str] = typer.Option([], "--anchor", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
     force: bool = typer.Option(False, "--force", help="Write the alignment even when it looks like a wrong piece."),
-    no_repeats: bool = typer.Option(False, "--no-repeats", help="Align the printed order."),
+    repeats: str = typer.Option("auto", "--repeats", metavar="auto|all|none",
+                                help="Which repeats were played: decide from the recording (auto), all as written, or none."),
 ):
     """Align the score to the recording: the recording time of every note-onset position."""
     from .align.run import align_files, summary_lines, write_alignment
     from .export.tables import protect_inputs
 
     result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
-                            expand_repeats=not no_repeats)
+                            repeats=_repeats_option(repeats))
     with protect_inputs([score, audio]):
         written = write_alignment(result, out_dir=out)
     con = _console()
@@ -148,6 +155,8 @@ def annotate(
     audio: Optional[Path] = typer.Option(None, "--audio", help="One-piece shortcut: the recording."),
     out: Optional[Path] = typer.Option(None, "-o", "--out", help="Output folder (overrides the session file)."),
     template: bool = typer.Option(False, "--template", help="Print a commented starter session file."),
+    repeats: Optional[str] = typer.Option(None, "--repeats", metavar="auto|all|none",
+                                          help="Which repeats were played (overrides the session file; default auto)."),
 ):
     """The main job: events on the recorder clock, continuous features, beat grid, report."""
     from .session import annotate_session, load_session, session_from_files, summary_lines, template_text
@@ -167,6 +176,11 @@ def annotate(
         command = ["stimkit", "annotate", str(session)]
     if out is not None:
         command += ["-o", str(out)]
+    if repeats is not None:
+        sess.repeats = _repeats_option(repeats)
+        for p in sess.pieces:
+            p.repeats = None
+        command += ["--repeats", sess.repeats]
     result = _with_progress(annotate_session, sess, command=command)
     con = _console()
     for line in summary_lines(result):

@@ -27,6 +27,9 @@ TRIAL_TYPES: dict[str, str] = {
     "meter": "A time signature taking effect.",
     "section": "A section boundary: rehearsal mark, double bar, final bar, repeat start or end.",
     "pause": "A general pause: all parts silent for at least a bar, or a silence under a fermata.",
+    "repeat": ("A repeat of the score (repeat sign, first and second endings, D.C., D.S.) as performed: "
+               "label 'taken' with the duration of the repeated pass, or 'skipped' (duration 0, at "
+               "the place it was left out); decided from the recording unless the session sets it."),
     "silence": "A stretch of the recording below the silence threshold for the minimum length.",
     "feature_change": "A change point found in the continuous audio features.",
     "sync": "A sync mark (click or tone burst) detected in the recording.",
@@ -78,6 +81,7 @@ HED_TAGS: dict[str, str] = {
     "meter": "Sensory-event, Auditory-presentation, Musical-sound",
     "section": "Sensory-event, Auditory-presentation, Musical-sound",
     "pause": "Sensory-event, Auditory-presentation",
+    "repeat": "Sensory-event, Auditory-presentation, Musical-sound",
     "silence": "Sensory-event, Auditory-presentation",
     "feature_change": "Sensory-event, Auditory-presentation",
     "sync": "Experiment-structure",

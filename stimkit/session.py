@@ -39,11 +39,13 @@ __all__ = [
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
-_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "force", "bids", "sync", "piece"}
+_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "bids", "sync", "piece"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
-_PIECE_KEYS = {"score", "name", "start_s", "anchors"}
+_PIECE_KEYS = {"score", "name", "start_s", "anchors", "repeats"}
+#: Values of ``repeats`` (session-wide or per piece): decide from the recording, or play all / none.
+REPEAT_VALUES = ("auto", "all", "none")
 #: Largest recorder time or offset (s) a session may state (stimkit.timeline.clock.MAX_OFFSET_S).
 _MAX_CLOCK_S = 1e6
 
@@ -70,6 +72,7 @@ class PieceSpec:
     name: str
     start_s: float | None = None
     anchors: list[str] = field(default_factory=list)
+    repeats: str | None = None  # "auto", "all", "none"; None: the session's setting
 
 
 @dataclass
@@ -101,6 +104,14 @@ class Session:
     expand_repeats: bool = True
     force: bool = False
     source: Path | None = None  # the session file, when there is one
+    repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
+
+    def repeats_of(self, piece: "PieceSpec") -> str:
+        """The repeats setting of ``piece``: its own, else the session's; ``printed`` when the
+        session turns repeat expansion off (``expand_repeats = false``)."""
+        if not self.expand_repeats:
+            return "printed"
+        return piece.repeats or self.repeats
 
 
 # ---------------------------------------------------------------------------------------------
@@ -217,6 +228,11 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
             bad(f"'{k}' must be true or false", key=k)
             v = default
         flags[k] = v
+    repeats = data.get("repeats", "auto")
+    if repeats not in REPEAT_VALUES:
+        bad(f"'repeats' must be one of {', '.join(REPEAT_VALUES)} (auto: decide from the recording)",
+            key="repeats")
+        repeats = "auto"
 
     # bids
     bids = {}
@@ -367,10 +383,15 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
                 if not _ANCHOR.match(a):
                     bad(f"{where}: anchor '{a}' is not MEASURE[.BEAT][@PASS]=SECONDS (e.g. \"12.3=61.5\" or \"8@2=40\")",
                         "piece", i, "anchors")
+        prep = p.get("repeats")
+        if prep is not None and prep not in REPEAT_VALUES:
+            bad(f"{where}: repeats must be one of {', '.join(REPEAT_VALUES)} (auto: decide from the recording)",
+                "piece", i, "repeats")
+            prep = None
         if score_path is not None:
             pieces.append(PieceSpec(score=score_path, name=name or _stem(score_path),
                                     start_s=None if start is None else float(start),
-                                    anchors=list(anchors)))
+                                    anchors=list(anchors), repeats=prep))
     starts = [(p.start_s, p.name) for p in pieces if p.start_s is not None]
     if any(b2[0] <= a2[0] for a2, b2 in zip(starts, starts[1:])):
         problems.append((None, "the pieces' start_s must increase in the order the pieces are listed"))
@@ -380,7 +401,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
     out = Path(out_dir) if out_dir is not None else rel(output)
     return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
                    out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
-                   source=source)
+                   source=source, repeats=repeats)
 
 
 def _stem(p: Path) -> str:
@@ -429,8 +450,10 @@ output = "annotated"
 # Rows per second of the continuous feature file (_stim.tsv.gz), up to 100.
 feature_rate_hz = 10
 
-# Play repeats as written (true) or align the printed order (false).
-expand_repeats = true
+# Which repeats the performers played: "auto" (decide from the recording, for every repeat sign,
+# first/second ending and D.C./D.S.), "all" (as written) or "none" (no repeat sign taken).
+# A [[piece]] may set its own. (The older expand_repeats = false aligns the printed order.)
+repeats = "auto"
 
 # Keep an alignment that looks like the wrong piece instead of stopping (use with care).
 force = false
@@ -467,6 +490,7 @@ score = "first-piece.musicxml"
 name = "first"               # optional; default: the score's file name
 start_s = 45                 # optional rough start in the recording (seconds)
 # anchors = ["17.1=123.4"]   # optional: bar 17, beat 1 sounded at 123.4 s of the recording
+# repeats = "all"            # optional: this piece's repeats ("auto", "all", "none")
 
 [[piece]]
 score = "second-piece.musicxml"

@@ -81,6 +81,7 @@ from ..errors import InputError, WorkFailed
 from ..timemap import TimeMap
 from . import chroma as _chroma
 from .dtw import StepWeights, key_shift_costs, multiscale_dtw, path_costs
+from .structure import DOUBTFUL_MARGIN, fit_structure
 from .template import HEAD_S, score_features
 from .warp import (
     RATIO_BAD,
@@ -166,6 +167,7 @@ class AlignResult:
     settings: dict = field(default_factory=dict)
     local: pd.DataFrame | None = None   # score_qn, confidence along the path
     audio_path: Path | None = None
+    repeats: list = field(default_factory=list)   # one dict per repeat option (see _repeat_rows)
 
 
 def parse_anchor(text: str, score=None):
@@ -224,6 +226,50 @@ def _anchor_points(score, anchors):
     return pts
 
 
+REPEAT_KIND_WORDS = {"repeat": "repeat", "volta": "repeat with endings", "dc": "da capo", "ds": "dal segno"}
+
+
+def _repeat_rows(score, st, *, decided_by: str) -> list[dict]:
+    """One dict per repeat option that matters in the performed order (see AlignResult.repeats):
+    label, kind, printed bars, taken, how it was decided, its margin and its score_qn span in the
+    performed order (the place it was left out, when not taken)."""
+    plan = getattr(score, "repeat_plan", None)
+    if plan is None or not plan.options or getattr(score, "printed", None) is None:
+        return []
+    choice = score.repeat_choice or plan.conventional()
+    kept = plan.kept_positions(choice)
+    m = score.measures
+    starts = m["score_qn"].to_numpy(np.float64)
+    ends = starts + m["duration_qn"].to_numpy(np.float64)
+    bars = score.printed.bars
+    rows = []
+    for o in plan.effective(choice):
+        taken = bool(choice.get(o.id, o.conventional))
+        r = [k for k, pos in enumerate(kept) if o.start <= pos < o.stop]
+        if taken and r:
+            q0, q1 = float(starts[r[0]]), float(ends[r[-1]])
+        else:
+            after = [k for k, pos in enumerate(kept) if pos >= o.stop]
+            q0 = q1 = float(starts[after[0]]) if after else float(score.total_qn)
+        first = str(bars["label"].iloc[o.first_bar]) if "label" in bars else str(o.first_bar + 1)
+        last = str(bars["label"].iloc[o.last_bar]) if "label" in bars else str(o.last_bar + 1)
+        decided = decided_by if (decided_by == "setting" or o.id in st.decided) else "score"
+        margin = float(st.margins.get(o.id, float("nan")))
+        rows.append({
+            "id": int(o.id), "kind": o.kind,
+            "label": f"bars {first}–{last}, {REPEAT_KIND_WORDS.get(o.kind, o.kind)}"
+                     + (" (after the jump)" if o.after_jump else ""),
+            "short": (f"D.{'C' if o.kind == 'dc' else 'S'}." if o.kind in ("dc", "ds") else f"bars {first}–{last}")
+                     + (" (after the jump)" if o.after_jump else ""),
+            "first_measure": int(bars["measure"].iloc[o.first_bar]),
+            "last_measure": int(bars["measure"].iloc[o.last_bar]),
+            "taken": taken, "notated": bool(o.conventional), "decided": decided, "margin": margin,
+            "doubtful": bool(decided == "recording" and np.isfinite(margin) and margin < DOUBTFUL_MARGIN),
+            "score_qn_start": q0, "score_qn_end": q1,
+        })
+    return rows
+
+
 def _beat_qn_of(score, qn):
     m = score.measures
     starts = m["score_qn"].to_numpy(np.float64)
@@ -270,6 +316,7 @@ def align_score(
     anchors=(),
     force: bool = False,
     span_s: tuple[float, float] | None = None,
+    repeats="auto",
     progress=None,
 ) -> AlignResult:
     """Align ``score`` to the recording ``audio_path``.
@@ -288,6 +335,12 @@ def align_score(
     span_s : (start, end), optional
         Search only this part of the recording (recording seconds); the times returned are still
         seconds from the first sample of the file.
+    repeats : str or dict
+        ``"auto"`` (default): decide from the recording which repeats were played
+        (:mod:`stimkit.align.structure`); ``"all"``, ``"none"``, ``"max"`` or a mapping of
+        repeat-option id -> taken: play them as given (see
+        :func:`stimkit.score.parse.load_score`). The result's ``score`` is the score in the
+        performed order.
     progress : callable, optional
         ``progress(task, fraction)``.
 
@@ -306,7 +359,16 @@ def align_score(
         raise InputError("score has no notes; nothing to align", path=score.path)
     audio_path = Path(audio_path)
     warnings: list[str] = []
-    pts = _anchor_points(score, anchors)
+    plan = getattr(score, "repeat_plan", None)
+    auto = isinstance(repeats, str) and repeats == "auto"
+    if isinstance(repeats, str) and repeats == "printed":
+        plan = None       # the order as loaded
+    if not auto and plan is not None and plan.options and getattr(score, "printed", None) is not None:
+        from ..score.parse import score_for_choice
+
+        if plan.choice(repeats) != score.repeat_choice:
+            score = score_for_choice(score, repeats)
+    _anchor_points(score, anchors)     # checked before the work; placed after the repeats are known
 
     def report(task, frac):
         if progress is not None:
@@ -324,8 +386,23 @@ def align_score(
     sounding_start = _starts_sounding(A)
     if sounding_start:
         A = _with_silent_lead_in(A)
-    S = score_features(score, rate_hz=A.rate_hz)
-    nominal = float(score.nominal_duration_s)
+    report("structure", 0.0)
+    st = fit_structure(score, A, decide_repeats=auto and plan is not None, progress=progress)
+    if auto and plan is not None and plan.options and st.choice != score.repeat_choice:
+        from ..score.parse import score_for_choice
+
+        score = score_for_choice(score, st.choice)
+    repeat_rows = _repeat_rows(score, st, decided_by="recording" if auto else "setting")
+    for r in repeat_rows:
+        if r.get("doubtful"):
+            warnings.append(f"{r['label']}: {'taken' if r['taken'] else 'left out'} is doubtful (the other "
+                            f"choice fits almost as well, margin {100 * r['margin']:.1f} %); check by ear or "
+                            "set repeats for this piece")
+    pts = _anchor_points(score, anchors)
+    scale = float(st.time_scale)
+    tmk = TimeMap(score.tempo_map.x, scale * score.tempo_map.y, src="score_qn", dst="nominal")
+    S = score_features(score, rate_hz=A.rate_hz, time_scale=scale)
+    nominal = float(score.nominal_duration_s) * scale
     if span_len > LONG_FACTOR * max(nominal, 1e-9):
         warnings.append(f"the recording{' span' if span_s else ''} ({span_len:.1f} s) is "
                         f"{span_len / nominal:.1f} times the score's nominal length ({nominal:.1f} s); "
@@ -342,7 +419,7 @@ def align_score(
             raise InputError(f"anchor {label!r}: {sec:g} s is outside the recording"
                              f"{' span' if span_s else ''} ({span_start:.2f}-{A.meta['end_s']:.2f} s)",
                              path=audio_path)
-        i = int(round((float(score.tempo_map(qn)) - S.start_s) * rate))
+        i = int(round((float(tmk(qn)) - S.start_s) * rate))
         j = int(round((sec - A.start_s) * rate))
         cells.append((min(max(i, 0), S.n_frames - 1), min(max(j, 0), A.n_frames - 1)))
     weights = StepWeights()
@@ -380,9 +457,12 @@ def align_score(
             raise WorkFailed(msg + "; use --force to write the alignment anyway", path=audio_path)
         warnings.append(msg + "; written anyway (force)")
 
-    tm = path_to_timemap(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
+    tm = path_to_timemap(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=tmk,
                          score_start_s=S.start_s)
-    inv_tempo = score.tempo_map.inverse()
+    inv_tempo = tmk.inverse()
+    for r in repeat_rows:
+        r["recording_start"] = float(tm(r["score_qn_start"]))
+        r["recording_end"] = float(tm(r["score_qn_end"]))
     # local confidence along the score
     ui, lr = local_ratio(path, costs, ref_cost=ref, rate_hz=rate, window_s=LOCAL_WINDOW_S)
     local_qn = np.asarray(inv_tempo(S.start_s + ui / rate), dtype=np.float64)
@@ -392,7 +472,7 @@ def align_score(
     found = []
     lr_at = dict(zip(ui.tolist(), lr.tolist()))
     rj, rr = recording_cost_ratio(path, costs, ref_cost=ref, rate_hz=rate, window_s=1.0)
-    for reg in flag_runs(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=score.tempo_map,
+    for reg in flag_runs(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=tmk,
                          min_s=FLAG_MIN_S, score_start_s=S.start_s):
         if reg["kind"] == "insertion":
             # trim the ends of the run that still match (a held chord next to the insertion)
@@ -418,7 +498,7 @@ def align_score(
             reg["cost_ratio"] = run_cost
             found.append(reg)
     found += mismatch_regions(path, costs, ref_cost=ref, rate_hz=rate, rec_start_s=A.start_s,
-                              score_start_s=S.start_s, tempo_map=score.tempo_map,
+                              score_start_s=S.start_s, tempo_map=tmk,
                               min_ratio=MISMATCH_RATIO, min_s=FLAG_MIN_S)
     regions = []
     for reg in merge_regions(found):
@@ -476,9 +556,13 @@ def align_score(
         "trim_ratio": TRIM_RATIO,
         "tempo_window_beats": TEMPO_WINDOW_BEATS,
         "score_template": "from the notes (harmonic model), lead-in 1 s",
+        "repeats": repeats if isinstance(repeats, str) else {str(k): bool(v) for k, v in dict(repeats).items()},
+        "time_scale": scale,
+        "structure_scan": [[round(a, 4), round(b, 4)] for a, b in st.scan],
         "recording_lead_in_s": HEAD_S if sounding_start else 0.0,
     }
     confidence = {"overall": overall, "raffel_ellis_ratio": ratio, "key_ratio": key_ratio,
+                  "tempo_ratio": 1.0 / scale,
                   "best_key_shift": best_shift,
                   "coarse_ratio": float(res["coarse_cost_ratio"]),
                   "recording_start": rec_start, "recording_end": rec_end}
@@ -486,16 +570,17 @@ def align_score(
     return AlignResult(name=audio_path.stem, score=score, timemap=tm, notes=notes, beats=beats,
                        tempo=tempo, confidence=confidence, regions=regions,
                        warnings=warnings,
-                       settings=settings, local=local, audio_path=audio_path)
+                       settings=settings, local=local, audio_path=audio_path, repeats=repeat_rows)
 
 
-def align_files(score_path, audio_path, *, anchors=(), force: bool = False, expand_repeats: bool = True,
+def align_files(score_path, audio_path, *, anchors=(), force: bool = False, repeats="auto",
                 progress=None) -> AlignResult:
-    """Load ``score_path`` (:func:`stimkit.score.parse.load_score`) and :func:`align_score` it."""
+    """Load ``score_path`` (:func:`stimkit.score.parse.load_score`) and :func:`align_score` it
+    (``repeats``: ``"auto"``, ``"all"``, ``"none"``, ``"printed"`` or a mapping, as there)."""
     from ..score.parse import load_score
 
-    score = load_score(score_path, expand_repeats=expand_repeats)
-    return align_score(score, audio_path, anchors=anchors, force=force, progress=progress)
+    score = load_score(score_path, expand_repeats=repeats != "printed")
+    return align_score(score, audio_path, anchors=anchors, force=force, repeats=repeats, progress=progress)
 
 
 def confidence_at(result: AlignResult, score_qn) -> np.ndarray:
@@ -517,6 +602,7 @@ def _json_payload(result: AlignResult) -> dict:
             "frames": "a frame's time is its window centre",
         },
         "confidence": result.confidence,
+        "repeats": result.repeats,
         "flagged_regions": result.regions,
         "tempo": {"score_qn": t["score_qn"].to_numpy(), "recording": t["recording"].to_numpy(),
                   "bpm": t["bpm"].to_numpy(), "quarter_bpm": t["quarter_bpm"].to_numpy(),
@@ -559,6 +645,11 @@ def summary_lines(result: AlignResult) -> list[str]:
         f"{c['recording_end']:.2f} s",
         f"confidence {c['overall']:.2f} (path cost ratio {c['raffel_ellis_ratio']:.2f})",
     ]
+    from ..timeline.run import repeats_line
+
+    line = repeats_line(result.name, result.repeats, float(c.get("tempo_ratio", 1.0)))
+    if line:
+        lines.append(line.strip())
     for r in result.regions:
         lines.append(f"flagged {r['kind']} at {r['start']:.1f}-{r['end']:.1f} s")
     for w in result.warnings:

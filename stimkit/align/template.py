@@ -58,7 +58,7 @@ def _partials(pitch: int):
     return pcs, amps
 
 
-def score_features(score, *, rate_hz: float = RATE_HZ) -> AlignFeatures:
+def score_features(score, *, rate_hz: float = RATE_HZ, time_scale: float = 1.0) -> AlignFeatures:
     """Chroma and chroma-onset templates of ``score`` at ``rate_hz`` in nominal time.
 
     Parameters
@@ -67,6 +67,10 @@ def score_features(score, *, rate_hz: float = RATE_HZ) -> AlignFeatures:
         Parsed score with at least one note.
     rate_hz : float
         Frame rate, the same as the recording side.
+    time_scale : float
+        Stretch of the nominal time axis (``k``: nominal second ``t`` is placed at ``k * t``; 2 is
+        a performance at half the notated tempo). The silent head and tail stay ``HEAD_S`` and
+        ``TAIL_S`` seconds; note decay and release times are not stretched.
 
     Returns
     -------
@@ -76,14 +80,15 @@ def score_features(score, *, rate_hz: float = RATE_HZ) -> AlignFeatures:
     notes = score.notes
     tm = score.tempo_map
     # nominal seconds shifted so that frame 0 is HEAD_S before score_qn 0
-    on_s = np.asarray(tm(notes["score_qn"].to_numpy(np.float64)), dtype=np.float64) + HEAD_S
-    off_s = np.asarray(tm((notes["score_qn"] + notes["duration_qn"]).to_numpy(np.float64)), dtype=np.float64) + HEAD_S
+    k = float(time_scale)
+    on_s = k * np.asarray(tm(notes["score_qn"].to_numpy(np.float64)), dtype=np.float64) + HEAD_S
+    off_s = k * np.asarray(tm((notes["score_qn"] + notes["duration_qn"]).to_numpy(np.float64)), dtype=np.float64) + HEAD_S
     off_s = np.maximum(off_s, on_s + 0.03)
     pitch = notes["pitch"].to_numpy().astype(int)
     vel = notes["velocity"].to_numpy(np.float64) if "velocity" in notes else np.full(len(notes), 80.0)
     vel = np.where(np.isfinite(vel), vel, 80.0)
     amp = 10 ** ((np.clip(vel, 1, 127) - 127) / 126 * 40 / 20)   # 40 dB over the velocity range
-    end_s = max(float(off_s.max()) if len(off_s) else 0.0, float(score.nominal_duration_s) + HEAD_S)
+    end_s = max(float(off_s.max()) if len(off_s) else 0.0, k * float(score.nominal_duration_s) + HEAD_S)
     n = int(np.ceil((end_s + TAIL_S) * rate_hz)) + 1
     E = np.zeros((n, 12))
     O = np.zeros((n, 12))

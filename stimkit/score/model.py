@@ -59,6 +59,12 @@ class ScoreModel:
     repeats_expanded: bool = True
     parts: list[str] = field(default_factory=list)
     title: str = ""  # the score's own title (metadata), "" when it has none
+    # set by stimkit.score.parse.load_score: the printed bars (PrintedScore), the repeat plan
+    # (stimkit.score.repeats.RepeatPlan, None without repeat marks that could be read) and the
+    # choice of repeats this model plays (option id -> taken); score_for_choice rebuilds it
+    printed: object = None
+    repeat_plan: object = None
+    repeat_choice: dict = field(default_factory=dict)
 
     @property
     def total_qn(self) -> float:

@@ -45,9 +45,10 @@ import pandas as pd
 
 from ..errors import InputError
 from .model import BOUNDARY_COLUMNS, NOTE_COLUMNS, ScoreModel
-from .repeats import BarMarks, RepeatError, performed_order
+from .repeats import BarMarks, RepeatError, RepeatPlan, repeat_plan
 
-__all__ = ["load_score", "SCORE_SUFFIXES", "GRACE_QN", "read_music21", "PrintedScore", "collect_printed"]
+__all__ = ["load_score", "score_for_choice", "SCORE_SUFFIXES", "GRACE_QN", "REPEAT_CHOICES", "read_music21",
+           "PrintedScore", "collect_printed"]
 
 XML_SUFFIXES = (".musicxml", ".xml")
 MXL_SUFFIXES = (".mxl",)
@@ -55,6 +56,8 @@ MIDI_SUFFIXES = (".mid", ".midi")
 SCORE_SUFFIXES = XML_SUFFIXES + MXL_SUFFIXES + MIDI_SUFFIXES
 GRACE_QN = 0.0625
 MAX_XML_BYTES = 200_000_000
+#: Named repeat choices of :func:`load_score` (see :meth:`stimkit.score.repeats.RepeatPlan.choice`).
+REPEAT_CHOICES = ("all", "none", "max", "printed")
 
 
 # --------------------------------------------------------------------------------------------
@@ -220,6 +223,10 @@ class PrintedScore:
     parts: list[str]
     warnings: list[str] = field(default_factory=list)
     is_midi: bool = False
+    title: str = ""
+
+
+_DOUBLE_BARS = ("double", "final", "heavy-light", "heavy-heavy", "light-light", "light-heavy")
 
 
 def _part_names(parts) -> list[str]:
@@ -360,6 +367,11 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                         if bl.times is not None:
                             marks[i].times = int(bl.times)
                 btype = getattr(bl, "type", None)
+                if not isinstance(bl, bar.Repeat) and btype in _DOUBLE_BARS:
+                    # a double bar ends this bar (right side) or the bar before (left side)
+                    j = i if side == "right" else i - 1
+                    if j >= 0:
+                        marks[j].double_bar = True
                 add("barline", k, i, 0.0 if side == "left" else float(bars.at[i, "duration_qn"]),
                     text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
             key_here = False
@@ -500,24 +512,26 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
 # --------------------------------------------------------------------------------------------
 # performed order
 # --------------------------------------------------------------------------------------------
-def performed_bars(printed: PrintedScore, *, expand_repeats: bool) -> tuple[pd.DataFrame, list[str]]:
-    """Performed bars: ``index`` (printed), ``measure``, ``pass``, ``score_qn`` and bar columns."""
-    warnings = []
-    n = len(printed.bars)
-    if expand_repeats:
-        try:
-            order = performed_order(printed.marks)
-        except RepeatError as exc:
-            warnings.append(f"repeats not expanded ({exc}); bars kept in printed order")
-            order = list(range(n))
-        if not order:
-            order = list(range(n))
-    else:
-        order = list(range(n))
-    b = printed.bars.iloc[order].reset_index(drop=True)
+def plan_repeats(printed: PrintedScore) -> tuple[RepeatPlan | None, list[str]]:
+    """The repeat plan of the printed bars (:func:`stimkit.score.repeats.repeat_plan`), or ``None``
+    with a warning when the marks are ambiguous (the printed order is then played)."""
+    labels = [str(x) for x in printed.bars["label"]] if "label" in printed.bars else None
+    try:
+        plan = repeat_plan(printed.marks, labels=labels)
+    except RepeatError as exc:
+        return None, [f"repeats not expanded ({exc}); bars kept in printed order"]
+    if not plan.order:
+        return None, []
+    return plan, list(plan.warnings)
+
+
+def performed_bars(printed: PrintedScore, order: list[int]) -> pd.DataFrame:
+    """Performed bars in ``order`` (printed-bar indices): ``index`` (printed), ``measure``,
+    ``pass``, ``score_qn`` and the bar columns."""
+    b = printed.bars.iloc[list(order)].reset_index(drop=True)
     b["pass"] = b.groupby("index").cumcount() + 1
     b["score_qn"] = np.concatenate([[0.0], np.cumsum(b["duration_qn"].to_numpy())[:-1]])
-    return b, warnings
+    return b
 
 
 def jump_points(perf: pd.DataFrame) -> list[tuple[float, float, int]]:
@@ -573,7 +587,7 @@ def _merge_ties(notes: pd.DataFrame) -> pd.DataFrame:
     return notes[keep].reset_index(drop=True)
 
 
-def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
+def load_score(path: str | Path, *, expand_repeats: bool = True, repeats="all") -> ScoreModel:
     """Load a score file into a :class:`~stimkit.score.model.ScoreModel` in performed order.
 
     Parameters
@@ -581,14 +595,22 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     path : str or Path
         ``.musicxml``, ``.xml``, ``.mxl`` or ``.mid``/``.midi``.
     expand_repeats : bool
-        Expand repeats, voltas, D.C./D.S./Fine/Coda into the order performed (default). When the
-        marks are ambiguous the printed order is kept and a warning says so.
+        ``False`` keeps the printed order (the same as ``repeats="printed"``).
+    repeats : str or dict
+        Which repeats are played: ``"all"`` (the notated performance: every repeat sign taken,
+        D.C./D.S. followed, no repeat after the jump; the default), ``"none"`` (no repeat sign
+        taken, D.C./D.S. followed), ``"max"`` (everything taken, also after a jump),
+        ``"printed"`` (printed order) or a mapping of repeat-option id -> taken (see
+        :class:`stimkit.score.repeats.RepeatPlan`; ``ScoreModel.repeat_plan.options`` lists
+        them). When the marks are ambiguous the printed order is kept and a warning says so.
 
     Returns
     -------
     ScoreModel
         ``notes``, ``measures``, ``boundaries`` (:mod:`stimkit.score.markings`), ``tempo_map``
-        (score_qn -> nominal seconds, :mod:`stimkit.score.tempomap`), ``warnings``, ``parts``.
+        (score_qn -> nominal seconds, :mod:`stimkit.score.tempomap`), ``warnings``, ``parts``;
+        ``printed``, ``repeat_plan`` and ``repeat_choice`` let :func:`score_for_choice` build the
+        same score for another choice of repeats without reading the file again.
 
     Raises
     ------
@@ -596,11 +618,11 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
         Missing or unreadable file, wrong extension, non-XML / malformed XML, entity
         declarations, no notes, a zero or negative tempo.
     """
-    from . import markings, tempomap
-
     import warnings as _warnings
 
     path = Path(path)
+    if isinstance(repeats, str) and repeats not in REPEAT_CHOICES:
+        raise ValueError(f"repeats must be one of {', '.join(REPEAT_CHOICES)} or a mapping, not {repeats!r}")
     with _warnings.catch_warnings(record=True) as caught:
         _warnings.simplefilter("always")
         score = read_music21(path)
@@ -614,8 +636,36 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     if printed.notes.empty:
         raise InputError("score has no pitched notes; nothing to plan or align (percussion-only and "
                          "empty scores are not supported)", path=path)
-    perf, warns = performed_bars(printed, expand_repeats=expand_repeats)
-    warnings = [f"music21: {w}" for w in m21_warnings[:20]] + list(printed.warnings) + warns
+    plan, plan_warnings = plan_repeats(printed)
+    printed.warnings = [f"music21: {w}" for w in m21_warnings[:20]] + list(printed.warnings) + plan_warnings
+    md = getattr(score, "metadata", None)
+    title = (getattr(md, "title", None) or getattr(md, "movementName", None) or "") if md is not None else ""
+    printed.title = " ".join(str(title).split())
+    if not expand_repeats:
+        repeats = "printed"
+    return build_score(printed, plan=plan, repeats=repeats, path=path)
+
+
+def score_for_choice(score: ScoreModel, repeats) -> ScoreModel:
+    """The same score as ``score`` (from :func:`load_score`) with another choice of repeats
+    (``"all"``, ``"none"``, ``"max"``, ``"printed"`` or a mapping option id -> taken)."""
+    if score.printed is None:
+        raise ValueError("score_for_choice needs a score from load_score (it keeps the printed bars)")
+    return build_score(score.printed, plan=score.repeat_plan, repeats=repeats, path=score.path)
+
+
+def build_score(printed: PrintedScore, *, plan: RepeatPlan | None, repeats, path: Path) -> ScoreModel:
+    """A :class:`ScoreModel` of the printed score played in the order that ``repeats`` chooses."""
+    from . import markings, tempomap
+
+    n = len(printed.bars)
+    if repeats == "printed" or plan is None:
+        order, choice = list(range(n)), {}
+    else:
+        choice = plan.choice(repeats)
+        order = plan.order_for(choice)
+    perf = performed_bars(printed, order)
+    warnings = list(printed.warnings)
 
     measures = perf[["measure", "pass", "score_qn", "duration_qn", "numerator", "denominator",
                      "beat_qn", "first_beat"]].copy()
@@ -645,7 +695,7 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     model_tmp = ScoreModel(name=path.stem, path=path, notes=pd.DataFrame(columns=NOTE_COLUMNS),
                            measures=measures, boundaries=pd.DataFrame(columns=BOUNDARY_COLUMNS),
                            tempo_map=_dummy_map(measures), warnings=warnings,
-                           repeats_expanded=expand_repeats, parts=list(dict.fromkeys(part_names)))
+                           repeats_expanded=repeats != "printed", parts=list(dict.fromkeys(part_names)))
     ctx = markings.MarkingContext(model=model_tmp, events=ev, notes=pn, printed=printed, path=path,
                                   jumps=jump_points(perf))
     tempo_events, fermatas = markings.tempo_events(ctx)
@@ -663,9 +713,10 @@ def load_score(path: str | Path, *, expand_repeats: bool = True) -> ScoreModel:
     model_tmp.notes = notes
     model_tmp.boundaries = markings.boundaries(ctx, tempo_events=tempo_events)
     model_tmp.warnings[:] = list(dict.fromkeys(model_tmp.warnings))
-    md = getattr(score, "metadata", None)
-    title = (getattr(md, "title", None) or getattr(md, "movementName", None) or "") if md is not None else ""
-    model_tmp.title = " ".join(str(title).split())
+    model_tmp.title = getattr(printed, "title", "")
+    model_tmp.printed = printed
+    model_tmp.repeat_plan = plan
+    model_tmp.repeat_choice = choice
     return model_tmp
 
 

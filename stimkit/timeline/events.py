@@ -33,8 +33,8 @@ import pandas as pd
 from ..export.tables import is_missing
 from ..levels import EVENT_COLUMNS, TRIAL_TYPES
 
-__all__ = ["with_tail", "piece_events", "silence_events", "sync_events", "change_events", "merge_events",
-           "beat_table", "empty_events"]
+__all__ = ["with_tail", "piece_events", "repeat_events", "silence_events", "sync_events", "change_events",
+           "merge_events", "beat_table", "empty_events"]
 
 
 def empty_events() -> pd.DataFrame:
@@ -194,6 +194,25 @@ def _beats_inside_bars(score, b: pd.DataFrame) -> np.ndarray:
         if last is not None and beat[i] >= last - 1e-6:
             out[i] = np.nan
     return out
+
+
+def repeat_events(repeats: list[dict], score, *, piece: str, to_recording, clock) -> pd.DataFrame:
+    """``repeat`` rows from an alignment's repeat decisions (``AlignResult.repeats``): label
+    ``taken`` (lasting the repeated pass) or ``skipped`` (duration 0 where it was left out), with
+    the first printed bar of the repeated material in ``measure``."""
+    rows = []
+    for r in repeats or []:
+        q0, q1 = float(r["score_qn_start"]), float(r["score_qn_end"])
+        t0, t1 = float(to_recording(q0)), float(to_recording(q1))
+        loc = score.locate([q0]).iloc[0]
+        how = "" if r.get("decided") == "recording" else f", {r.get('decided', 'setting')}"
+        rows.append({"onset": float(clock(t0)), "duration": max(float(clock(t1) - clock(t0)), 0.0),
+                     "trial_type": "repeat", "piece": piece,
+                     "label": f"{'taken' if r['taken'] else 'skipped'}: {r['label']}{how}",
+                     "measure": int(r["first_measure"]) if r["taken"] else int(loc["measure"]),
+                     "beat": float(loc["beat"]), "score_qn": q0, "nominal": float(score.tempo_map(q0)),
+                     "recording": t0, "source": "alignment", "part": "all"})
+    return _frame(rows)
 
 
 def silence_events(segments: pd.DataFrame, *, clock, min_duration_s: float = 0.0) -> pd.DataFrame:

@@ -54,6 +54,8 @@ class PieceResult:
     n_boundaries: int
     median_confidence: float
     locate_cost: float
+    repeats: list = field(default_factory=list)     # AlignResult.repeats
+    tempo_ratio: float = 1.0                         # performed / notated tempo, whole piece
 
 
 @dataclass
@@ -220,7 +222,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         hi = min(next_start, sp.end_s + SPAN_PAD_S, duration_s)
         try:
             res = align_score(sc, session.recording, anchors=list(p.anchors), force=session.force,
-                              span_s=(lo, hi), progress=progress)
+                              span_s=(lo, hi), repeats=session.repeats_of(p), progress=progress)
         except WorkFailed as exc:
             raise WorkFailed(f"piece '{p.name}' ({lo:.1f}-{hi:.1f} s of the recording): {exc}") from None
         aligned.append(res)
@@ -248,11 +250,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     beats = []
     pieces_out: list[PieceResult] = []
     low_conf: list[tuple[float, float]] = []
-    for p, sc, sp, res in zip(session.pieces, scores, spans, aligned):
+    for p, sp, res in zip(session.pieces, spans, aligned):
+        sc = res.score       # the score in the order performed (repeats as decided)
         to_rec = _timemap_call(res.timemap)
         conf = _confidence_fn(res)
         t = ev.piece_events(sc, piece=p.name, to_recording=to_rec, clock=clock, confidence=conf)
         tables.append(t)
+        tables.append(ev.repeat_events(res.repeats, sc, piece=p.name, to_recording=to_rec, clock=clock))
         beats.append(ev.beat_table(sc, piece=p.name, to_recording=to_rec, clock=clock))
         row = t.iloc[0]
         low_conf.extend(_regions(res))
@@ -261,7 +265,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
             name=p.name, score_path=p.score, start_recording_s=float(row["recording"]),
             end_recording_s=float(row["recording"]) + float(row["duration"]) / clock.slope,
             start_onset_s=float(row["onset"]), end_onset_s=float(row["onset"] + row["duration"]),
-            n_boundaries=int(len(t) - 1), median_confidence=med, locate_cost=sp.cost))
+            n_boundaries=int(len(t) - 1), median_confidence=med, locate_cost=sp.cost,
+            repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0))))
     tables.append(ev.silence_events(_silences(feats), clock=clock, min_duration_s=0.0))
     tables.append(ev.sync_events(mark_times, clock=clock))
     if changes is not None and len(changes):
@@ -297,6 +302,23 @@ def _relative(p: Path, folder: Path) -> str:
         return str(p)
 
 
+def repeats_line(name: str, repeats: list, tempo_ratio: float = 1.0) -> str:
+    """One line saying which repeats a piece's performance took (and a tempo far from the marks)."""
+    parts = []
+    if repeats:
+        taken = [r.get("short", r["label"]) for r in repeats if r["taken"]]
+        skipped = [r.get("short", r["label"]) for r in repeats if not r["taken"]]
+        how = sorted({r.get("decided", "recording") for r in repeats})
+        parts.append(f"repeats taken: {', '.join(taken) or 'none'}; skipped: {', '.join(skipped) or 'none'} "
+                     f"(decided by the {' and '.join(how)})")
+        doubt = [r.get("short", r["label"]) for r in repeats if r.get("doubtful")]
+        if doubt:
+            parts.append(f"DOUBTFUL: {', '.join(doubt)}")
+    if np.isfinite(tempo_ratio) and abs(np.log(tempo_ratio)) > np.log(1.3):
+        parts.append(f"played at about {tempo_ratio:.2f} times the notated tempo")
+    return f"  {name}: " + "; ".join(parts) if parts else ""
+
+
 def summary_lines(result: AnnotateResult) -> list[str]:
     """Short lines for people: pieces, boundaries, confidence, clock, outputs."""
     lines = []
@@ -304,6 +326,9 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     for p in result.pieces:
         lines.append(f"piece {p.name}: {p.start_onset_s:.3f} s to {p.end_onset_s:.3f} s {kind} "
                      f"({p.n_boundaries} boundaries, median confidence {p.median_confidence:.2f})")
+        line = repeats_line(p.name, p.repeats, p.tempo_ratio)
+        if line:
+            lines.append(line)
     n_b = sum(p.n_boundaries for p in result.pieces)
     med = float(np.nanmedian([p.median_confidence for p in result.pieces])) if result.pieces else float("nan")
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
