@@ -271,3 +271,24 @@ def test_official_bids_validator_finds_no_error(out):
     summary = report["summary"]  # it did read the files: one subject, the task, beh data
     assert summary["subjects"] == ["demo"] and summary["tasks"] == ["listening"]
     assert summary["dataTypes"] == ["beh"]
+
+
+def test_onset_rate_and_tempo_level_inside_the_pieces(out, truth):
+    # the demo recording has sync clicks, speech and applause around the pieces: the onset rate
+    # inside the pieces must still follow the renderer's note times (the old peak picker,
+    # normalised to the file's loudest event, read a fraction of it), and the audio tempo must sit
+    # at the metrical level of the alignment's tempo
+    side = json.loads((out / DATA / f"{BASE}_stim.json").read_text())
+    data = pd.read_csv(out / DATA / f"{BASE}_stim.tsv.gz", sep="\t", header=None, na_values=["n/a"],
+                       keep_default_na=False, names=side["Columns"])
+    t_rec = side["RecordingStartTime"] + np.arange(len(data)) / side["RecordingSamplingFrequency"]
+    notes = pd.read_csv(DEMO / "demo-truth-notes.tsv", sep="\t")
+    for p in truth["pieces"]:
+        a, b = p["start_recording_s"] + 5, p["end_recording_s"] - 5
+        inside = (t_rec > a) & (t_rec < b)
+        on = np.sort(notes.loc[notes["piece"] == p["piece"], "recording"].to_numpy())
+        on = on[np.r_[True, np.diff(on) > 0.03]]  # a chord (spread by a few ms) is one onset
+        true_rate = np.sum((on > a) & (on < b)) / (b - a)
+        assert data.loc[inside, "onset_rate_hz"].mean() == pytest.approx(true_rate, rel=0.3)
+        ratio = (data.loc[inside, "tempo_bpm"] / data.loc[inside, "aligned_tempo_bpm"]).dropna()
+        assert len(ratio) and np.median(np.abs(np.log(ratio))) <= np.log(1.15)

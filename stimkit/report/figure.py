@@ -11,10 +11,11 @@ From top to bottom, each lane only when its data is there:
 2. *waveform envelope* -- min/max of the signal per display column;
 3. *loudness* -- short-term loudness (LUFS), falling back to momentary loudness, then RMS dBFS;
 4. *tempo* -- local tempo (BPM);
-5. *tonal tension* -- tonal ambiguity ``1 - key clarity`` when key clarity is there: key clarity
-   (the best correlation of the chroma with the Krumhansl-Kessler key profiles) is a slow,
-   bounded measure of how firmly a key is established, and its loss is the tonal component of
-   published tension models (Lerdahl & Krumhansl 2007; Farbood 2012). Fallbacks: harmonic
+5. *tonality* -- key ambiguity ``1 - key strength`` when key strength is there: key strength
+   (the best correlation of the chroma with the Krumhansl-Kessler key profiles; Krumhansl 1990)
+   is a slow, bounded measure of how firmly a key is established; its loss is related to, but
+   not the same as, the tonal component of published tension models (Lerdahl & Krumhansl 2007;
+   Farbood 2012), so the lane is not called tension. Fallbacks: harmonic
    change (Harte, Sandler & Gasser 2006; a rate of change rather than a level, so peakier) and
    sensory roughness (Sethares 1993; a sensory, not tonal, quantity);
 6. *onset rate* (onsets per second);
@@ -63,7 +64,7 @@ __all__ = ["overview_figure", "figure_png", "LANE_ROLES", "MARK_COLOURS", "LABEL
 LANE_ROLES = (
     ("loudness", "loudness", "LUFS"),
     ("tempo", "tempo", "BPM"),
-    ("tension", "tonal tension", ""),
+    ("tonality", "tonality", ""),
     ("onset_rate", "onset rate", "1/s"),
 )
 
@@ -193,7 +194,7 @@ def overview_figure(
         Most rows for boundary labels; the lane uses only the rows needed, and a label that
         finds no free row is left out (its line stays).
     columns : dict, optional
-        Role -> column name overrides (e.g. ``{"tension": "roughness"}``).
+        Role -> column name overrides (e.g. ``{"tonality": "roughness"}``).
 
     Returns
     -------
@@ -222,9 +223,9 @@ def _build(features, units, events, pieces, low_conf, sync, envelope, time_colum
             continue
         lane_unit = units.get(col, unit)
         label = col
-        if role == "tension" and col == "key_clarity":
+        if role == "tonality" and col == "key_strength":
             y = 1.0 - y
-            label = "1 - key_clarity"
+            label = "key ambiguity (1 - key_strength)"
             lane_unit = ""
         if role == "loudness":
             y = np.where(np.isfinite(y) & (y > -70.0), y, np.nan)  # silence below the -70 gate

@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..audio.rhythm import match_octave
 from ..errors import InputError, WorkFailed
 from . import events as ev
 from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offset_clock, pair_marks, \
@@ -275,9 +276,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     events = ev.merge_events(tables)
     frame = frame.copy()
     frame[ALIGNED_TEMPO] = _aligned_tempo(np.asarray(frame.index, dtype=np.float64), aligned, pieces_out)
+    # inside the pieces the audio tempo takes the metrical level of the alignment's tempo
+    frame["tempo_bpm"] = match_octave(frame["tempo_bpm"].to_numpy(np.float64), frame[ALIGNED_TEMPO].to_numpy())
     units = dict(feats.units)
     units[ALIGNED_TEMPO] = "BPM"
     descriptions = dict(feats.descriptions)
+    descriptions["tempo_bpm"] += (" Inside the aligned pieces it is moved to the metrical level (x1/3, 1/2, "
+                                  "2/3, 3/2, 2 or 3) closest to aligned_tempo_bpm.")
     descriptions[ALIGNED_TEMPO] = ("Tempo of the performance from the score alignment: beats per minute in "
                                    "the bar's beat unit, smoothed over a few beats; n/a outside the pieces.")
     beat_df = pd.concat(beats, ignore_index=True) if beats else pd.DataFrame()

@@ -13,7 +13,7 @@ def session():
     features = pd.DataFrame({
         "short_term_lufs": -30 + 5 * np.sin(t / 20),
         "tempo_bpm": 100 + 5 * np.sin(t / 30),
-        "key_clarity": 0.5 + 0.3 * np.cos(t / 10),
+        "key_strength": 0.5 + 0.3 * np.cos(t / 10),
         "onset_rate_hz": 3 + np.sin(t / 7),
     }, index=t)
     marks = np.arange(5.0, 290.0, 9.0)

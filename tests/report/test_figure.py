@@ -34,13 +34,13 @@ def test_lane_titles_and_skipped_lanes(session):
     titles = _titles(_fig(session))
     assert any(t.startswith("loudness") for t in titles)
     assert any(t.startswith("tempo") for t in titles)
-    assert any("1 - key_clarity" in t for t in titles)
+    assert any("1 - key_strength" in t for t in titles)
     assert any(t.startswith("sync") for t in titles)
-    f2 = session["features"].drop(columns=["tempo_bpm", "key_clarity"])
+    f2 = session["features"].drop(columns=["tempo_bpm", "key_strength"])
     f2["roughness"] = 0.1
     titles2 = _titles(_fig(session, features=f2, sync=None, envelope=None))
     assert not any(t.startswith("tempo") for t in titles2)      # absent column: lane skipped
-    assert any("roughness" in t for t in titles2)               # tension falls back
+    assert any("roughness" in t for t in titles2)               # tonality falls back
     assert not any(t.startswith("sync") for t in titles2)
     assert not any(t.startswith("waveform") for t in titles2)
 
