@@ -19,6 +19,7 @@ import typer
 
 from . import __version__
 from .errors import InputError, StimkitError
+from .session import DEFAULT_FEATURE_RATE_HZ
 
 app = typer.Typer(
     add_completion=False,
@@ -35,11 +36,35 @@ def _interactive() -> bool:
     return sys.stderr.isatty() and not os.environ.get("CI")
 
 
+class _StageLines:
+    """Progress for pipes, notebooks and logs: one line on stdout per stage as it finishes
+    (stderr stays for the one-line error).
+
+    A stage is one run of a ``progress(task, fraction)`` task up to ``fraction == 1``; a task
+    that starts again (its fraction falls) is a new stage and gets its own line."""
+
+    def __init__(self, stream=None):
+        import time
+
+        self._clock = time.perf_counter
+        self._t0 = self._clock()
+        self._last: dict[str, float] = {}
+        self._stream = stream
+
+    def __call__(self, task: str, fraction: float) -> None:
+        before = self._last.get(task)
+        self._last[task] = fraction
+        if fraction >= 1.0 and (before is None or before < 1.0):
+            print(f"stimkit: {task} done ({self._clock() - self._t0:.1f} s)",
+                  file=self._stream or sys.stdout, flush=True)
+
+
 def _with_progress(fn, *args, **kwargs):
     """Call ``fn(*args, progress=..., **kwargs)`` with a rich progress bar on a terminal; without
-    a terminal (CI, pipes) call it with ``progress=None`` and stay quiet."""
+    a terminal (CI, pipes, notebooks) print one line per stage as it finishes
+    (:class:`_StageLines`)."""
     if not _interactive():
-        return fn(*args, progress=None, **kwargs)
+        return fn(*args, progress=_StageLines(), **kwargs)
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(), transient=True)
@@ -60,6 +85,38 @@ def _console():
     return Console(highlight=False, soft_wrap=True)
 
 
+def _plain_metavars(cmd):
+    """Show plain metavars in help (``DIR``, ``HZ``; nothing for flags) instead of type names
+    such as ``<bool>`` or ``<list[Path]>``; arguments show their name in the usage line."""
+    from typer.core import TyperArgument
+
+    for p in cmd.params:
+        if isinstance(p, TyperArgument):
+            piece = (p.metavar or p.name.upper()) + ("..." if p.nargs != 1 else "")
+            p.get_usage_pieces = (lambda ctx, _s=piece if p.required else f"[{piece}]": [_s])
+            p.display_type_rich = lambda ctx: ""
+        else:
+            shown = "" if getattr(p, "is_flag", False) else (p.metavar or p.name.upper())
+            p.display_type_rich = lambda ctx, _m=shown: _m
+    help_option = cmd.get_help_option
+
+    def plain_help_option(ctx, _get=help_option):
+        opt = _get(ctx)
+        if opt is not None:
+            opt.display_type_rich = lambda ctx: ""
+        return opt
+
+    cmd.get_help_option = plain_help_option
+    for sub in getattr(cmd, "commands", {}).values():
+        _plain_metavars(sub)
+    return cmd
+
+
+def cli_command():
+    """The click command behind :data:`app`, with plain metavars in its help."""
+    return _plain_metavars(typer.main.get_command(app))
+
+
 def _print_version(value: bool):
     if value:
         typer.echo(f"stimkit {__version__}")
@@ -77,17 +134,23 @@ def _root(
 
 @app.command()
 def plan(
-    scores: List[Path] = typer.Argument(..., help="Score files (.musicxml, .xml, .mxl, .mid)."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
+    scores: List[Path] = typer.Argument(..., metavar="SCORE", help="Score files (.musicxml, .xml, .mxl, .mid)."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
     no_repeats: bool = typer.Option(False, "--no-repeats", help="Keep printed order; do not expand repeats."),
-    gap_s: float = typer.Option(30.0, "--gap", help="Seconds between pieces in the programme plan."),
+    gap_s: float = typer.Option(30.0, "--gap", metavar="S", help="Seconds between pieces in the programme plan."),
+    kinds: Optional[str] = typer.Option(None, "--kinds", metavar="KIND,KIND",
+                                        help="Cue sheet: show only these boundary kinds, e.g. "
+                                             "dynamic,tempo,tempo_change (the tables keep all)."),
 ):
     """Boundaries and nominal timeline per score, programme plan and cue sheet."""
     from .export.tables import protect_inputs
+    from .report.cuesheet import parse_kinds
     from .score.plan import make_plan, summary_tables
 
+    shown = parse_kinds(kinds) if kinds is not None else None
     with protect_inputs(scores):
-        result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s)
+        result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s,
+                           cue_kinds=shown)
     con = _console()
     for table in summary_tables(result):
         con.print(table)
@@ -97,9 +160,10 @@ def plan(
 
 @app.command()
 def features(
-    audio: Path = typer.Argument(..., help="Recording (WAV, FLAC, OGG, AIFF)."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
-    rate: float = typer.Option(1.0, "--rate", help="Frames per second of the feature table (up to 100)."),
+    audio: Path = typer.Argument(..., metavar="AUDIO", help="Recording (WAV, FLAC, OGG, AIFF)."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
+    rate: float = typer.Option(DEFAULT_FEATURE_RATE_HZ, "--rate", metavar="HZ",
+                               help="Frames per second of the feature table (up to 100)."),
 ):
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
@@ -125,10 +189,10 @@ def _repeats_option(value: str) -> str:
 
 @app.command()
 def align(
-    score: Path = typer.Argument(..., help="Score file."),
-    audio: Path = typer.Argument(..., help="Recording of a performance of that score."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
-    anchor: List[str] = typer.Option([], "--anchor", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
+    score: Path = typer.Argument(..., metavar="SCORE", help="Score file."),
+    audio: Path = typer.Argument(..., metavar="AUDIO", help="Recording of a performance of that score."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
+    anchor: List[str] = typer.Option([], "--anchor", metavar="M[.B][@P]=S", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
     force: bool = typer.Option(False, "--force", help="Write the alignment even when it looks like a wrong piece."),
     repeats: str = typer.Option("auto", "--repeats", metavar="auto|all|none",
                                 help="Which repeats were played: decide from the recording (auto), all as written, or none."),
@@ -150,10 +214,19 @@ def align(
 
 @app.command()
 def annotate(
-    session: Optional[Path] = typer.Argument(None, help="Session file (TOML)."),
-    score: List[Path] = typer.Option([], "--score", help="One-piece shortcut: the score (repeat for several)."),
-    audio: Optional[Path] = typer.Option(None, "--audio", help="One-piece shortcut: the recording."),
-    out: Optional[Path] = typer.Option(None, "-o", "--out", help="Output folder (overrides the session file)."),
+    session: Optional[Path] = typer.Argument(None, metavar="SESSION", help="Session file (TOML)."),
+    score: List[Path] = typer.Option([], "--score", metavar="FILE",
+                                     help="Shortcut without a session file: a score (repeat for several, in the order played)."),
+    audio: Optional[Path] = typer.Option(None, "--audio", metavar="FILE", help="Shortcut: the recording."),
+    out: Optional[Path] = typer.Option(None, "-o", "--out", metavar="DIR", help="Output folder (overrides the session file)."),
+    rate: Optional[float] = typer.Option(None, "--rate", metavar="HZ",
+                                         help=f"Frames per second of the continuous features (default "
+                                              f"{DEFAULT_FEATURE_RATE_HZ:g}; overrides the session file)."),
+    anchor: List[str] = typer.Option([], "--anchor", metavar="M[.B][@P]=S",
+                                     help="Shortcut with one --score: bar M (beat B, pass P) sounded at S "
+                                          "seconds of the recording; repeatable."),
+    force: bool = typer.Option(False, "--force",
+                               help="Keep an alignment that looks like a wrong piece (a warning says so)."),
     template: bool = typer.Option(False, "--template", help="Print a commented starter session file."),
     repeats: Optional[str] = typer.Option(None, "--repeats", metavar="auto|all|none",
                                           help="Which repeats were played (overrides the session file; default auto)."),
@@ -169,11 +242,19 @@ def annotate(
     if session is None:
         if not score or audio is None:
             raise InputError("give a session file, or both --score and --audio (see --template)")
-        sess = session_from_files(score, audio, out_dir=out)
+        sess = session_from_files(score, audio, out_dir=out, rate_hz=rate, anchors=anchor, force=force)
         command = ["stimkit", "annotate"] + [a for s in score for a in ("--score", str(s))] + ["--audio", str(audio)]
+        command += [a for x in anchor for a in ("--anchor", x)]
     else:
-        sess = load_session(session, out_dir=out)
+        if anchor:
+            raise InputError("--anchor goes with --score/--audio; in a session file write anchors = [...] "
+                             "in the piece's [[piece]] table", path=session)
+        sess = load_session(session, out_dir=out, rate_hz=rate, force=force or None)
         command = ["stimkit", "annotate", str(session)]
+    if rate is not None:
+        command += ["--rate", f"{rate:g}"]
+    if force:
+        command.append("--force")
     if out is not None:
         command += ["-o", str(out)]
     if repeats is not None:
@@ -189,7 +270,7 @@ def annotate(
 
 @app.command()
 def demo(
-    out: Path = typer.Option(Path("demo-output"), "-o", "--out", help="Output folder."),
+    out: Path = typer.Option(Path("demo-output"), "-o", "--out", metavar="DIR", help="Output folder."),
 ):
     """Run the main job on the bundled scenario (two original pieces, a rendered session)."""
     from .demo.run import run_demo
@@ -300,7 +381,7 @@ def main(argv: list[str] | None = None) -> int:
     _STATE["debug"] = False
     try:
         with _stop_signals_installed():
-            code = app(args=argv, standalone_mode=False, prog_name="stimkit")
+            code = cli_command()(args=argv, prog_name="stimkit", standalone_mode=False)
     except no_args as exc:  # bare `stimkit` or a verb without args
         exc.show()
         return 0

@@ -33,13 +33,21 @@ from .errors import InputError
 __all__ = [
     "Session", "PieceSpec", "SyncSpec", "SessionFileError",
     "load_session", "parse_session_text", "session_from_files", "template_text",
-    "annotate_session", "summary_lines", "key_lines",
+    "annotate_session", "summary_lines", "key_lines", "DEFAULT_FEATURE_RATE_HZ",
 ]
+
+#: Frames per second of the continuous features when neither the session file nor ``--rate``
+#: says otherwise; the same default for ``stimkit features`` and ``stimkit annotate``. Ten rows
+#: per second resolve the 0.4 s momentary-loudness window (EBU Tech 3341) and are a common
+#: sampling rate for skin-conductance and respiration analyses, while a 2-hour session stays at
+#: 72 000 rows.
+DEFAULT_FEATURE_RATE_HZ = 10.0
 
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
-_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "bids", "sync", "piece"}
+_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "check_audio",
+             "bids", "sync", "piece"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
@@ -99,10 +107,11 @@ class Session:
     pieces: list[PieceSpec]
     sync: SyncSpec = field(default_factory=SyncSpec)
     bids: dict = field(default_factory=dict)
-    rate_hz: float = 10.0
+    rate_hz: float = DEFAULT_FEATURE_RATE_HZ
     out_dir: Path = Path("annotated")
     expand_repeats: bool = True
     force: bool = False
+    check_audio: bool = True   # write check-by-ear.flac beside the report
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
 
@@ -158,8 +167,10 @@ def _is_number(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))
 
 
-def load_session(path: str | Path, *, out_dir: str | Path | None = None) -> Session:
-    """Read and validate a session file; ``out_dir`` overrides its ``output``.
+def load_session(path: str | Path, *, out_dir: str | Path | None = None, rate_hz: float | None = None,
+                 force: bool | None = None) -> Session:
+    """Read and validate a session file; ``out_dir``, ``rate_hz`` and ``force`` (when given)
+    override its ``output``, ``feature_rate_hz`` and ``force``.
 
     Raises :class:`SessionFileError` (an :class:`InputError`, exit 2) listing every problem with
     its line, or :class:`InputError` when the file cannot be read or is not TOML.
@@ -172,7 +183,18 @@ def load_session(path: str | Path, *, out_dir: str | Path | None = None) -> Sess
                          "prints a starter file)", path=path) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the session file ({exc}); it must be UTF-8 TOML", path=path) from None
-    return parse_session_text(text, base_dir=path.parent, source=path, out_dir=out_dir)
+    sess = parse_session_text(text, base_dir=path.parent, source=path, out_dir=out_dir)
+    if rate_hz is not None:
+        sess.rate_hz = _check_rate(rate_hz)
+    if force is not None:
+        sess.force = bool(force)
+    return sess
+
+
+def _check_rate(rate_hz) -> float:
+    if not _is_number(rate_hz) or not 0 < float(rate_hz) <= 100:
+        raise InputError(f"--rate must be a number of frames per second in (0, 100], got {rate_hz}")
+    return float(rate_hz)
 
 
 def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
@@ -213,16 +235,16 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
             bad(f"recording '{rec}' is not an audio file ({', '.join(AUDIO_SUFFIXES)})", key="recording")
 
     # scalars
-    rate = data.get("feature_rate_hz", 10.0)
+    rate = data.get("feature_rate_hz", DEFAULT_FEATURE_RATE_HZ)
     if not _is_number(rate) or not 0 < float(rate) <= 100:
         bad("'feature_rate_hz' must be a number of frames per second in (0, 100]", key="feature_rate_hz")
-        rate = 10.0
+        rate = DEFAULT_FEATURE_RATE_HZ
     output = data.get("output", "annotated")
     if not isinstance(output, str) or not output.strip():
         bad("'output' must be a folder name in quotes", key="output")
         output = "annotated"
     flags = {}
-    for k, default in (("expand_repeats", True), ("force", False)):
+    for k, default in (("expand_repeats", True), ("force", False), ("check_audio", True)):
         v = data.get(k, default)
         if not isinstance(v, bool):
             bad(f"'{k}' must be true or false", key=k)
@@ -249,6 +271,10 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
                 bad(f"[bids] {k} must be a text or a whole number", "bids", 0, k)
                 continue
             s = str(v)
+            if k == "run" and not re.fullmatch(r"[0-9]+", s):
+                # BIDS 1.11 entity table: run-<index>, an index is a non-negative integer
+                bad(f"[bids] run = {v!r} must be a whole number such as 1 (BIDS run index)", "bids", 0, k)
+                continue
             if not re.fullmatch(r"[A-Za-z0-9]+", s):
                 bad(f"[bids] {k} = '{s}' may hold only letters and digits (BIDS labels)", "bids", 0, k)
                 continue
@@ -401,6 +427,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
     out = Path(out_dir) if out_dir is not None else rel(output)
     return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
                    out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
+                   check_audio=flags["check_audio"],
                    source=source, repeats=repeats)
 
 
@@ -412,9 +439,23 @@ def _stem(p: Path) -> str:
     return p.stem
 
 
-def session_from_files(scores, audio, *, out_dir=None) -> Session:
-    """The ``--score S --audio A`` shortcut: pieces in the order given, no sync, default rate."""
+def session_from_files(scores, audio, *, out_dir=None, rate_hz: float | None = None,
+                       anchors=(), force: bool = False) -> Session:
+    """The ``--score S --audio A`` shortcut: pieces in the order given, no sync.
+
+    ``rate_hz`` (default :data:`DEFAULT_FEATURE_RATE_HZ`), ``anchors`` (``MEASURE[.BEAT][@PASS]=SECONDS``
+    texts, only with one score) and ``force`` mean what the session file's keys of the same
+    names mean."""
     scores = [Path(s) for s in scores]
+    anchors = list(anchors)
+    rate = DEFAULT_FEATURE_RATE_HZ if rate_hz is None else _check_rate(rate_hz)
+    if anchors and len(scores) != 1:
+        raise InputError("--anchor needs exactly one --score; for several pieces write anchors = [...] "
+                         "in each [[piece]] table of a session file (see --template)")
+    for a in anchors:
+        if not _ANCHOR.match(a):
+            raise InputError(f"--anchor '{a}' is not MEASURE[.BEAT][@PASS]=SECONDS "
+                             "(e.g. 12.3=61.5, or 8@2=40 for the repeat of bar 8)")
     audio = Path(audio)
     problems: list[tuple[int | None, str]] = []
     if not audio.is_file():
@@ -427,8 +468,9 @@ def session_from_files(scores, audio, *, out_dir=None) -> Session:
         problems.append((None, "two scores have the same file name; use a session file to name them"))
     if problems:
         raise SessionFileError(None, problems)
-    pieces = [PieceSpec(score=s, name=n) for s, n in zip(scores, names)]
-    return Session(recording=audio, pieces=pieces,
+    pieces = [PieceSpec(score=s, name=n, anchors=list(anchors) if len(scores) == 1 else [])
+              for s, n in zip(scores, names)]
+    return Session(recording=audio, pieces=pieces, rate_hz=rate, force=bool(force),
                    out_dir=Path(out_dir) if out_dir is not None else Path("."), source=None)
 
 
@@ -447,7 +489,7 @@ recording = "session.flac"
 # Where the outputs go (created if needed; `-o DIR` on the command line overrides it).
 output = "annotated"
 
-# Rows per second of the continuous feature file (_stim.tsv.gz), up to 100.
+# Rows per second of the continuous feature file (_stim.tsv.gz), up to 100 (default 10).
 feature_rate_hz = 10
 
 # Which repeats the performers played: "auto" (decide from the recording, for every repeat sign,
@@ -457,6 +499,10 @@ repeats = "auto"
 
 # Keep an alignment that looks like the wrong piece instead of stopping (use with care).
 force = false
+
+# Write check-by-ear.flac beside the report: the recording with clicks at the placed bars and
+# boundaries, to verify the alignment by listening (about 1.2 MB per minute of recording).
+check_audio = true
 
 # BIDS naming of the outputs: sub-<subject>_ses-<session>_task-<task>_run-<run>_events.tsv.
 # All optional; letters and digits only.

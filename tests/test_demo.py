@@ -71,7 +71,7 @@ def events(out):
 def test_all_outputs_written(out):
     names = {p.name for p in (out / DATA).iterdir()}
     for suffix in ("_events.tsv", "_events.json", "_stim.tsv.gz", "_stim.json", "_beats.tsv",
-                   "_provenance.json", "_report.html", "_report.png"):
+                   "_provenance.json", "_report.html", "_report.png", "_check-by-ear.flac"):
         assert BASE + suffix in names
     top = {p.name for p in out.iterdir()}
     assert top == {"dataset_description.json", ".bidsignore", "sub-demo"}  # no temporary left
@@ -231,11 +231,25 @@ def test_provenance_records_inputs_and_settings(out):
     assert "timings_s" in prov and prov["settings"]["feature_rate_hz"] == asked
 
 
+def test_outputs_name_no_machine_folder(runs):
+    # paths are written relative to the session file's folder (docs/session-and-outputs.md)
+    repo = str(DEMO.resolve().parent)
+    for out in runs:
+        for f in out.rglob("*"):
+            if f.suffix in (".json", ".tsv", ".html"):
+                text = f.read_text("utf-8")
+                assert repo not in text and str(out.parent) not in text, f.name
+    prov = json.loads((runs[0] / DATA / f"{BASE}_provenance.json").read_text())
+    assert prov["inputs"]["recording"]["path"] == "demo-session.flac"
+    assert prov["settings"]["output"] == "."
+
+
 def test_report_is_self_contained(out):
     html = (out / DATA / f"{BASE}_report.html").read_text()
-    assert "data:image/png;base64," in html
-    assert "http://" not in html and "https://" not in html
+    assert html.count("<svg") == 3                     # the overview and one panel per piece
+    assert "http://" not in html and "https://" not in html and "<script src" not in html
     assert (out / DATA / f"{BASE}_report.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
+    assert (out / DATA / f"{BASE}_check-by-ear.flac").read_bytes()[:4] == b"fLaC"          # FLAC stream marker
 
 
 def test_demo_prints_a_summary(runs, truth):

@@ -179,7 +179,8 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
     }
 
 
-def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.0) -> PlanResult:
+def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.0,
+              cue_kinds=None) -> PlanResult:
     """Plan a session from one or more scores and write the plan files.
 
     Parameters
@@ -192,6 +193,8 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
         Expand repeats into the performed order (default True).
     gap_s : float
         Seconds between pieces in the programme (>= 0).
+    cue_kinds : list of str, optional
+        Boundary kinds shown in the cue sheet (default all); the boundary tables keep every row.
 
     Returns
     -------
@@ -226,7 +229,8 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
                                             "boundaries", "warnings", "file"])
     from ..report.cuesheet import cue_sheet_html
 
-    html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s))
+    html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s),
+                          kinds=cue_kinds)
     check_output_dir(out)
     fmt = {"column_formats": {"beat": "%.3f", "score_qn": "%.4f", "end_qn": "%.4f", "nominal": "%.3f",
                               "nominal_end": "%.3f", "programme": "%.3f", "value": "%.4g"}}

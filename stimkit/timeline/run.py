@@ -121,10 +121,11 @@ def _confidence_fn(result):
     return lambda q: confidence_at(result, np.asarray(q, dtype=np.float64))
 
 
-def _regions(result) -> list[tuple[float, float]]:
-    """Low-confidence regions of an alignment as ``(start, end)`` recording seconds: its flagged
-    regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
-    out = [(float(r["start"]), float(r["end"])) for r in result.regions]
+def _regions(result) -> list[tuple[float, float, str]]:
+    """Low-confidence regions of an alignment as ``(start, end, reason)`` recording seconds: its
+    flagged regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
+    out = [(float(r["start"]), float(r["end"]), str(r.get("reason") or r.get("kind") or ""))
+           for r in result.regions]
     loc = result.local
     if len(loc):
         q = loc["score_qn"].to_numpy(dtype=np.float64)
@@ -132,8 +133,8 @@ def _regions(result) -> list[tuple[float, float]]:
         edges = np.diff(np.r_[0, low.astype(int), 0])
         for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
             r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
-            out.append((float(r[0]), float(max(r[1], r[0] + 0.1))))
-    out = [(s, e) for s, e in out if math.isfinite(s) and math.isfinite(e) and e > s]
+            out.append((float(r[0]), float(max(r[1], r[0] + 0.1)), "low local confidence"))
+    out = [(s, e, why) for s, e, why in out if math.isfinite(s) and math.isfinite(e) and e > s]
     return sorted(out)
 
 
@@ -185,6 +186,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         now = time.perf_counter()
         timings[name] = timings.get(name, 0.0) + now - clock0
         clock0 = now
+        if progress is not None:  # a stage finished: lets a piped CLI print one line per stage
+            progress(name, 1.0)
 
     check_outputs_against_inputs(session)  # never write over an input (before any work)
     info = audio_info(session.recording)
@@ -250,7 +253,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     tables = []
     beats = []
     pieces_out: list[PieceResult] = []
-    low_conf: list[tuple[float, float]] = []
+    low_conf: list[tuple[float, float, str]] = []
     for p, sp, res in zip(session.pieces, spans, aligned):
         sc = res.score       # the score in the order performed (repeats as decided)
         to_rec = _timemap_call(res.timemap)
@@ -339,8 +342,10 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
     c = result.clock
     if c.method == "marks":
+        res = ("residuals zero by construction (two marks fix offset and drift exactly)"
+               if c.recording_s.size == 2 else f"largest residual {c.max_residual_s * 1000:.2f} ms")
         lines.append(f"clock: {c.recording_s.size} sync marks, offset {c.offset_s:.4f} s, drift "
-                     f"{c.drift_ppm:+.2f} ppm, largest residual {c.max_residual_s * 1000:.2f} ms")
+                     f"{c.drift_ppm:+.2f} ppm, {res}")
     elif c.method == "offset":
         lines.append(f"clock: stated offset {c.offset_s:.4f} s, no drift")
     else:
