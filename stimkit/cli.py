@@ -268,6 +268,79 @@ def annotate(
         con.print(line)
 
 
+def _numbers(text: str, what: str, cast=float) -> tuple:
+    try:
+        return tuple(cast(v) for v in text.split(",") if v.strip())
+    except ValueError:
+        raise InputError(f"{what} must be comma-separated numbers, got '{text}'") from None
+
+
+@app.command()
+def relate(
+    handoff: Path = typer.Argument(..., help="The _events.tsv written by annotate, or its output folder."),
+    physio: List[Path] = typer.Argument(..., help="Physiological files: BIDS *_physio.tsv.gz (with .json) "
+                                        "or a beat table (time s, interval ms); one per participant."),
+    out: Path = typer.Option(Path("relate"), "-o", "--out", help="Output folder."),
+    stim: Optional[Path] = typer.Option(None, "--stim", help="The _stim.tsv.gz features (found beside the "
+                                        "events when a folder is given)."),
+    kind: str = typer.Option("rr", "--kind", help="rr, ari, other (per-beat values), ecg, eda or rsp (signals)."),
+    column: Optional[str] = typer.Option(None, "--column", help="Column of the physiological file."),
+    mode: Optional[str] = typer.Option(None, "--mode", help="BIDS beat column: value_at_beat, marker or waveform."),
+    participant: List[str] = typer.Option([], "--participant", help="Label per file, in order (default: "
+                                          "sub-<label> of the file name, else its name)."),
+    offset_s: float = typer.Option(0.0, "--offset-s", help="Seconds added to the file's times to put them on "
+                                   "the events' recorder clock."),
+    window_beats: str = typer.Option("20,80", "--window-beats", help="Window sizes in beats (comma-separated)."),
+    window_s: str = typer.Option("10,30", "--window-s", help="Window sizes in seconds for fixed-rate series."),
+    guard_s: float = typer.Option(0.0, "--guard-s", help="Gap after the boundary before the after window (s)."),
+    pseudo_boundaries: int = typer.Option(1000, "--pseudo-boundaries", help="K for the calibrated test."),
+    surrogates: int = typer.Option(1000, "--surrogates", help="R for every null (surrogates, shifts, sets)."),
+    music_source: str = typer.Option("events", "--music-changes", help="events (feature_change rows) or detect "
+                                     "(from the continuous features)."),
+    max_radius_s: float = typer.Option(10.0, "--max-radius-s", help="Largest coincidence radius h (grid of 0.5 s)."),
+    music_leads: bool = typer.Option(False, "--music-leads", help="Count a coincidence only when the physiological "
+                                     "change follows the music change (by --lag-s to --lag-s + h)."),
+    lag_s: float = typer.Option(0.0, "--lag-s", help="Physiological latency for --music-leads (s)."),
+    seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
+    jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
+):
+    """Relate physiological series to the music: boundary windows and change-point coincidence."""
+    from dataclasses import replace
+
+    from .physio.inputs import PhysioSpec, find_handoff, relate_files
+    from .physio.relate import RelateSettings
+
+    if handoff.is_dir():
+        events_path, found_stim = find_handoff(handoff)
+        stim = stim or found_stim
+    else:
+        events_path = handoff
+    if participant and len(participant) != len(physio):
+        raise InputError(f"give one --participant per physiological file ({len(physio)}), or none")
+    if not 1 <= jobs <= 64 or surrogates < 19 or pseudo_boundaries < 19:
+        raise InputError("--jobs must be 1-64; --surrogates and --pseudo-boundaries at least 19")
+    if not 0.5 <= max_radius_s <= 60:
+        raise InputError("--max-radius-s must be between 0.5 and 60 s")
+    h = tuple(round(0.5 * k, 1) for k in range(1, int(round(max_radius_s / 0.5)) + 1))
+    settings = replace(RelateSettings(), window_beats=_numbers(window_beats, "--window-beats", int),
+                       window_s=_numbers(window_s, "--window-s"), guard_s=guard_s, n_pseudo=pseudo_boundaries,
+                       n_share_null=surrogates, n_surrogates=surrogates, music_source=music_source,
+                       h_grid_s=h, n_jobs=jobs, coincidence_window="music_leads" if music_leads else "symmetric",
+                       lag_s=lag_s)
+    if music_source not in ("events", "detect"):
+        raise InputError("--music-changes must be events or detect")
+    specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
+                        participant=participant[i] if participant else None) for i, f in enumerate(physio)]
+    command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]
+    run = _with_progress(relate_files, events_path, specs, out_dir=out, stim_path=stim, settings=settings,
+                         seed=seed, command=command)
+    con = _console()
+    from .physio.summary import summary_lines
+
+    for line in summary_lines(run):
+        con.print(line)
+
+
 @app.command()
 def demo(
     out: Path = typer.Option(Path("demo-output"), "-o", "--out", metavar="DIR", help="Output folder."),

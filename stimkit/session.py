@@ -47,7 +47,8 @@ AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
 _TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "check_audio",
-             "bids", "sync", "piece"}
+             "bids", "sync", "piece",
+             "physio", "relate"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
@@ -114,6 +115,8 @@ class Session:
     check_audio: bool = True   # write check-by-ear.flac beside the report
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
+    physio: list = field(default_factory=list)   # stimkit.physio.inputs.PhysioSpec, one per [[physio]]
+    relate: dict = field(default_factory=dict)   # [relate] options (seed, surrogates, ...)
 
     def repeats_of(self, piece: "PieceSpec") -> str:
         """The repeats setting of ``piece``: its own, else the session's; ``printed`` when the
@@ -422,13 +425,79 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
     if any(b2[0] <= a2[0] for a2, b2 in zip(starts, starts[1:])):
         problems.append((None, "the pieces' start_s must increase in the order the pieces are listed"))
 
+    physio, relate_opts = _physio_tables(data, bad, rel)
+
     if problems:
         raise SessionFileError(source, problems)
     out = Path(out_dir) if out_dir is not None else rel(output)
     return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
                    out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
                    check_audio=flags["check_audio"],
-                   source=source, repeats=repeats)
+                   source=source, repeats=repeats, physio=physio, relate=relate_opts)
+
+
+_PHYSIO_KEYS = {"file", "kind", "column", "participant", "mode", "offset_s"}
+_RELATE_KEYS = {"seed", "surrogates", "pseudo_boundaries", "window_beats", "window_s", "jobs", "guard_s"}
+
+
+def _physio_tables(data: dict, bad, rel) -> tuple[list, dict]:
+    """The ``[[physio]]`` tables (one physiological file each) and the ``[relate]`` options."""
+    from .physio.inputs import PhysioSpec
+    from .physio.read import READ_KINDS
+
+    out = []
+    pl = data.get("physio", [])
+    if not isinstance(pl, list) or not all(isinstance(p, dict) for p in pl):
+        bad("'physio' must be written as [[physio]] tables (file, kind, column, participant)", key="physio")
+        pl = []
+    seen = set()
+    for i, p in enumerate(pl):
+        where = f"[[physio]] #{i + 1}"
+        for k in sorted(set(p) - _PHYSIO_KEYS):
+            bad(f"{where}: unknown key '{k}' (known: {', '.join(sorted(_PHYSIO_KEYS))})", "physio", i, k)
+        f = p.get("file")
+        if not isinstance(f, str) or not f.strip():
+            bad(f"{where}: missing file = \"participant_physio.tsv.gz\" (or a beat table)", "physio", i, "file")
+            continue
+        path = rel(f)
+        if not path.is_file():
+            bad(f"{where}: file '{f}' not found (looked for {path})", "physio", i, "file")
+        kind = p.get("kind", "rr")
+        if kind not in READ_KINDS:
+            bad(f"{where}: kind must be one of {', '.join(READ_KINDS)}", "physio", i, "kind")
+        for k in ("column", "participant", "mode"):
+            if k in p and (not isinstance(p[k], str) or not p[k].strip()):
+                bad(f"{where}: {k} must be a text in quotes", "physio", i, k)
+        if "mode" in p and p["mode"] not in ("value_at_beat", "marker", "waveform"):
+            bad(f"{where}: mode must be value_at_beat, marker or waveform", "physio", i, "mode")
+        off = p.get("offset_s", 0.0)
+        if not _is_number(off):
+            bad(f"{where}: offset_s must be a number of seconds (added to the file's times)", "physio", i,
+                "offset_s")
+            off = 0.0
+        label = p.get("participant")
+        key = (label or path.name, kind, p.get("column"))
+        if key in seen:
+            bad(f"{where}: the same participant and series is listed twice", "physio", i, "participant")
+        seen.add(key)
+        out.append(PhysioSpec(file=path, kind=kind, column=p.get("column"), participant=label,
+                              mode=p.get("mode"), offset_s=float(off)))
+    opts = data.get("relate", {})
+    if not isinstance(opts, dict):
+        bad("'relate' must be a table: [relate] with seed, surrogates, ...", key="relate")
+        opts = {}
+    for k in sorted(set(opts) - _RELATE_KEYS):
+        bad(f"unknown key '{k}' in [relate] (known: {', '.join(sorted(_RELATE_KEYS))})", "relate", 0, k)
+    for k, lo in (("seed", 0), ("surrogates", 19), ("pseudo_boundaries", 19), ("jobs", 1)):
+        if k in opts and (isinstance(opts[k], bool) or not isinstance(opts[k], int) or opts[k] < lo):
+            bad(f"[relate] {k} must be a whole number >= {lo}", "relate", 0, k)
+    for k in ("window_beats", "window_s"):
+        if k in opts and (not isinstance(opts[k], list) or not opts[k]
+                          or not all(_is_number(v) and v > 0 for v in opts[k])):
+            bad(f"[relate] {k} must be a list of positive numbers", "relate", 0, k)
+    if "guard_s" in opts and (not _is_number(opts["guard_s"]) or opts["guard_s"] < 0):
+        bad("[relate] guard_s must be a number of seconds >= 0", "relate", 0, "guard_s")
+    return out, dict(opts)
 
 
 def _stem(p: Path) -> str:
@@ -540,6 +609,17 @@ start_s = 45                 # optional rough start in the recording (seconds)
 
 [[piece]]
 score = "second-piece.musicxml"
+
+# Optional: physiological recordings of the participants, one [[physio]] table per file, on the
+# recorder clock (BIDS *_physio.tsv.gz with its .json, or a beat table: time s, interval ms).
+# annotate then relates each to the music (docs/physiology.md): results in <output>/physio/.
+# [[physio]]
+# file = "sub-01_physio.tsv.gz"
+# kind = "rr"                # rr, ari, other, ecg, eda, rsp
+# participant = "01"
+# [relate]
+# seed = 1
+# surrogates = 1000
 '''
 
 

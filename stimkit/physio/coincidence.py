@@ -42,7 +42,7 @@ import pandas as pd
 from scipy import stats
 
 from .changepoints import detect_times, feature_sets, music_trains, physio_changepoints
-from .surrogates import iaaft, shift_train
+from .surrogates import iaaft
 from .windows import adjust_pvalues
 
 __all__ = ["hit_counts", "eca_analytic", "null_inference", "exceedance_ranges", "surrogate_changepoints",
@@ -186,12 +186,63 @@ def surrogate_changepoints(segments, *, n: int, seed: np.random.SeedSequence, mi
 
 
 # ---------------------------------------------------------------------------------------------
-def _rates(ref_list, other_list, h, *, window, lag_s):
-    """(R, H) rates of each pair (ref_r, other_r); NaN where ref_r is empty."""
-    out = np.full((len(ref_list), h.size), np.nan)
-    for i, (r, o) in enumerate(zip(ref_list, other_list)):
-        if r.size:
-            out[i] = hit_counts(r, o, h, window=window, lag_s=lag_s) / r.size
+def _windows(ref, h, window, lag_s):
+    if window == "symmetric":
+        return ref[None, :] - h[:, None], ref[None, :] + h[:, None]
+    if window == "music_leads":
+        return ref[None, :] - lag_s - h[:, None], np.broadcast_to(ref[None, :] - lag_s, (h.size, ref.size))
+    return np.broadcast_to(ref[None, :] + lag_s, (h.size, ref.size)), ref[None, :] + lag_s + h[:, None]
+
+
+def _rates(ref_list, other_list, h, *, window, lag_s, block: int = 200):
+    """:func:`_rates_block` over blocks of ``block`` pairs (memory flat in the number of pairs)."""
+    shared_ref = isinstance(ref_list, np.ndarray)
+    R = len(other_list) if shared_ref else len(ref_list)
+    if R <= block:
+        return _rates_block(ref_list, other_list, h, window=window, lag_s=lag_s)
+    parts = []
+    for i in range(0, R, block):
+        r = ref_list if shared_ref else ref_list[i:i + block]
+        o = other_list if isinstance(other_list, np.ndarray) else other_list[i:i + block]
+        parts.append(_rates_block(r, o, h, window=window, lag_s=lag_s))
+    return np.vstack(parts)
+
+
+def _rates_block(ref_list, other_list, h, *, window, lag_s):
+    """(R, H) rates of each pair (ref_r, other_r); NaN where ref_r is empty.
+
+    ``ref_list`` or ``other_list`` may be one array shared by every pair. All pairs are
+    counted at once: with a shared ``other``, every reference event queries it directly; else
+    pair r is moved by r x a gap far larger than any time, so one concatenated, sorted array
+    answers every query (the same counts as :func:`hit_counts` pair by pair)."""
+    shared_ref = isinstance(ref_list, np.ndarray)
+    shared_oth = isinstance(other_list, np.ndarray)
+    R = len(other_list) if shared_ref else len(ref_list)
+    out = np.full((R, h.size), np.nan)
+    if R == 0:
+        return out
+    refs = [ref_list] * R if shared_ref else [np.asarray(r, np.float64) for r in ref_list]
+    n_ref = np.array([r.size for r in refs])
+    if n_ref.sum() == 0:
+        return out
+    owner = np.repeat(np.arange(R), n_ref)
+    if shared_oth:
+        ref = np.concatenate(refs)
+        oth = np.sort(np.asarray(other_list, np.float64))
+    else:
+        tops = [float(np.max(np.abs(a))) for a in refs + list(other_list) if np.size(a)]
+        gap = 4.0 * (max(tops + [1.0]) + float(np.max(h)) + abs(lag_s) + 1.0)
+        off = gap * np.arange(R, dtype=np.float64)
+        ref = np.concatenate([r + o for r, o in zip(refs, off)])
+        oth = np.concatenate([np.sort(np.asarray(a, np.float64)) + o for a, o in zip(other_list, off)])
+    k = np.zeros((R, h.size))
+    if oth.size:
+        lo, hi = _windows(ref, h, window, lag_s)
+        hit = (np.searchsorted(oth, hi, "right") - np.searchsorted(oth, lo, "left")) > 0
+        for j in range(h.size):
+            k[:, j] = np.bincount(owner, weights=hit[j], minlength=R)
+    ok = n_ref > 0
+    out[ok] = k[ok] / n_ref[ok, None]
     return out
 
 
@@ -261,15 +312,15 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
                     sur, u = nulls[method]
                     if method == "iaaft":
                         if ref == "physio":
-                            null = _rates(sur, [M] * len(sur), h, window=win_P, lag_s=s.lag_s)
+                            null = _rates(sur, M, h, window=win_P, lag_s=s.lag_s)
                         else:
-                            null = _rates([M] * len(sur), sur, h, window=win_M, lag_s=s.lag_s)
+                            null = _rates(M, sur, h, window=win_M, lag_s=s.lag_s)
                     else:
-                        shifted = [shift_train(M, span, ui) for ui in u]
+                        shifted = list(np.sort(span.from_axis(span.to_axis(M)[None, :] + u[:, None]), axis=1))
                         if ref == "physio":
-                            null = _rates([P] * len(u), shifted, h, window=win_P, lag_s=s.lag_s)
+                            null = _rates(P, shifted, h, window=win_P, lag_s=s.lag_s)
                         else:
-                            null = _rates(shifted, [P] * len(u), h, window=win_M, lag_s=s.lag_s)
+                            null = _rates(shifted, P, h, window=win_M, lag_s=s.lag_s)
                     inf = null_inference(rate, null, n_ref=n_ref)
                 for j, hj in enumerate(h):
                     curve_rows.append({

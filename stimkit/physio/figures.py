@@ -43,7 +43,7 @@ def _label(r) -> str:
     ms = "" if m is None or (isinstance(m, float) and math.isnan(m)) else f"m.{int(float(m))} "
     lab = "" if r.label is None or (isinstance(r.label, float) and math.isnan(r.label)) else f": {r.label}"
     text = f"{ms}{r.trial_type}{lab}"
-    return text if len(text) <= 42 else text[:41] + "…"
+    return text if len(text) <= 38 else text[:37] + "…"
 
 
 def forest_figure(tests: pd.DataFrame, summary: pd.DataFrame, *, title: str, unit: str = "ms",
@@ -52,47 +52,48 @@ def forest_figure(tests: pd.DataFrame, summary: pd.DataFrame, *, title: str, uni
     from matplotlib.figure import Figure
 
     ok = tests[tests["status"] == "ok"]
-    sizes = list(dict.fromkeys(tests["N"]))
+    sizes = list(dict.fromkeys(tests["N"])) or [0]
     nrows = max([int((ok["N"] == s).sum()) for s in sizes] + [1])
     nrows = min(nrows, max_rows)
-    h = 1.6 + 0.2 * nrows
-    fig = Figure(figsize=(5.2 * max(1, len(sizes)) + 1.2, h))
-    axes = fig.subplots(1, max(1, len(sizes)), squeeze=False)[0]
+    label_in, panel_in, row_in = 2.5, 3.6, 0.19
+    top_in, bottom_in = 0.85, 1.25
+    plot_h = max(row_in * nrows, 1.2)
+    W = (label_in + panel_in) * len(sizes) + 0.3
+    H = top_in + plot_h + bottom_in
+    fig = Figure(figsize=(W, H))
     wu = tests["window_unit"].iloc[0] if len(tests) else "beats"
-    for ax, size in zip(axes, sizes):
+    for k, size in enumerate(sizes):
+        x0 = (k * (label_in + panel_in) + label_in) / W
+        ax = fig.add_axes([x0, bottom_in / H, panel_in / W, plot_h / H])
         d = ok[ok["N"] == size].sort_values("onset", kind="mergesort").head(max_rows)
         y = np.arange(len(d))[::-1]
         for yi, r in zip(y, d.itertuples(index=False)):
             s = summary[(summary["N"] == size) & (summary["trial_type"] == r.trial_type)]
             if len(s) and np.isfinite(s["chance_delta_q05"].iloc[0]):
                 ax.plot([s["chance_delta_q05"].iloc[0], s["chance_delta_q95"].iloc[0]], [yi, yi],
-                        color=BAND, lw=7, solid_capstyle="butt", zorder=1)
+                        color=BAND, lw=6, solid_capstyle="butt", zorder=1)
             col = UP if r.delta > 0 else DOWN
             if np.isfinite(r.ci_low):
-                ax.plot([r.ci_low, r.ci_high], [yi, yi], color=col, lw=1.2, zorder=2)
+                ax.plot([r.ci_low, r.ci_high], [yi, yi], color=col, lw=1.1, zorder=2)
             sig = r.significant is True or r.significant == "true"
-            ax.plot([r.delta], [yi], "o", ms=5, mec=col, mfc=col if sig else "white", zorder=3)
+            ax.plot([r.delta], [yi], "o", ms=4.5, mec=col, mfc=col if sig else "white", zorder=3)
         ax.axvline(0, color="#444", lw=0.8)
         ax.set_yticks(y)
-        ax.set_yticklabels([_label(r) for r in d.itertuples(index=False)], fontsize=7)
+        ax.set_yticklabels([_label(r) for r in d.itertuples(index=False)], fontsize=6.5)
         ax.set_ylim(-0.8, max(len(d), 1) - 0.2)
-        ax.set_xlabel(f"after - before ({unit})", fontsize=8)
+        ax.set_xlabel(f"after - before ({unit})", fontsize=7.5)
         ax.tick_params(axis="x", labelsize=7)
-        caps = []
-        for r in summary[summary["N"] == size].itertuples(index=False):
-            if r.B:
-                caps.append(f"{r.trial_type}: {r.n_significant}/{r.B} significant; "
-                            f"share p<.05 {r.s_obs:.2f} vs chance q95 {r.null_q95:.2f}")
-        ax.set_title(f"window {size:g} {wu}", fontsize=9)
+        ax.set_title(f"window {size:g} {wu}", fontsize=8.5)
         if not len(d):
             ax.text(0.5, 0.5, "no boundary window fits inside the pieces", ha="center", va="center",
                     transform=ax.transAxes, fontsize=8, color="#666")
-        ax.text(0.0, -0.6 / h * 2.2 - 0.02, "\n".join(caps[:6]), transform=ax.transAxes, fontsize=6.5,
-                va="top", color="#333")
+        caps = [f"{r.trial_type}: {r.n_significant}/{r.B} significant; share p<.05 {r.s_obs:.2f} vs "
+                f"chance q95 {r.null_q95:.2f}" for r in summary[summary["N"] == size].itertuples(index=False)
+                if r.B]
+        fig.text((k * (label_in + panel_in) + 0.15) / W, (bottom_in - 0.45) / H, "\n".join(caps[:8]),
+                 fontsize=6, va="top", color="#333")
     fig.suptitle(title + "\nfilled = significant (BH on calibrated p); grey = 5-95 % of chance "
-                 "(pseudo-boundaries); red = after larger, blue = after smaller", fontsize=8.5)
-    fig.subplots_adjust(left=0.2 if len(sizes) == 1 else 0.12, right=0.98, top=1 - 0.75 / h,
-                        bottom=min(0.45, 1.3 / h), wspace=0.6)
+                 "(pseudo-boundaries); red = after larger, blue = after smaller", fontsize=8)
     return png_bytes(fig)
 
 
@@ -127,7 +128,7 @@ def coincidence_figure(curve: pd.DataFrame, summary: pd.DataFrame, *, title: str
             ax.plot(h, d["q50"], "--", color="#777", lw=0.9, label="null median")
             above = obs > d["q95"].to_numpy(float)
             for i in np.flatnonzero(above):
-                ax.axvspan(h[i] - 0.25, h[i] + 0.25, color="#f3d9a6", alpha=0.6, lw=0, zorder=0)
+                ax.axvspan(h[i] - 0.25, h[i] + 0.25, color="#e8b04a", alpha=0.3, lw=0, zorder=1.5)
         ax.plot(h, d["p_hit"], ":", color="#555", lw=1.0, label="analytic p_hit")
         ax.plot(h, obs, "-o", color="#1d2a36", ms=2.5, lw=1.2, label="observed")
         s = summary[(summary["feature_set"] == name) & (summary["reference"] == reference) &

@@ -2,11 +2,10 @@
 
 What it does
 ------------
-- :func:`read_events` -- the ``_events.tsv`` (``n/a`` missing), checked for ``onset``,
-  ``duration``, ``trial_type`` and at least one ``piece`` row.
-- :func:`read_stim` -- the continuous ``_stim.tsv.gz`` with its ``_stim.json``: column names
-  from the sidecar's ``Columns`` (never assumed), rows at ``StartTime + k / SamplingFrequency``
-  on the recorder clock (the index, named ``onset``).
+- :func:`read_events` -- the ``_events.tsv`` through :func:`stimkit.io.read_events`, checked
+  for ``onset``, ``duration``, ``trial_type`` and at least one ``piece`` row.
+- :func:`read_stim` -- the continuous ``_stim.tsv.gz`` + ``_stim.json`` through
+  :func:`stimkit.io.read_stim` (column names from the sidecar, index ``onset``).
 - :func:`find_handoff` -- the events and stim files inside an annotate output folder.
 - :func:`relate_files` -- every :class:`PhysioSpec` read and checked first (bad input stops the
   run before any work), then :func:`stimkit.physio.relate.relate` per series with its own child
@@ -15,19 +14,16 @@ What it does
 
 from __future__ import annotations
 
-import json
-import math
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
 
 from ..errors import InputError
 
 __all__ = ["PhysioSpec", "RelateRun", "read_events", "read_stim", "find_handoff", "relate_files",
-           "participant_label", "read_series"]
+           "participant_label", "read_series", "settings_from_options"]
 
 
 @dataclass
@@ -61,14 +57,12 @@ def participant_label(path: Path) -> str:
 
 
 def read_events(path) -> pd.DataFrame:
-    """The annotate event table (see module notes)."""
+    """The annotate event table (:func:`stimkit.io.read_events`), checked for what relate needs:
+    ``onset``, ``duration``, ``trial_type`` and at least one ``piece`` row."""
+    from ..io import read_events as _read
+
     path = Path(path)
-    if not path.is_file():
-        raise InputError("events file not found; give the _events.tsv written by stimkit annotate", path=path)
-    try:
-        ev = pd.read_csv(path, sep="\t", na_values=["n/a"], keep_default_na=False)
-    except (OSError, ValueError, pd.errors.ParserError) as exc:
-        raise InputError(f"cannot read the events table ({' '.join(str(exc).split())[:120]})", path=path) from None
+    ev = _read(path)
     for c in ("onset", "duration", "trial_type"):
         if c not in ev.columns:
             raise InputError(f"the events table has no '{c}' column (is it a BIDS _events.tsv?)", path=path)
@@ -79,33 +73,10 @@ def read_events(path) -> pd.DataFrame:
 
 
 def read_stim(path) -> pd.DataFrame:
-    """The continuous features indexed by ``onset`` (see module notes)."""
-    path = Path(path)
-    name = path.name
-    side = path.with_name(name[: -len(".tsv.gz")] + ".json") if name.endswith(".tsv.gz") else path.with_suffix(".json")
-    if not path.is_file():
-        raise InputError("continuous features file not found", path=path)
-    if not side.is_file():
-        raise InputError(f"sidecar {side.name} not found beside the continuous features", path=path)
-    try:
-        meta = json.loads(side.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot read the sidecar as JSON ({exc})", path=side) from None
-    for key in ("SamplingFrequency", "StartTime", "Columns"):
-        if key not in meta:
-            raise InputError(f"sidecar lacks the required key '{key}'", path=side)
-    fs, start, cols = meta["SamplingFrequency"], meta["StartTime"], meta["Columns"]
-    if not isinstance(fs, (int, float)) or not math.isfinite(fs) or fs <= 0:
-        raise InputError("SamplingFrequency must be a positive number", path=side)
-    try:
-        df = pd.read_csv(path, sep="\t", header=None, na_values=["n/a"], keep_default_na=False)
-    except (OSError, ValueError, EOFError, pd.errors.ParserError) as exc:
-        raise InputError(f"cannot read the continuous features ({exc})", path=path) from None
-    if df.shape[1] != len(cols):
-        raise InputError(f"{df.shape[1]} columns but the sidecar lists {len(cols)}", path=path)
-    df.columns = [str(c) for c in cols]
-    df.index = pd.Index(float(start) + np.arange(len(df)) / float(fs), name="onset")
-    return df
+    """The continuous features indexed by ``onset`` (:func:`stimkit.io.read_stim`)."""
+    from ..io import read_stim as _read
+
+    return _read(path)
 
 
 def find_handoff(folder) -> tuple[Path, Path | None]:
@@ -118,6 +89,31 @@ def find_handoff(folder) -> tuple[Path, Path | None]:
     base = ev[0].name[: -len("_events.tsv")]
     stim = folder / f"{base}_stim.tsv.gz"
     return ev[0], stim if stim.is_file() else None
+
+
+def settings_from_options(opts: dict, base=None):
+    """RelateSettings from a session file's ``[relate]`` table (``surrogates``,
+    ``pseudo_boundaries``, ``window_beats``, ``window_s``, ``guard_s``, ``jobs``; ``seed`` is
+    passed separately)."""
+    from dataclasses import replace
+
+    from .relate import RelateSettings
+
+    s = base or RelateSettings()
+    kw = {}
+    if "surrogates" in opts:
+        kw.update(n_surrogates=int(opts["surrogates"]), n_share_null=int(opts["surrogates"]))
+    if "pseudo_boundaries" in opts:
+        kw["n_pseudo"] = int(opts["pseudo_boundaries"])
+    if "window_beats" in opts:
+        kw["window_beats"] = tuple(int(v) for v in opts["window_beats"])
+    if "window_s" in opts:
+        kw["window_s"] = tuple(float(v) for v in opts["window_s"])
+    if "guard_s" in opts:
+        kw["guard_s"] = float(opts["guard_s"])
+    if "jobs" in opts:
+        kw["n_jobs"] = int(opts["jobs"])
+    return replace(s, **kw)
 
 
 def read_series(spec: PhysioSpec):
@@ -151,7 +147,6 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
     if len(set(keys)) != len(keys):
         raise InputError("two physiological files have the same participant and series; give each its "
                          "own participant label")
-    out_dir = check_output_dir(out_dir)
     kids = root_seed(seed).spawn(len(specs))
     results, warnings = [], []
     for spec, label, s, kid in zip(specs, labels, series, kids):
@@ -167,6 +162,7 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
         side = Path(spec.file).with_name(Path(spec.file).name.replace(".tsv.gz", ".json"))
         if side != Path(spec.file) and side.is_file():
             inputs[f"physio_sidecar:{label}:{side.name}"] = side
+    out_dir = check_output_dir(out_dir)  # only now: a refused input leaves no folder behind
     with OutputSet(out_dir) as outs:
-        written = write_relate(outs, results, inputs=inputs, out_dir=out_dir, command=command)
+        written = write_relate(outs, results, inputs=inputs, command=command)
     return RelateRun(results=results, written=[Path(w) for w in written], warnings=warnings, out_dir=out_dir)

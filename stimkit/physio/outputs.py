@@ -13,7 +13,8 @@ share and reliability, lag-1 autocorrelation, change points, warnings) and one
 Conventions
 -----------
 Tables are the concatenation over participants and series (a ``participant`` and a ``series``
-column identify the rows). Paths are written relative to the output folder, never absolute.
+column identify the rows). Input paths are written relative to the folder the command ran in (for annotate: the session
+file's folder), never absolute.
 Floats with 6 significant digits (times with 6 decimals); ``n/a`` for missing values.
 """
 
@@ -162,14 +163,14 @@ COLUMN_INFO = {
 }
 
 
-def relative_path(path, out_dir) -> str:
-    """``path`` relative to ``out_dir`` with forward slashes (never absolute)."""
-    return Path(os.path.relpath(Path(path).resolve(), Path(out_dir).resolve())).as_posix()
+def relative_path(path, base) -> str:
+    """``path`` relative to ``base`` with forward slashes (never absolute)."""
+    return Path(os.path.relpath(Path(path).resolve(), Path(base).resolve())).as_posix()
 
 
-def input_records(inputs: dict, out_dir) -> dict:
-    """Role -> {path (relative to the output folder), sha256, bytes}."""
-    return {role: {"path": relative_path(p, out_dir), "sha256": sha256_file(p), "bytes": Path(p).stat().st_size}
+def input_records(inputs: dict, base) -> dict:
+    """Role -> {path (relative to ``base``), sha256, bytes}."""
+    return {role: {"path": relative_path(p, base), "sha256": sha256_file(p), "bytes": Path(p).stat().st_size}
             for role, p in sorted(inputs.items())}
 
 
@@ -195,16 +196,22 @@ def _sidecar(name: str, table: pd.DataFrame, *, common: dict) -> dict:
 _FORMATS = {"time": "%.6f", "onset": "%.6f", "h": "%.1f"}
 
 
-def write_relate(outs, results, *, inputs: dict, out_dir, prefix: str = "", command=None,
-                 figures: bool = True) -> list[Path]:
-    """Stage every relate output of ``results`` (a list of RelateResult) in ``outs``."""
+def write_relate(outs, results, *, inputs: dict, paths_base=None, prefix: str = "", command=None,
+                 figures: bool = True, figures_out: dict | None = None) -> list[Path]:
+    """Stage every relate output of ``results`` (a list of RelateResult) in ``outs``.
+
+    Input paths are written relative to ``paths_base`` (default the current folder; annotate
+    passes the session file's folder, so the paths read as written in the session file).
+
+    ``figures_out``, when given, receives ``(participant, series) -> {"forest": png,
+    "coincidence": png}`` for a report page to embed."""
     from .. import __version__
 
     written = []
     names = ["physio_values", "boundary_tests", "boundary_summary", "changepoints_physio",
              "changepoints_music", "coincidence_curve", "coincidence_summary"]
     key = {"physio_values": "beats"}
-    ins = input_records(inputs, out_dir)
+    ins = input_records(inputs, paths_base if paths_base is not None else Path.cwd())  # relative paths
     settings = results[0].meta["settings"] if results else {}
     seeds = {f"{r.participant}/{r.series_name}": r.meta["seed"] for r in results}
     software = {"stimkit": __version__, "libraries": library_versions(
@@ -223,10 +230,12 @@ def write_relate(outs, results, *, inputs: dict, out_dir, prefix: str = "", comm
         fmt = {c: f for c, f in _FORMATS.items() if c in table.columns}
         written.append(outs.write_tsv(f"{prefix}{name}.tsv", table, float_format="%.6g", column_formats=fmt))
         written.append(outs.write_json(f"{prefix}{name}.json", _sidecar(name, table, common=common)))
+    base = paths_base if paths_base is not None else Path.cwd()
+    command = [relative_path(c, base) if os.path.isabs(str(c)) else str(c) for c in command] if command else None
     record = {
         "Description": "stimkit relate: physiological series against the music (research statistics; "
                        "association, not causation; not a clinical tool).",
-        "Command": [str(c) for c in command] if command else None,
+        "Command": command,
         "Series": [{k: v for k, v in r.meta.items() if k not in ("settings", "source_path")}
                    | {"warnings": list(r.warnings)} for r in results],
         **common,
@@ -239,14 +248,17 @@ def write_relate(outs, results, *, inputs: dict, out_dir, prefix: str = "", comm
             tag = f"{_safe(r.participant)}_{_safe(r.series_name)}"
             unit = r.meta.get("unit", "")
             title = f"participant {r.participant}, {r.series_name} ({r.meta.get('source', '')})"
+            figs = {}
             bt = r.tables.get("boundary_tests")
             if bt is not None and len(bt):
-                written.append(outs.write_bytes(
-                    f"{prefix}forest_{tag}.png",
-                    forest_figure(bt, r.tables["boundary_summary"], title=title, unit=unit)))
+                figs["forest"] = forest_figure(bt, r.tables["boundary_summary"], title=title, unit=unit)
+                written.append(outs.write_bytes(f"{prefix}forest_{tag}.png", figs["forest"]))
             cc = r.tables.get("coincidence_curve")
             if cc is not None and len(cc):
                 png = coincidence_figure(cc, r.tables["coincidence_summary"], title=title)
                 if png is not None:
+                    figs["coincidence"] = png
                     written.append(outs.write_bytes(f"{prefix}coincidence_{tag}.png", png))
+            if figures_out is not None:
+                figures_out[(r.participant, r.series_name)] = figs
     return written

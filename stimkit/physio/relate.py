@@ -27,7 +27,7 @@ import pandas as pd
 from ..errors import InputError
 from .artefacts import REASONS, artefact_share, flag_artefacts, gap_free_segments
 from .series import BeatSeries
-from .span import Span, span_from_events
+from .span import span_from_events
 from .windows import (BOUNDARY_SUMMARY_COLUMNS, BOUNDARY_TEST_COLUMNS, WindowSetup, boundary_table,
                       family_tests, lag1_autocorrelation)
 
@@ -81,7 +81,6 @@ class RelateSettings:
     iaaft_tol: float = 1e-6
     min_cp_physio: int = 5
     min_cp_music: int = 3
-    crop_margin_s: float = 30.0
     n_jobs: int = 1
 
     def to_dict(self) -> dict:

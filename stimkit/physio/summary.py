@@ -36,7 +36,8 @@ def series_lines(r) -> list[str]:
     cs = r.tables.get("coincidence_summary")
     if cs is not None and len(cs):
         main = cs[(cs["reference"] == "physio") & (cs["null_method"].isin(["iaaft", "none"]))]
-        shown = main[(main["feature_set"] == "all") | (main["p_global"] < 0.1)]
+        pairs = main["feature_set"].str.contains("+", regex=False)
+        shown = main[(main["feature_set"] == "all") | ((main["p_global"] < 0.1) & ~pairs)]
         n_p = int(main["n_P"].iloc[0]) if len(main) else 0
         out.append(f"  change points: {n_p} in the series inside the pieces; {len(main)} music feature "
                    f"set(s) tested")
@@ -44,6 +45,10 @@ def series_lines(r) -> list[str]:
             sig = " SIGNIFICANT" if row.significant is True else ""
             out.append(f"  coincidence {row.feature_set} ({row.n_M} music CPs): above the null 95th pct at "
                        f"{row.exceedance_ranges}; p_global {_fmt_p(row.p_global)}, q {_fmt_p(row.q_bh)}{sig}")
+        n_pairs = int(pairs.sum())
+        if n_pairs:
+            n_sig = int(main.loc[pairs, "significant"].map(lambda v: v is True).sum())
+            out.append(f"  feature pairs: {n_sig} of {n_pairs} significant (coincidence_summary.tsv)")
     return out
 
 

@@ -39,7 +39,7 @@ def iaaft(x, rng: np.random.Generator, *, max_iter: int = 500, tol: float = 1e-6
     amp = np.abs(np.fft.rfft(x))
     norm = float(np.sqrt(np.sum(amp ** 2))) or 1.0
     s = rng.permutation(x)
-    ranks = None
+    order = None
     prev_err = np.inf
     it = 0
     for it in range(1, max_iter + 1):
@@ -47,14 +47,15 @@ def iaaft(x, rng: np.random.Generator, *, max_iter: int = 500, tol: float = 1e-6
         mag = np.abs(spec)
         err = float(np.sqrt(np.sum((mag - amp) ** 2))) / norm
         phase = np.where(mag > 0, spec / np.where(mag > 0, mag, 1.0), 1.0)
-        s = np.fft.irfft(amp * phase, n)
-        new_ranks = np.argsort(np.argsort(s, kind="stable"), kind="stable")
-        s = sorted_x[new_ranks]
-        if ranks is not None and np.array_equal(new_ranks, ranks):
+        y = np.fft.irfft(amp * phase, n)
+        new_order = np.argsort(y, kind="stable")
+        s = np.empty(n)
+        s[new_order] = sorted_x  # the rank step: the k-th smallest of y gets the k-th smallest value
+        if order is not None and np.array_equal(new_order, order):
             break
         if np.isfinite(prev_err) and abs(prev_err - err) <= tol * max(err, 1e-300):
             break
-        ranks = new_ranks
+        order = new_order
         prev_err = err
     return s, it
 

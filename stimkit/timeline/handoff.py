@@ -16,10 +16,12 @@ Layout (:func:`output_layout`)
   ``.bidsignore`` at its top, and every file of the run in ``sub-<s>/[ses-<x>/]beh/`` named
   ``<base>_...``: the BIDS files ``_events.tsv/.json`` and ``_stim.tsv.gz/.json``, and beside
   them the files BIDS does not define, ``_beats.tsv/.json``, ``_report.html/.png``,
-  ``_check-by-ear.flac`` and ``_provenance.json``, which ``.bidsignore`` hides from validators. Several sessions and runs
+  ``_check-by-ear.flac``, ``_provenance.json`` and the physiology results in the folder
+  ``<base>_relate/``, which ``.bidsignore`` hides from validators. Several sessions and runs
   can share one output folder without overwriting each other.
 - Without a subject the layout is flat: all files in the output folder, with ``report.html``,
-  ``report.png``, ``check-by-ear.flac`` and ``provenance.json`` under those plain names.
+  ``report.png``, ``check-by-ear.flac``, ``provenance.json`` and the folder ``physio/`` under
+  those plain names.
 
 Conventions
 -----------
@@ -76,6 +78,8 @@ class HandoffData:
     warnings: list[str]
     timings: dict
     settings: dict = field(default_factory=dict)  # extra settings of the chain
+    physio: list = field(default_factory=list)         # stimkit.physio.RelateResult per [[physio]]
+    physio_inputs: dict = field(default_factory=dict)  # participant label -> physiological file
 
 
 def output_base(session) -> str:
@@ -89,7 +93,7 @@ def output_base(session) -> str:
 #: ``.bidsignore`` of a nested output folder: the files stimkit writes that BIDS does not define.
 BIDSIGNORE = ("# files written by stimkit beside the BIDS files; not defined by BIDS\n"
               "*_beats.tsv\n*_beats.json\n*_report.html\n*_report.png\n*_provenance.json\n"
-              "*_check-by-ear.flac\n")
+              "*_check-by-ear.flac\n*_relate/\n")
 
 
 @dataclass(frozen=True)
@@ -112,6 +116,11 @@ class OutputLayout:
     @property
     def provenance(self) -> str:
         return self.data("_provenance.json") if self.nested else "provenance.json"
+
+    @property
+    def relate_dir(self) -> str:
+        """Folder prefix (with its slash) of the physiology results (``stimkit.physio``)."""
+        return self.data("_relate/") if self.nested else "physio/"
 
     @property
     def check_audio(self) -> str:
@@ -139,8 +148,9 @@ def output_layout(session) -> OutputLayout:
     return OutputLayout(base=base, data_dir="/".join(parts), nested=True)
 
 
-def session_inputs(session) -> dict[str, Path]:
-    """Role -> path of every file the session reads (hashed in the provenance, never overwritten)."""
+def session_inputs(session, *, physio: bool = True) -> dict[str, Path]:
+    """Role -> path of every file the session reads (hashed in the provenance, never overwritten);
+    ``physio=False`` leaves out the physiological files (the chain names those by participant)."""
     inputs = {"recording": Path(session.recording)}
     for p in session.pieces:
         inputs[f"score:{p.name}"] = Path(p.score)
@@ -148,6 +158,8 @@ def session_inputs(session) -> dict[str, Path]:
         inputs["session"] = Path(session.source)
     if session.sync.recorder_file is not None:
         inputs["recorder_sync"] = Path(session.sync.recorder_file)
+    for i, spec in enumerate((getattr(session, "physio", None) or []) if physio else []):
+        inputs[f"physio:{spec.participant or i + 1}"] = Path(spec.file)
     return inputs
 
 
@@ -272,7 +284,9 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                           "method": s.method} for s in spans],
         "clock_fit": clock.to_dict(),
     }
-    inputs = session_inputs(session)
+    inputs = session_inputs(session, physio=False)
+    for label, f in d.physio_inputs.items():
+        inputs[f"physio:{label}"] = f
     task = session.bids.get("task")
     events_extra = {"TaskName": task} if task else {}
     events_extra["ClockFit"] = clock.to_dict()
@@ -293,13 +307,24 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
             outs, name="stimkit stimulus annotation" if layout.nested else f"stimkit annotation of {base}"))
         if layout.nested:
             written.append(outs.write_text(".bidsignore", BIDSIGNORE))
+        extra_sections = []
+        if d.physio:  # relate results: physio/ tables and figures, and their report section
+            from ..physio.outputs import write_relate
+            from ..report.physio_section import SECTION_HEADING, physio_section_html
+
+            figs: dict = {}
+            written += write_relate(outs, d.physio, inputs={f"physio:{k}": v for k, v in d.physio_inputs.items()},
+                                    paths_base=Path(session.source).parent if session.source else None,
+                                    prefix=layout.relate_dir, command=command, figures_out=figs)
+            extra_sections.append((SECTION_HEADING, physio_section_html(d.physio, figures=figs)))
         written += write_session_report(outs, parts, recording=session.recording,
                                         title=f"stimkit report: {base}", summary=summary,
                                         piece_table=piece_table, events=shown_events, stats=stats_tables,
                                         warnings=warnings,
                                         sync=clock.to_dict() if clock.method != "none" else None,
                                         check_audio=getattr(session, "check_audio", True),
-                                        name=layout.report, check_name=layout.check_audio)
+                                        name=layout.report, check_name=layout.check_audio,
+                                        extra_sections=extra_sections)
         lap("write")
         prov = provenance.build_provenance(
             command=provenance.portable_command(

@@ -72,6 +72,7 @@ class AnnotateResult:
     beats: pd.DataFrame
     warnings: list[str] = field(default_factory=list)
     timings_s: dict = field(default_factory=dict)
+    physio: list = field(default_factory=list)  # stimkit.physio.RelateResult per [[physio]]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -163,6 +164,30 @@ def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
     return out
 
 
+def _read_physio(session) -> list:
+    """(spec, participant label, BeatSeries) for every ``[[physio]]`` of the session."""
+    if not getattr(session, "physio", None):
+        return []
+    from ..physio.inputs import participant_label, read_series
+
+    return [(spec, spec.participant or participant_label(spec.file), read_series(spec)) for spec in session.physio]
+
+
+def _relate_physio(session, events, physio_in, *, progress=None) -> list:
+    """:func:`stimkit.physio.relate` per physiological series of the session (seed from
+    ``[relate] seed``, one child per series in the order listed)."""
+    if not physio_in:
+        return []
+    from ..physio.inputs import settings_from_options
+    from ..physio.relate import relate, root_seed
+
+    opts = getattr(session, "relate", {}) or {}
+    settings = settings_from_options(opts)
+    kids = root_seed(int(opts.get("seed", 0))).spawn(len(physio_in))
+    return [relate(events, None, series, settings=settings, seed=kid, participant=label, progress=progress)
+            for (spec, label, series), kid in zip(physio_in, kids)]
+
+
 def annotate(session, *, progress=None, command: list[str] | None = None) -> AnnotateResult:
     """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
 
@@ -203,6 +228,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     # creates it, so a run refused before then leaves no empty folder behind)
     out_dir = check_output_dir(session.out_dir, create=False)
     lap("scores")
+    physio_in = _read_physio(session)  # bad physiological files stop the run before the work
+    lap("physio")
 
     clock, mark_times, w = _clock(session, duration_s=duration_s, progress=progress)
     warnings.extend(w)
@@ -290,17 +317,23 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                                    "the bar's beat unit, smoothed over a few beats; n/a outside the pieces.")
     beat_df = pd.concat(beats, ignore_index=True) if beats else pd.DataFrame()
     lap("events")
+    physio_results = _relate_physio(session, events, physio_in, progress=progress)
+    for r in physio_results:
+        warnings.extend(r.warnings)
+    lap("physio")
 
     written = write_handoff(HandoffData(
         session=session, out_dir=out_dir, duration_s=duration_s, clock=clock, events=events,
         beats=beat_df, frame=frame, units=units, descriptions=descriptions, pieces=pieces_out,
         spans=spans, low_confidence=low_conf, changes=changes, warnings=warnings, timings=timings,
         settings={"span_pad_s": SPAN_PAD_S, "piece_search_max_ratio": MAX_RATIO,
-                  "low_confidence_below": LOW_CONFIDENCE}),
+                  "low_confidence_below": LOW_CONFIDENCE},
+        physio=physio_results, physio_inputs={label: spec.file for spec, label, _ in physio_in}),
         command=command, lap=lap)
     base = output_base(session)
     return AnnotateResult(out_dir=out_dir, base=base, written=[Path(w) for w in written], pieces=pieces_out,
-                          clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings)
+                          clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings,
+                          physio=physio_results)
 
 
 def _relative(p: Path, folder: Path) -> str:
@@ -350,6 +383,11 @@ def summary_lines(result: AnnotateResult) -> list[str]:
         lines.append(f"clock: stated offset {c.offset_s:.4f} s, no drift")
     else:
         lines.append("clock: no sync given; onset = recording time")
+    if result.physio:
+        from ..physio.summary import series_lines
+
+        for r in result.physio:
+            lines.extend(series_lines(r))
     if result.warnings:
         lines.append(f"{len(result.warnings)} warning(s), listed in the report and the provenance file")
     lines.append(f"outputs in {result.out_dir}:")

@@ -146,3 +146,25 @@ def test_vectorised_adjustment_matches_statsmodels():
         fast = adjust_rows(P, method=method)
         slow = np.vstack([adjust_pvalues(row, method=method) for row in P])
         np.testing.assert_allclose(fast, slow, atol=1e-12)  # statsmodels multipletests
+
+
+def test_batched_rates_equal_pair_by_pair_counts():
+    # internal consistency: the concatenated-offset counting equals hit_counts pair by pair
+    from stimkit.physio.coincidence import _rates
+
+    rng = np.random.default_rng(3)
+    h = np.arange(1, 21) * 0.5
+    refs = [np.sort(rng.uniform(0, 300, rng.integers(0, 12))) for _ in range(40)]
+    others = [np.sort(rng.uniform(0, 300, rng.integers(1, 15))) for _ in range(40)]
+    for window in ("symmetric", "music_leads", "music_follows"):
+        fast = _rates(refs, others, h, window=window, lag_s=0.7)
+        for r, o, row in zip(refs, others, fast):
+            if r.size:
+                np.testing.assert_allclose(row, hit_counts(r, o, h, window=window, lag_s=0.7) / r.size)
+            else:
+                assert np.all(np.isnan(row))
+        np.testing.assert_allclose(_rates(refs, others, h, window=window, lag_s=0.7, block=7), fast)  # blocks
+        shared = _rates(refs, others[0], h, window=window, lag_s=0.7)  # one shared train
+        np.testing.assert_allclose(shared, _rates(refs, [others[0]] * len(refs), h, window=window, lag_s=0.7))
+        shared = _rates(others[0], refs, h, window=window, lag_s=0.7)
+        np.testing.assert_allclose(shared, _rates([others[0]] * len(refs), refs, h, window=window, lag_s=0.7))
