@@ -315,7 +315,7 @@ def test_demo_participant_planted_responses_found(out):
     # section boundaries, and the change points coincide with loudness changes beyond the IAAFT null
     from stimkit.demo.participant import PLANTED, loudness_feature
 
-    phys = out / "physio"
+    phys = out / DATA / f"{BASE}_relate"   # the BIDS layout (README, outputs)
     bt = pd.read_csv(phys / "boundary_tests.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
     sec = bt[(bt.trial_type == "section") & (bt.N == 20) & (bt.status == "ok")]
     planted = [t for t, what, _ in PLANTED if what == "section"]
@@ -326,5 +326,5 @@ def test_demo_participant_planted_responses_found(out):
     name = loudness_feature(cs.feature_set)  # read from the outputs, not a fixed column name
     loud = cs[(cs.feature_set == name) & (cs.reference == "physio") & (cs.null_method == "iaaft")]
     assert loud.p_global.iloc[0] < 0.05
-    page = (out / "report.html").read_text()
+    page = (out / DATA / f"{BASE}_report.html").read_text()
     assert "Physiology and music" in page and "not a clinical tool" in page

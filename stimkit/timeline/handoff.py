@@ -93,7 +93,7 @@ def output_base(session) -> str:
 #: ``.bidsignore`` of a nested output folder: the files stimkit writes that BIDS does not define.
 BIDSIGNORE = ("# files written by stimkit beside the BIDS files; not defined by BIDS\n"
               "*_beats.tsv\n*_beats.json\n*_report.html\n*_report.png\n*_provenance.json\n"
-              "*_check-by-ear.flac\n*_relate/\n")
+              "*_check-by-ear.flac\n*_relate\n")
 
 
 @dataclass(frozen=True)
