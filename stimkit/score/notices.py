@@ -59,6 +59,6 @@ def plain_reader_warnings(messages: list[str]) -> tuple[list[str], list[str]]:
             other += 1
     plain = list(dict.fromkeys(plain))
     if other:
-        plain.append(f"the score reader (music21) worked around {other} other problem"
+        plain.append(f"the score reader worked around {other} other problem"
                      f"{'s' if other > 1 else ''} in the file; compare the result with the printed score")
     return plain, raw

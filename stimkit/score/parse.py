@@ -36,6 +36,8 @@ References
 
 from __future__ import annotations
 
+import re
+import warnings as _warnings
 import zipfile
 import zlib
 from dataclasses import dataclass, field
@@ -134,8 +136,8 @@ def read_music21(path: str | Path):
 
             return translate.midiFileToStream(mf)
         except Exception as exc:  # music21 raises many kinds
-            raise InputError(f"music21 cannot read this MIDI file ({type(exc).__name__}: {exc})",
-                             path=path) from None
+            raise InputError(f"this MIDI file could not be made into a score ({type(exc).__name__}); "
+                             "export it again", path=path) from None
     if suffix in MXL_SUFFIXES:
         data = _xml_bytes_from_mxl(path)
     else:
@@ -160,13 +162,27 @@ def read_music21(path: str | Path):
     transpositions = transpose.xml_transpositions(root, concert_score=concert)
     from music21.musicxml.xmlToM21 import MusicXMLImporter
 
-    try:
-        imp = MusicXMLImporter()
-        imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
-        sc = imp.stream
-    except Exception as exc:
-        raise InputError(f"music21 cannot import this MusicXML ({type(exc).__name__}: {exc})",
-                         path=path) from None
+    with _warnings.catch_warnings(record=True) as caught:
+        _warnings.simplefilter("always")
+        try:
+            imp = MusicXMLImporter()
+            imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
+            sc = imp.stream
+            exc = None
+        except Exception as e:
+            exc = e
+    if exc is None:
+        for w in caught:  # handed on to the caller (load_score words them plainly)
+            _warnings.warn(w.message, w.category, stacklevel=2)
+    else:
+        # music21 says where it failed in a warning ("... took place in m. 12 in part Viola.")
+        where = ""
+        for w in caught:
+            hit = re.search(r"in m\. (\S+) in part (.*?)\.?$", " ".join(str(w.message).split()))
+            if hit:
+                where = f" at bar {hit[1]}" + (f" of {hit[2]}" if hit[2].strip() else "")
+        raise InputError(f"the MusicXML could not be read{where} ({type(exc).__name__}); check that "
+                         "bar in the file, or export the score again", path=path) from None
     sc._stimkit_transpositions = transpositions
     sc._stimkit_sound_tempos = []
     try:

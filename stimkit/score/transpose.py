@@ -20,8 +20,11 @@ Conventions and measured music21 behaviour (music21 10.5.1)
   ``<transpose>`` gets a clarinet's major second down although its notes are at concert pitch,
   *measured*); ``toSoundingPitch()`` would then transpose a concert part. So the intervals are
   read from the XML itself, and nothing is transposed without a ``<transpose>`` element.
-- ``toSoundingPitch()`` is not used (it copies the whole part); each note's MIDI number is moved
-  by the interval's semitones, each key signature with ``KeySignature.transpose``.
+- ``toSoundingPitch()`` is not used: it copies the whole part (*measured*: 1.3 s CPU for the
+  1,206-note clarinet part of ``weber/concertino_clarinet.mxl``, half the parse of the whole
+  file; moving the MIDI numbers takes 0.01 s). Each note's MIDI number is moved by the interval's
+  semitones, each key signature with ``KeySignature.transpose``; the test suite checks the
+  result against ``toSoundingPitch()`` on that corpus file.
 - music21 fails on a ``<transpose>`` with ``<octave-change>`` but no ``<diatonic>`` (the optional
   element is assumed present); :func:`xml_transpositions` writes the diatonic steps implied by
   the semitones into the tree before music21 reads it.

@@ -152,3 +152,14 @@ def test_printed_mark_and_playback_tempo_disagree(tmp_path):
     assert len(w) == 1
     assert "quarter = 60 printed" in w[0] and "quarter = 72 played by the file" in w[0]
     assert "quarter = 60 is used" in w[0] and "performers read" in w[0]
+
+
+def test_unreadable_bar_is_named_in_plain_words(tmp_path, capsys):
+    # a pitch step outside A-G (MusicXML 4.0 <step>): music21 cannot import it; the one-line error
+    # names the bar and the part instead of the library's exception text
+    bad = "<note><pitch><step>Q</step><octave>4</octave></pitch><duration>16</duration></note>"
+    p = write(tmp_path, "bad step.musicxml", score([("Violin II", [measure(1, A44 + note() * 4),
+                                                                    measure(2, bad)])]))
+    with pytest.raises(InputError, match="could not be read at bar 2 of Violin II"):
+        load_score(p)
+    refused_by_cli(p, tmp_path, capsys, "at bar 2 of Violin II")

@@ -164,3 +164,30 @@ def test_corpus_clarinet_key_equals_piano_key(weber):
     assert first["value"].tolist() == [concert]
     assert first["part"].tolist() == ["all"]                     # one row: clarinet and piano agree
     assert "in Bb Clarinet" in first["detail"].iloc[0]          # the written key is still said
+
+
+def test_corpus_piano_bars_out_of_step_are_named_and_resynchronised(weber):
+    model, m21 = weber
+    # music21's own reading of the same file: in bars 237-239 one piano staff holds 6 quarter
+    # notes in 6/8 (a bar holds 3), so its bars drift against the clarinet in music21's offsets
+    long_bars = set()
+    for p in m21.parts:
+        for m in p.getElementsByClass("Measure"):
+            ts = m.timeSignature or m.getContextByClass("TimeSignature")
+            end = max((float(n.offset + n.quarterLength) for n in m.recurse().notesAndRests), default=0.0)
+            if end > float(ts.barDuration.quarterLength) + 1e-6:
+                long_bars.add((p.partName, m.number))
+    assert sorted(long_bars) == [("Piano", 237), ("Piano", 238), ("Piano", 239)]
+    long_bars = [237, 238, 239]
+    from stimkit.report.cuesheet import plain_remarks
+
+    assert plain_remarks(model.warnings)[1] == 0          # no raw library text (cue sheet's check)
+    w = [x for x in model.warnings if "of Piano" in x and "longer" in x]
+    assert w and all(str(b) in " ".join(w) for b in long_bars)
+    # re-synchronised: every bar lasts 3 quarter notes from bar 237 on, the piano's final chord
+    # starts on the downbeat of the last bar, where the clarinet's bar starts too
+    meas = model.measures.set_index("measure")
+    assert (meas.loc[237:, "duration_qn"] == 3.0).all()
+    last = int(meas.index.max())
+    piano = model.notes[(model.notes["part"] == "Piano") & (model.notes["measure"] == last)]
+    assert piano["score_qn"].min() == pytest.approx(meas.loc[last, "score_qn"])
