@@ -55,6 +55,8 @@ _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorde
 _PIECE_KEYS = {"score", "name", "start_s", "anchors", "repeats"}
 #: Values of ``repeats`` (session-wide or per piece): decide from the recording, or play all / none.
 REPEAT_VALUES = ("auto", "all", "none")
+#: Largest recorder time or offset (s) a session may state (stimkit.timeline.clock.MAX_OFFSET_S).
+_MAX_CLOCK_S = 1e6
 
 
 class SessionFileError(InputError):
@@ -450,6 +452,9 @@ def parse_sync_table(sy: dict, *, rel, bad, where: str = "[sync]") -> SyncSpec:
     elif has_offset:
         if not _is_number(sy["offset_s"]):
             bad(f"{where} offset_s must be a number of seconds (onset = recording + offset_s)", "offset_s")
+        elif abs(float(sy["offset_s"])) > _MAX_CLOCK_S:
+            bad(f"{where} offset_s = {float(sy['offset_s']):.6g} is beyond +-{_MAX_CLOCK_S:.0e} s; onset "
+                f"counts seconds from the start of the physiological recording", "offset_s")
         else:
             sync = SyncSpec(mode="offset", offset_s=float(sy["offset_s"]))
     elif has_times or has_file:
@@ -461,6 +466,9 @@ def parse_sync_table(sy: dict, *, rel, bad, where: str = "[sync]") -> SyncSpec:
                     "clock, one per mark, in order)", "recorder_times_s")
             elif any(b2 <= a2 for a2, b2 in zip(v, v[1:])):
                 bad(f"{where} recorder_times_s must increase", "recorder_times_s")
+            elif any(abs(float(t)) > _MAX_CLOCK_S for t in v):
+                bad(f"{where} recorder_times_s must be seconds from the start of the physiological "
+                    f"recording (within +-{_MAX_CLOCK_S:.0e} s)", "recorder_times_s")
             else:
                 sync.recorder_s = [float(t) for t in v]
         if has_file:

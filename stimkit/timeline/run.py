@@ -40,7 +40,7 @@ from ..errors import InputError, WorkFailed
 from . import events as ev
 from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offset_clock, pair_marks, \
     read_recorder_times
-from .handoff import ALIGNED_TEMPO, HandoffData, output_base, write_handoff
+from .handoff import ALIGNED_TEMPO, HandoffData, check_outputs_against_inputs, output_base, write_handoff
 
 __all__ = ["AnnotateResult", "RecordingAnalysis", "analyse_recording", "annotate", "summary_lines",
            "output_base"]
@@ -322,7 +322,10 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
     from ..export.tables import check_output_dir
     from .segment import MAX_RATIO
 
-    out_dir = check_output_dir(session.out_dir)
+    check_outputs_against_inputs(session)  # never write over an input (before any work)
+    # the output folder is checked, not yet created: the writing creates it, so a run refused
+    # before then leaves no empty folder behind
+    out_dir = check_output_dir(session.out_dir, create=False)
     timings: dict[str, float] = {}
     lap = _stopwatch(timings, progress)
 
@@ -401,6 +404,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
                           physio=physio_results)
 
 
+def _relative(p: Path, folder: Path) -> str:
+    try:
+        return Path(p).relative_to(folder).as_posix()
+    except ValueError:
+        return str(p)
+
+
 def repeats_line(name: str, repeats: list, tempo_ratio: float = 1.0) -> str:
     """One line saying which repeats a piece's performance took (and a tempo far from the marks)."""
     parts = []
@@ -447,8 +457,7 @@ def summary_lines(result: AnnotateResult) -> list[str]:
         for r in result.physio:
             lines.extend(series_lines(r))
     if result.warnings:
-        lines.append(f"{len(result.warnings)} warning(s), listed in report.html and provenance.json")
+        lines.append(f"{len(result.warnings)} warning(s), listed in the report and the provenance file")
     lines.append(f"outputs in {result.out_dir}:")
-    lines.extend(f"  {p.relative_to(result.out_dir).as_posix() if p.is_relative_to(result.out_dir) else p.name}"
-                 for p in sorted(result.written, key=lambda q: q.name))
+    lines.extend(f"  {_relative(p, result.out_dir)}" for p in sorted(result.written, key=lambda q: str(q)))
     return lines
