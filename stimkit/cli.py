@@ -301,6 +301,12 @@ def relate(
     music_leads: bool = typer.Option(False, "--music-leads", help="Count a coincidence only when the physiological "
                                      "change follows the music change (by --lag-s to --lag-s + h)."),
     lag_s: float = typer.Option(0.0, "--lag-s", help="Physiological latency for --music-leads (s)."),
+    correction: str = typer.Option("fdr_bh", "--correction", help="Across boundaries of a family: fdr_bh "
+                                   "(Benjamini-Hochberg), fdr_by (any dependence) or holm."),
+    share_null: str = typer.Option("circular_shift", "--share-null", help="Pseudo boundary sets for the share "
+                                   "test: circular_shift or uniform."),
+    penalty: str = typer.Option("bic_lrv", "--penalty", help="Change-point penalty: bic_lrv (autocorrelation-"
+                                "aware), bic_iid, or a number (in the series' unit squared)."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
     jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
 ):
@@ -329,6 +335,21 @@ def relate(
                        lag_s=lag_s)
     if music_source not in ("events", "detect"):
         raise InputError("--music-changes must be events or detect")
+    if not settings.window_beats or min(settings.window_beats) < 3 or not settings.window_s or \
+            min(settings.window_s) <= 0:
+        raise InputError("--window-beats must be whole numbers of at least 3 and --window-s positive seconds")
+    if correction not in ("fdr_bh", "fdr_by", "holm"):
+        raise InputError("--correction must be fdr_bh, fdr_by or holm")
+    if share_null not in ("circular_shift", "uniform"):
+        raise InputError("--share-null must be circular_shift or uniform")
+    if penalty not in ("bic_lrv", "bic_iid"):
+        try:
+            penalty = float(penalty)
+        except ValueError:
+            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number") from None
+        if not penalty > 0:
+            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number")
+    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty)
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
                         participant=participant[i] if participant else None) for i, f in enumerate(physio)]
     command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]
