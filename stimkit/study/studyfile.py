@@ -739,9 +739,11 @@ duration_s = 0.05
 recorder_times_s = [12.500, 1840.250]
 [[session.physio]]            # one per physiological file of this participant in this session
 file = "physio/sub-01_ses-1_physio.tsv.gz"   # BIDS physio (+ .json sidecar) or a beat table
-# kind = "rr"                 # rr, ari, ecg, eda, resp, ... (as the analysis reads it)
+# kind = "rr"                 # rr, ari, other (a beat series), ecg, eda, rsp (a signal)
 # column = "rr"               # which column holds the series
-# label = "heart"             # BIDS recording-<label> of this file (default: kind)
+# mode = "value_at_beat"      # BIDS physio: value_at_beat, marker or waveform
+# offset_s = 0                # added to the file's times when its clock is the recorder's shifted
+# label = "heart"             # BIDS recording-<label> of this file (needed when a session has several)
 
 [[session]]
 participant = "02"
