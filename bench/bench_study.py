@@ -9,9 +9,11 @@ on their own recorder clock. The same study runs three times into fresh folders:
 2. local processes: ``ProcessPoolExecutor`` with ``--workers`` (default 2) processes;
 3. a ``dask.distributed.LocalCluster`` with ``--workers`` worker processes, one thread each.
 
-It prints wall and CPU time, the speed-up of 2 and 3 over 1 (goal >= 1.8x on 2 cores), the peak
-resident memory of each worker process (``resource.getrusage`` inside the worker after each job)
-and checks that the three output folders are byte-identical.
+It prints wall time and the CPU time of the jobs (measured inside the workers), the speed-up of 2
+and 3 over 1 (goal >= 1.8x on 2 cores) beside the ideal one from the jobs' CPU (serial CPU over the
+busiest worker's), the load average around each run, the peak resident memory of each worker
+process (``resource.getrusage`` inside the worker after each job) and checks that the three
+output folders are byte-identical.
 
 Run: ``.venv/bin/python bench/bench_study.py [--participants 6] [--workers 2]``. The machine
 should be quiet: speed-ups on a shared machine are not meaningful (repeat the run).
@@ -38,8 +40,12 @@ sys.path.insert(0, str(ROOT))
 
 
 def _measured(fn, *args):
-    """Run a job and add the worker's pid and peak resident memory (MB) to its result."""
+    """Run a job and add the worker's pid, the job's CPU and wall time and the worker's peak
+    resident memory (MB) to its result."""
+    c0, t0 = time.process_time(), time.perf_counter()
     out = fn(*args)
+    out["_cpu"] = time.process_time() - c0
+    out["_wall"] = time.perf_counter() - t0
     out["_pid"] = os.getpid()
     out["_peak_mb"] = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     return out
@@ -103,12 +109,6 @@ def _tree(root: Path) -> dict:
             if p.is_file() and ".stimkit-study" not in p.parts}
 
 
-def _cpu() -> float:
-    a = resource.getrusage(resource.RUSAGE_SELF)
-    b = resource.getrusage(resource.RUSAGE_CHILDREN)
-    return a.ru_utime + a.ru_stime + b.ru_utime + b.ru_stime
-
-
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--participants", type=int, default=6, help="participants (2 sessions each; default 6 -> 12)")
@@ -129,19 +129,24 @@ def main() -> int:
 
     def run(label, make_executor):
         out = tmp / label
+        load0 = os.getloadavg()[0]
         with make_executor() as ex:
             m = Measuring(ex)
-            c0, t0 = _cpu(), time.perf_counter()
+            t0 = time.perf_counter()
             r = run_study(load_study(study, out_dir=out), executor=m)
-            wall, cpu = time.perf_counter() - t0, _cpu() - c0
+            wall = time.perf_counter() - t0
         assert not r.failed, [(o.name, o.reason) for o in r.failed]
-        peaks = {}
+        peaks, busy = {}, {}
         for rep in m.reports:
             peaks[rep["_pid"]] = max(peaks.get(rep["_pid"], 0.0), rep["_peak_mb"])
-        results[label] = (wall, cpu, peaks, out)
-        print(f"{label:>16}: {wall:7.1f} s wall, {cpu:7.1f} s CPU (this process + local children), "
+            busy[rep["_pid"]] = busy.get(rep["_pid"], 0.0) + rep["_cpu"]
+        cpu = sum(busy.values())
+        results[label] = (wall, cpu, peaks, out, max(busy.values()))
+        print(f"{label:>16}: {wall:7.1f} s wall, {cpu:7.1f} s CPU in jobs ({len(busy)} worker(s): "
+              + ", ".join(f"{v:.0f}" for v in sorted(busy.values())) + " s), "
               f"{len(r.computed)} sessions; peak RSS per worker: "
-              + ", ".join(f"{v:.0f} MB" for v in sorted(peaks.values())))
+              + ", ".join(f"{v:.0f} MB" for v in sorted(peaks.values()))
+              + f"; load average {load0:.1f} -> {os.getloadavg()[0]:.1f}")
 
     class _Serial:
         def __enter__(self):
@@ -180,8 +185,12 @@ def main() -> int:
     run("LocalCluster", _Dask)
     base = results["serial"][0]
     for label in ("local processes", "LocalCluster"):
-        wall = results[label][0]
-        print(f"speed-up {label} over serial: {base / wall:.2f}x (goal >= 1.8x on {args.workers} cores)")
+        wall, cpu, _, _, busiest = results[label]
+        print(f"speed-up {label} over serial: {base / wall:.2f}x wall (goal >= 1.8x on {args.workers} cores); "
+              f"job CPU {results['serial'][1]:.0f} s serial vs {cpu:.0f} s, busiest worker {busiest:.0f} s "
+              f"(ideal speed-up on free cores {results['serial'][1] / busiest:.2f}x)")
+    print("on a machine shared with other work, wall-clock ratios measure the contention as much as the "
+          "runner: quote them with the load averages above, and repeat on a quiet machine")
     trees = {k: _tree(v[3]) for k, v in results.items()}
     same = all(trees[k] == trees["serial"] for k in trees)
     print(f"outputs byte-identical across the three runs: {same}")
