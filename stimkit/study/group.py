@@ -22,7 +22,9 @@ What it computes
 - **Mixed model by boundary kind** (:func:`mixed_model_table`). The before/after differences
   ``delta`` of every tested boundary, ``delta ~ 0 + C(trial_type)`` with a random intercept per
   participant (``statsmodels`` ``MixedLM``, REML): one mean difference per kind with its standard
-  error, Wald z, p and 95 % CI, and the between-participant variance.
+  error, Wald z, p and 95 % CI, and the between-participant variance. The model takes the
+  boundaries as independent given the participant; windows that overlap (``n_overlap``, long
+  windows especially) share beats, so its p-values are then too small: read them as descriptive.
 
 Conventions
 -----------
@@ -222,7 +224,7 @@ def mixed_model_table(tests: pd.DataFrame, *, value: str = "delta") -> tuple[pd.
     ``n_participants``, ``group_var`` (random-intercept variance), ``resid_var``, ``converged``.
     """
     cols = ["series", "N", "term", "estimate", "se", "z", "p", "ci_low", "ci_high", "n_obs", "n_boundaries",
-            "n_participants", "group_var", "resid_var", "converged", "method"]
+            "n_overlap", "n_participants", "group_var", "resid_var", "converged", "method"]
     notes: list[str] = []
     t = _ok(tests)
     if not len(t) or value not in t.columns or "trial_type" not in t.columns:
@@ -249,6 +251,9 @@ def mixed_model_table(tests: pd.DataFrame, *, value: str = "delta") -> tuple[pd.
                          "z": float(fit.tvalues[term]), "p": float(fit.pvalues[term]),
                          "ci_low": float(ci.loc[term, 0]), "ci_high": float(ci.loc[term, 1]),
                          "n_obs": int(len(g)), "n_boundaries": int((g["trial_type"].astype(str) == kind).sum()),
+                         "n_overlap": int(((g["trial_type"].astype(str) == kind)
+                                           & g.get("flags", pd.Series("", index=g.index)).astype(str)
+                                           .str.contains("overlap")).sum()),
                          "n_participants": int(g["participant"].nunique()),
                          "group_var": float(fit.cov_re.iloc[0, 0]), "resid_var": float(fit.scale),
                          "converged": bool(conv), "method": "REML"})
@@ -349,7 +354,10 @@ _DESCRIPTIONS = {
         "estimate": "mean before/after difference (after - before) of this kind, in the series' units",
         "se": "standard error", "z": "Wald z", "p": "two-sided p of the Wald test",
         "ci_low": "95 % CI, lower", "ci_high": "95 % CI, upper", "n_obs": "boundaries in the model",
-        "n_boundaries": "boundaries of this kind", "n_participants": "participants (random-intercept groups)",
+        "n_boundaries": "boundaries of this kind",
+        "n_overlap": "of them, boundaries whose windows hold another boundary of the same kind (flag 'overlap'): "
+                     "their differences are not independent, so se and p are too small when this is large",
+        "n_participants": "participants (random-intercept groups)",
         "group_var": "between-participant variance (random intercept)", "resid_var": "residual variance",
         "converged": "whether the REML optimiser converged", "method": "estimation method",
     },

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import base64
 import math
+import textwrap
 
 import numpy as np
 import pandas as pd
@@ -49,7 +50,7 @@ def participant_figure(pid: str, tests: pd.DataFrame, summary: pd.DataFrame):
     n_min = int(t["N"].min())
     t = t[t["N"] == n_min]
     groups = list(t.groupby(["session", "series"], sort=True))
-    fig = _fig(10.0, 1.9 * len(groups) + 0.6)
+    fig = _fig(10.0, 2.3 * len(groups) + 0.6)
     axes = fig.subplots(len(groups), 1, squeeze=False)[:, 0]
     for ax, ((ses, series), g) in zip(axes, groups):
         g = g.sort_values("onset") if "onset" in g.columns else g
@@ -79,7 +80,7 @@ def participant_figure(pid: str, tests: pd.DataFrame, summary: pd.DataFrame):
             fams = [f"{r.trial_type} {_num(r.s_obs)} vs {_num(r.null_q95)} (p {_num(r.p_share)})"
                     for r in s.itertuples(index=False) if math.isfinite(float(r.p_share))]
             cap += ": share significant vs chance 95th percentile: " + "; ".join(fams)
-        ax.set_title(cap, fontsize=8, loc="left")
+        ax.set_title(textwrap.fill(cap, 160), fontsize=7, loc="left")
         ax.set_ylabel("after - before", fontsize=7)
         ax.tick_params(labelsize=7)
     fig.suptitle(f"sub-{pid}: before/after difference at each boundary (filled: significant)", fontsize=9,
@@ -169,7 +170,9 @@ def group_figures(group) -> list[tuple[str, object]]:
                          "random intercept per participant", fontsize=8, loc="left")
             ax.tick_params(labelsize=7)
         fig.tight_layout()
-        out.append(("Mixed model of the before/after differences by boundary kind (statsmodels MixedLM).", fig))
+        out.append(("Mixed model of the before/after differences by boundary kind (statsmodels MixedLM). It takes "
+                    "the boundaries as independent given the participant; overlapping windows (n_overlap in the "
+                    "table, long windows especially) make its intervals too narrow: read it as descriptive.", fig))
     return out
 
 
