@@ -62,6 +62,7 @@ class Structure:
     margins: dict                # option id -> relative cost increase when reversed (nan: not tested)
     scan: list = field(default_factory=list)     # (scale, mean path cost) of the grid
     cost: float = float("nan")                   # mean local cost of the decision path
+    cost_ratio: float = float("nan")             # that cost / mean cost of the matrix (Raffel & Ellis)
     start_s: float = float("nan")                # recording time of the template's first note row
     end_s: float = float("nan")
 
@@ -215,7 +216,8 @@ def fit_structure(score, A, *, j0: int = 0, j1: int | None = None, weights: Step
     if progress is not None:
         progress("structure", 1.0)
     return Structure(time_scale=float(scale), choice=choice, decided=decided, margins=margins,
-                     scan=scan, cost=fine["cost"], start_s=float(t0), end_s=float(t1))
+                     scan=scan, cost=fine["cost"], cost_ratio=fine["cost"] / max(_background(fine["cs"], fine["cr"]), 1e-9),
+                     start_s=float(t0), end_s=float(t1))
 
 
 def _path_slope(r, scale, rate) -> float:
