@@ -34,11 +34,29 @@ The local duration of a quarter note is the nominal one divided by three factors
    (:func:`stimkit.score.parse.load_score` holds a fermata twice its written length, so the
    default 1.3 performs it at 2.6 times).
 
+Performers who ignore the marks (all off by default, so a seed renders as before):
+
+4. **Global tempo** -- ``tempo_factor`` multiplies the whole tempo (0.4 plays at 40 % of the
+   notated tempo, or of the assumed q = 100 when the score has none).
+5. **Rubato** -- within each phrase (between phrase ends) the tempo follows an arch,
+   ``1 + r (sin(pi w) - 2/pi)`` for ``w`` from 0 to 1 across the phrase (faster in the middle,
+   slower at both ends, mean 1), with ``r`` drawn per phrase from ``rubato * U(0.5, 1.5)``: the
+   phrase-arch shape of Todd (1992).
+6. **Agogic accents** -- before a random :data:`AGOGIC_SHARE` of the downbeats the performer
+   lingers: ``agogic_s * U(0.5, 1)`` seconds are added over the last :data:`AGOGIC_QN` quarter
+   note before the bar line (Sloboda 1983 measured such lengthening at metrically strong places).
+7. **Long ritardandi** -- ``final_rit_qn`` sets the length of the ritardando before a section end
+   and the end of the piece (default :data:`RIT_SPAN_QN`); several bars make a long one.
+
 The integral of the resulting seconds-per-quarter-note gives the smooth map
 :attr:`Performance.timemap` (``score_qn -> recording``), strictly increasing by construction.
 Each note then gets Gaussian onset jitter (``jitter_s`` standard deviation, truncated at 2.5 sd)
 and, in a chord, the highest note leads and the others follow by up to ``chord_spread_s``
-(melody lead, Palmer 1996). The total per-note deviation is limited to 40 % of the gap to the
+(melody lead, Palmer 1996). With ``melody_lead_s`` the melody leads by about that much more
+(``U(0.8, 1.2)`` times it, per note): in a score with several parts the part with the highest mean
+pitch sounds ``lead / 2`` early and the others ``lead / 2`` late; in a one-part score the
+highest note of each chord does. Palmer (1996) measured melody leads of 20-50 ms in pianists.
+The total per-note deviation is limited to 40 % of the gap to the
 neighbouring onset positions, so successive score positions stay in order. Everything is drawn
 from ``numpy.random.default_rng(seed)``: the same seed gives the same performance.
 
@@ -49,6 +67,8 @@ References
 .. [2] N. P. McA. Todd, "The dynamics of dynamics: a model of musical expression", JASA 91(6), 1992.
 .. [3] C. Palmer, "On the assignment of structure in music performance", Music Perception 14(1),
    1996 (melody lead in chords).
+.. [4] J. A. Sloboda, "The communication of musical metre in piano performance", Quarterly
+   Journal of Experimental Psychology 35A, 1983 (lengthening at strong metrical positions).
 """
 
 from __future__ import annotations
@@ -64,7 +84,7 @@ from ..score.model import ScoreModel
 from ..timemap import TimeMap
 
 __all__ = ["Performance", "perform", "PERFORMANCE_NOTE_COLUMNS", "DRIFT_SIGMA_QN", "RIT_SPAN_QN",
-           "PHRASE_BARS", "INNER_RIT"]
+           "PHRASE_BARS", "INNER_RIT", "AGOGIC_SHARE", "AGOGIC_QN"]
 
 PERFORMANCE_NOTE_COLUMNS = [
     "score_qn", "duration_qn", "pitch", "velocity", "part", "measure", "pass", "beat",
@@ -83,6 +103,10 @@ GRID_QN = 0.125
 #: Silence (seconds) kept after the last note's release in :attr:`Performance.duration_s`.
 TAIL_S = 1.5
 _MIN_NOTE_S = 0.03
+#: Share of downbeats (after the first bar) that get an agogic lengthening.
+AGOGIC_SHARE = 0.2
+#: Span (quarter notes) before the bar line over which an agogic lengthening is spread.
+AGOGIC_QN = 0.25
 
 
 @dataclass
@@ -183,8 +207,15 @@ def _fermata_spans(score: ScoreModel, onsets: np.ndarray, total_qn: float) -> li
     return sorted(spans.items())
 
 
-def _validate(score: ScoreModel, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s):
+def _validate(score: ScoreModel, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s,
+              tempo_factor=1.0, rubato=0.0, agogic_s=0.0, final_rit_qn=RIT_SPAN_QN, melody_lead_s=0.0):
     where = getattr(score, "path", None)
+    if not 0.05 <= tempo_factor <= 20.0:
+        raise InputError(f"tempo_factor must be in [0.05, 20], got {tempo_factor}", path=where)
+    if not 0.0 <= rubato < 0.6:
+        raise InputError(f"rubato must be in [0, 0.6), got {rubato}", path=where)
+    if not (agogic_s >= 0.0 and melody_lead_s >= 0.0 and final_rit_qn > 0.0):
+        raise InputError("agogic_s and melody_lead_s must be >= 0 and final_rit_qn > 0", path=where)
     if not 0.0 <= drift < 1.0:
         raise InputError(f"drift must be in [0, 1), got {drift}", path=where)
     if not 0.0 <= phrase_rit < 1.0:
@@ -207,6 +238,11 @@ def perform(
     jitter_s: float = 0.008,
     chord_spread_s: float = 0.015,
     start_s: float = 0.0,
+    tempo_factor: float = 1.0,
+    rubato: float = 0.0,
+    agogic_s: float = 0.0,
+    final_rit_qn: float = RIT_SPAN_QN,
+    melody_lead_s: float = 0.0,
 ) -> Performance:
     """Expressive timing of ``score`` with the exact performed time of every note.
 
@@ -229,6 +265,16 @@ def perform(
         Largest delay of a chord note after the chord's highest note, seconds.
     start_s : float
         Recording time of ``score_qn = 0`` (silence before the music), seconds.
+    tempo_factor : float
+        Global tempo multiplier (0.5 = half the notated tempo).
+    rubato : float
+        Depth of the phrase-arch tempo curve (0 = none; 0.15 = about ±10 %).
+    agogic_s : float
+        Largest agogic lengthening before a downbeat, seconds (0 = none).
+    final_rit_qn : float
+        Length of the ritardando before section ends and the end, quarter notes.
+    melody_lead_s : float
+        Melody lead, seconds (0 = only ``chord_spread_s``).
 
     Returns
     -------
@@ -245,8 +291,10 @@ def perform(
     >>> perf.notes[["score_qn", "pitch", "onset_s"]].head()       # doctest: +SKIP
     >>> perf.timemap(8.0)   # recording second of score_qn 8      # doctest: +SKIP
     """
-    _validate(score, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s)
+    _validate(score, drift, phrase_rit, fermata_factor, jitter_s, chord_spread_s, start_s,
+              tempo_factor, rubato, agogic_s, final_rit_qn, melody_lead_s)
     rng = np.random.default_rng(seed)
+    rng_x = np.random.default_rng([int(seed) & 0xFFFFFFFF, 7])   # the options 4-7 (old draws unchanged)
     total_qn = score.total_qn
     notes = score.notes.sort_values(["score_qn", "pitch"], kind="stable").reset_index(drop=True)
     q_on = notes["score_qn"].to_numpy(dtype=np.float64)
@@ -258,8 +306,11 @@ def perform(
 
     # knots: a regular grid plus every place where a factor or the nominal slope changes
     tm = score.tempo_map
-    extra = [q_on, q_off, score.measures["score_qn"].to_numpy(dtype=np.float64), ends,
-             np.maximum(ends - RIT_SPAN_QN, 0.0), tm.x]
+    bar_qn = score.measures["score_qn"].to_numpy(dtype=np.float64)
+    span = np.where(depths >= 1.0, final_rit_qn, RIT_SPAN_QN)
+    extra = [q_on, q_off, bar_qn, ends, np.maximum(ends - span, 0.0), tm.x]
+    if agogic_s > 0:
+        extra.append(np.maximum(bar_qn - AGOGIC_QN, 0.0))
     extra += [np.array(s) for s in spans]
     hi = max(total_qn, float(q_off.max()) if q_off.size else 0.0)
     knots = np.concatenate([np.arange(0.0, hi, GRID_QN), [hi], *extra])
@@ -278,8 +329,8 @@ def perform(
 
     # 2. phrase-final ritardando: linear fall of tempo to (1 - phrase_rit) at each end
     rit = np.ones_like(mid)
-    for e, depth in zip(ends, depths):
-        w = (mid - (e - RIT_SPAN_QN)) / RIT_SPAN_QN
+    for e, depth, sp in zip(ends, depths, span):
+        w = (mid - (e - sp)) / sp
         inside = (w > 0) & (mid < e)
         rit[inside] = np.minimum(rit[inside], 1.0 - depth * phrase_rit * w[inside])
 
@@ -288,8 +339,25 @@ def perform(
     for a, b in spans:
         hold[(mid > a) & (mid < b)] = fermata_factor
 
+    # 5. rubato: a phrase arch between consecutive phrase ends
+    arch = np.ones_like(mid)
+    if rubato > 0:
+        edges = np.r_[0.0, ends]
+        for a, b in zip(edges[:-1], edges[1:]):
+            r = rubato * rng_x.uniform(0.5, 1.5)
+            inside = (mid >= a) & (mid < b)
+            w = (mid[inside] - a) / max(b - a, 1e-9)
+            arch[inside] = 1.0 + r * (np.sin(np.pi * w) - 2.0 / np.pi)
+
     nominal_spq = np.diff(tm(knots)) / dq
-    spq = nominal_spq / (tempo * rit) * hold
+    spq = nominal_spq / (tempo * rit * arch * tempo_factor) * hold
+    # 6. agogic accents: extra seconds spread over the last AGOGIC_QN before chosen downbeats
+    if agogic_s > 0 and bar_qn.size > 1:
+        chosen = bar_qn[1:][rng_x.random(bar_qn.size - 1) < AGOGIC_SHARE]
+        for q_db in chosen:
+            inside = (mid > q_db - AGOGIC_QN) & (mid < q_db)
+            if inside.any():
+                spq[inside] += agogic_s * rng_x.uniform(0.5, 1.0) / AGOGIC_QN
     t = start_s + np.concatenate([[0.0], np.cumsum(spq * dq)])
     timemap = TimeMap(knots, t, src="score_qn", dst="recording",
                       meta={"drift": drift, "seed": seed})
@@ -301,6 +369,15 @@ def perform(
     # the highest note of each position leads (rows are sorted by score_qn, then pitch)
     top = np.r_[pos_idx[1:] != pos_idx[:-1], True] if q_on.size else np.zeros(0, dtype=bool)
     dev = jit + np.where(top, 0.0, spread)
+    if melody_lead_s > 0 and q_on.size:
+        lead = melody_lead_s * rng_x.uniform(0.8, 1.2, q_on.size)
+        parts = notes["part"].astype(str).to_numpy()
+        if np.unique(parts).size > 1:
+            means = notes.groupby(notes["part"].astype(str))["pitch"].mean()
+            melody = parts == str(means.idxmax())
+        else:
+            melody = top
+        dev = dev + np.where(melody, -0.5, 0.5) * lead
     pos_t = np.atleast_1d(timemap(onset_pos))
     gap_prev = np.diff(np.r_[0.0, pos_t])
     gap_next = np.r_[np.diff(pos_t), np.inf]
@@ -330,6 +407,8 @@ def perform(
         "phrase_ends_qn": [round(float(e), 6) for e in ends],
         "phrase_rit_depths": [float(d) for d in depths], "inner_rit": INNER_RIT,
         "fermata_spans_qn": [[round(a, 6), round(b, 6)] for a, b in spans],
+        "tempo_factor": float(tempo_factor), "rubato": float(rubato), "agogic_s": float(agogic_s),
+        "final_rit_qn": float(final_rit_qn), "melody_lead_s": float(melody_lead_s),
     }
     return Performance(notes=out, timemap=timemap, beats=beats, duration_s=last + TAIL_S,
                        settings=settings)

@@ -38,6 +38,10 @@ Timbres
     partial amplitudes 1/n; Fletcher & Rossing 1998, ch. 10) with a 5.5 Hz, ±25 cent vibrato
     fading in after 0.1 s, bow noise, three broad body resonances, a 30 ms attack and a 0.12 s
     release.
+``"bowed"``, ``"clarinet"``, ``"flute"``, ``"horn"``
+    Sustained tones with slow or soft attacks from :mod:`stimkit.render.timbres`; their attack
+    is applied per note (the note list's optional ``attack_s`` column, else the middle of
+    :data:`stimkit.render.timbres.ATTACK_S`), so it can differ from note to note.
 
 References
 ----------
@@ -56,10 +60,11 @@ import pandas as pd
 from scipy.signal import butter, sosfilt
 
 from ..errors import InputError
+from .timbres import ATTACK_S, TEMPLATES
 
 __all__ = ["synthesize", "TIMBRES", "PEAK_LIMIT", "midi_to_hz", "piano_partials"]
 
-TIMBRES = ("piano", "organ", "strings")
+TIMBRES = ("piano", "organ", "strings", "bowed", "clarinet", "flute", "horn")
 #: Largest absolute sample value of the output; above it the whole signal is scaled down.
 PEAK_LIMIT = 0.98
 _MASTER = 0.25          # gain of one velocity-127 note
@@ -68,7 +73,9 @@ _BLOCK = 2048           # block length of the piano partial bank, samples
 _NEEDED = ("onset_s", "offset_s", "pitch", "velocity")
 
 # (release time constant s, longest template s, attack s)
-_SHAPE = {"piano": (0.09, 5.0, 0.0015), "organ": (0.05, 120.0, 0.012), "strings": (0.12, 120.0, 0.03)}
+_SHAPE = {"piano": (0.09, 5.0, 0.0015), "organ": (0.05, 120.0, 0.012), "strings": (0.12, 120.0, 0.03),
+          "bowed": (0.15, 120.0, 0.0), "clarinet": (0.06, 120.0, 0.0), "flute": (0.08, 120.0, 0.0),
+          "horn": (0.10, 120.0, 0.0)}
 _ORGAN_RANKS = np.array([[1, 1.0], [2, 0.55], [3, 0.30], [4, 0.28], [5, 0.10], [6, 0.14], [8, 0.10]])
 
 
@@ -252,8 +259,8 @@ def synthesize(
         Columns ``onset_s, offset_s`` (recording seconds), ``pitch`` (MIDI), ``velocity`` (1-127).
     sr : int
         Sampling rate, Hz.
-    timbre : {"piano", "organ", "strings"}
-        See the module docstring.
+    timbre : str
+        One of :data:`TIMBRES`; see the module docstring.
     seed : int
         Seed of the partial phases and noise; the same seed gives the same array.
     duration_s : float, optional
@@ -303,7 +310,14 @@ def synthesize(
     gain = (_MASTER * (vel / 127.0) ** 2).astype(np.float32)
     n_need = np.minimum(n_hold + n_rel, cap)
     release = np.exp(-np.arange(n_rel, dtype=np.float32) / np.float32(rel_s * sr))
-    make = {"organ": _organ_template, "strings": _strings_template}.get(timbre)
+    make = {"organ": _organ_template, "strings": _strings_template, **TEMPLATES}.get(timbre)
+    per_note_attack = timbre in ATTACK_S
+    if per_note_attack:
+        lo, hi = ATTACK_S[timbre]
+        att = (notes["attack_s"].to_numpy(dtype=np.float64) if "attack_s" in notes.columns
+               else np.full(on.size, 0.5 * (lo + hi)))
+        att_len = np.maximum(np.rint(att * sr).astype(np.int64), 1)
+        ramps: dict[int, np.ndarray] = {}
     tid = TIMBRES.index(timbre)
     n_fade = int(0.02 * sr)
 
@@ -345,6 +359,11 @@ def synthesize(
             h = min(int(n_hold[i]), n)
             seg = scratch[:n]
             np.multiply(tmpl[:n], gain[i], out=seg)
+            if per_note_attack:
+                na = int(min(att_len[i], n))
+                if na not in ramps:
+                    ramps[na] = (0.5 - 0.5 * np.cos(np.pi * (np.arange(na) + 1) / (na + 1))).astype(np.float32)
+                np.multiply(seg[:na], ramps[na], out=seg[:na])
             if h < n:
                 np.multiply(seg[h:], release[: n - h], out=seg[h:])
             dst = out[s0:s0 + n]

@@ -22,12 +22,17 @@ def _one(pitch, *, onset_s=0.1, dur_s=1.0, velocity=90):
                          "velocity": [velocity]})
 
 
+# the timbres with quick attacks; the slow ones (bowed 100-300 ms, winds) have no sharp onset for a
+# spectral-flux detector by design and are checked in test_evaluation_material.py
+QUICK_ATTACK = ("piano", "organ", "strings")
+
+
 @pytest.fixture(scope="module")
 def rendered(melody_score):
-    return {t: render_score(melody_score, seed=4, timbre=t, start_s=0.5) for t in TIMBRES}
+    return {t: render_score(melody_score, seed=4, timbre=t, start_s=0.5) for t in QUICK_ATTACK}
 
 
-@pytest.mark.parametrize("timbre", TIMBRES)
+@pytest.mark.parametrize("timbre", QUICK_ATTACK)
 def test_detected_onsets_match_ground_truth(rendered, timbre):
     # mir_eval.onset.f_measure with its standard 50 ms window (MIREX onset practice) against
     # librosa's onset detector, on the rendered signal with reverberation and noise

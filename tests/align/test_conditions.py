@@ -1,0 +1,116 @@
+"""Alignment under the conditions of real concert material, one test per condition.
+
+Each case is a short excerpt of a music21 corpus work (used in place) performed by the project's
+renderer (:mod:`stimkit.render`) with expressive timing (drift, rubato, agogic accents, long
+final ritardando, melody lead, chord spread) and scored note by note against the exact ground
+truth through printed bar, pass and offset (:mod:`stimkit.render.evaluate`; figures by
+``mir_eval.alignment``). These renders are development material; held-out material lives in
+``bench/align_material.py`` and ``bench/sampled.py`` (FluidR3_GM).
+
+Thresholds are the task's goals: piano median <= 10 ms and >= 99 % of notes within 100 ms;
+ensembles (strings, voice, winds, organ) median <= 13 ms and >= 95 %; every condition >= 99.5 %
+within 300 ms (300 ms: mir_eval.alignment's default window), no note more than 2 s off (MIREX
+gross-error bound) and the right piece not refused. Conditions the aligner does not meet yet are
+marked ``xfail(strict=False)`` with the condition named; remove a mark when its condition passes.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from stimkit.render.cases import Case, prepare_case, run_case
+
+EXPR = {"rubato": 0.15, "agogic_s": 0.08, "melody_lead_s": 0.03, "final_rit_qn": 8.0}
+HALL = {"hall_rt60_s": 2.2, "hall_wet": 0.55, "audience": True, "applause": True}
+PIANO = {"median_ms": 10.0, "within_100": 0.99}        # task goals, piano
+ENSEMBLE = {"median_ms": 13.0, "within_100": 0.95}     # task goals, ensembles
+
+
+def _xf(reason):
+    return pytest.mark.xfail(strict=False, reason=reason)
+
+
+# (id, case, goals, marks)
+CASES = [
+    ("piano-dry", Case("piano dry", "k545", "mozart/k545/movement1_exposition.mxl", 301, bars=12,
+                       perform=EXPR), PIANO,
+     (_xf("piano in a dry room with rubato and melody lead: median 10.8 ms, goal 10 ms"),)),
+    ("piano-hall-audience", Case("piano hall+audience", "polonaise1", "schumann_clara/polonaise_op1n1.mxl",
+                                 302, bars=12, perform=EXPR, **HALL), PIANO,
+     (_xf("piano in a 2.2 s hall with an audience: median and 100 ms goals not met yet"),)),
+    ("strings", Case("strings", "k458-3", "mozart/k458/movement3.mxl", 303, bars=10, perform=EXPR), ENSEMBLE,
+     (_xf("bowed strings (100-300 ms attacks): median ~80 ms, not met yet"),)),
+    ("voice-piano", Case("voice+piano", "lindenbaum", "schubert/Lindenbaum.xml", 304, bars=14, perform=EXPR),
+     ENSEMBLE, (_xf("voice and piano: median and 100 ms goals not met yet"),)),
+    ("winds", Case("winds", "bwv10.7-winds", "bach/bwv10.7", 305, bars=8, perform=EXPR,
+                   timbres={"Soprano": "flute", "Alto": "clarinet", "Tenor": "horn", "Bass": "horn"}),
+     ENSEMBLE, (_xf("winds (flute breath, soft attacks): median goal not met yet"),)),
+    ("organ", Case("organ", "bwv66.6-organ", "bach/bwv66.6", 306, bars=8, perform=EXPR,
+                   timbres={"*": "organ"}), ENSEMBLE, (_xf("organ sustains: median goal not met yet"),)),
+    ("repeats-taken", Case("repeats taken", "la-donna", "verdi/laDonnaEMobile.mxl", 307, perform=EXPR),
+     PIANO, (_xf("repeats taken, piano: median goal not met yet"),)),
+    ("repeats-skipped", Case("repeats skipped", "la-donna", "verdi/laDonnaEMobile.mxl", 308, perform=EXPR,
+                             repeats="none"), PIANO,
+     (_xf("a performance that skips the repeat: notes > 2 s off (repeats as performed not built yet)"),)),
+    ("tempo-0.4x", Case("tempo 0.4x", "k545", "mozart/k545/movement1_exposition.mxl", 309, bars=6,
+                        perform={**EXPR, "tempo_factor": 0.4}), PIANO,
+     (_xf("tempo 0.4x the marks: the right piece is refused and notes are seconds off"),)),
+    ("tempo-2.5x", Case("tempo 2.5x", "k545", "mozart/k545/movement1_exposition.mxl", 310, bars=28,
+                        perform={**EXPR, "tempo_factor": 2.5}), PIANO,
+     (_xf("tempo 2.5x the marks: median goal not met yet"),)),
+    ("no-mark-half", Case("no mark 0.5x", "op74-2", "haydn/opus74no1/movement2.mxl", 311, bars=8,
+                          perform={**EXPR, "tempo_factor": 0.5}), ENSEMBLE,
+     (_xf("no metronome mark, played at half the assumed q = 100: notes > 2 s off"),)),
+    ("no-mark-double", Case("no mark 2x", "lindenbaum", "schubert/Lindenbaum.xml", 312, bars=28,
+                            perform={**EXPR, "tempo_factor": 2.0}), ENSEMBLE,
+     (_xf("no metronome mark, played at double the assumed q = 100: 100 ms goal not met yet"),)),
+    ("transposing-part", Case("transposing part", "k458-3-clarinet", "mozart/k458/movement3.mxl", 313, bars=10,
+                              perform=EXPR, timbres={"1st Violin": "clarinet"}, variant="clarinet_bb:0"),
+     ENSEMBLE, (_xf("a B-flat clarinet part read at written pitch (loader: sounding pitch from "
+                    "<transpose> not landed yet) and bowed strings"),)),
+    ("parts-out-of-step", Case("parts out of step", "bwv66.6", "bach/bwv66.6", 314, bars=8, perform=EXPR,
+                               timbres={"*": "organ"}, variant="out_of_step"), ENSEMBLE,
+     (_xf("parts out of step (loader re-synchronisation at barlines not landed yet) and organ"),)),
+]
+
+
+@pytest.fixture(scope="module")
+def workdir(tmp_path_factory):
+    return tmp_path_factory.mktemp("conditions")
+
+
+@pytest.fixture(scope="module")
+def runs(workdir):
+    """Renders and alignments shared by the tests of this module, made on first use."""
+    cache = {}
+
+    def get(key):
+        if key not in cache:
+            case = next(c for k, c, _, _ in CASES if k == key)
+            cache[key] = run_case(prepare_case(case, workdir))
+        return cache[key]
+    return get
+
+
+@pytest.mark.parametrize("key,goals", [pytest.param(k, g, marks=m, id=k) for k, _, g, m in CASES])
+def test_condition_meets_the_goals(runs, key, goals):
+    from stimkit.render.evaluate import summarize
+
+    run = runs(key)
+    d = summarize(run.scored)
+    desc = f"{run.case.condition} {run.case.piece}: {d}"
+    assert d["missing"] == 0, desc                            # every performed note has an estimate
+    assert not run.refused, run.refusal                       # task: no right piece refused
+    assert d["over_2s"] == 0, desc                            # MIREX gross-error bound, 2 s
+    assert d["within_300"] >= 0.995, desc                     # task goal; mir_eval default window
+    assert 1000 * d["median_s"] <= goals["median_ms"], desc   # task goal (piano 10 / ensembles 13 ms)
+    assert d["within_100"] >= goals["within_100"], desc       # task goal (piano 99 % / ensembles 95 %)
+
+
+def test_wrong_piece_is_still_refused(runs):
+    """The score of one condition's piece with another piece's recording must be refused."""
+    from stimkit.render.cases import wrong_piece_refused
+
+    a, b = runs("piano-dry"), runs("strings")
+    assert wrong_piece_refused(b.aligned_path, a.wav)      # quartet score, piano recording
+    assert wrong_piece_refused(a.aligned_path, b.wav)      # piano score, quartet recording
