@@ -103,6 +103,7 @@ class Session:
     force: bool = False
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
+    strict: bool = False       # fail when an alignment is doubtful (unreliable spans, doubtful repeats)
 
     def repeats_of(self, piece: "PieceSpec") -> str:
         """The repeats setting of ``piece``: its own, else the session's; ``printed`` when the

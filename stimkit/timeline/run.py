@@ -55,6 +55,7 @@ class PieceResult:
     median_confidence: float
     locate_cost: float
     repeats: list = field(default_factory=list)     # AlignResult.repeats
+    doubts: list = field(default_factory=list)      # align.run.doubts: unreliable spans, doubtful repeats
     tempo_ratio: float = 1.0                         # performed / notated tempo, whole piece
 
 
@@ -207,7 +208,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                         duration_s=duration_s, progress=progress)
     lap("pieces")
 
-    from ..align.run import align_score
+    from ..align.run import align_score, check_strict, doubts
 
     aligned = []
     for k, (p, sc, sp) in enumerate(zip(session.pieces, scores, spans)):
@@ -220,6 +221,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                               span_s=(lo, hi), repeats=session.repeats_of(p), progress=progress)
         except WorkFailed as exc:
             raise WorkFailed(f"piece '{p.name}' ({lo:.1f}-{hi:.1f} s of the recording): {exc}") from None
+        if getattr(session, "strict", False):
+            check_strict(res, piece=p.name)
         aligned.append(res)
         warnings.extend(f"{p.name}: {w}" for w in res.warnings)
     lap("alignment")
@@ -261,7 +264,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
             end_recording_s=float(row["recording"]) + float(row["duration"]) / clock.slope,
             start_onset_s=float(row["onset"]), end_onset_s=float(row["onset"] + row["duration"]),
             n_boundaries=int(len(t) - 1), median_confidence=med, locate_cost=sp.cost,
-            repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0))))
+            repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0)),
+            doubts=doubts(res)))
     tables.append(ev.silence_events(_silences(feats), clock=clock, min_duration_s=0.0))
     tables.append(ev.sync_events(mark_times, clock=clock))
     if changes is not None and len(changes):
@@ -317,6 +321,8 @@ def summary_lines(result: AnnotateResult) -> list[str]:
         line = repeats_line(p.name, p.repeats, p.tempo_ratio)
         if line:
             lines.append(line)
+        if p.doubts:
+            lines.append(f"  {p.name}: CHECK BY EAR: " + "; ".join(p.doubts))
     n_b = sum(p.n_boundaries for p in result.pieces)
     med = float(np.nanmedian([p.median_confidence for p in result.pieces])) if result.pieces else float("nan")
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
