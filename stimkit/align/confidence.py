@@ -1,8 +1,8 @@
 """Local alignment confidence: how likely a score position is placed within 100 ms, and where an
 alignment is unreliable.
 
-:func:`local_confidence` maps four measurements of the best warping path near a position to a
-probability by a logistic model (Cox 1958) fitted on rendered performances with known note times:
+:func:`local_confidence` maps six measurements of the alignment near a position to a probability
+by a logistic model (Cox 1958) fitted on rendered performances with known note times:
 
 - ``margin_100ms``, ``margin_300ms``: how much dearer the best path through that score frame
   becomes when the frame is moved 0.1 s / 0.3 s in the recording (:func:`stimkit.align.dtw.band_margins`,
@@ -10,7 +10,11 @@ probability by a logistic model (Cox 1958) fitted on rendered performances with 
   another placement fits nearly as well -- a held chord, a soft onset, a slow attack;
 - ``margin_coarse``: the same at the coarsest level for a move of about 2 s (a repeated passage
   that could be matched elsewhere);
-- ``ratio``: the local path cost over the mean cost of the matrix (Raffel & Ellis 2016).
+- ``ratio``: the local path cost over the mean cost of the matrix (Raffel & Ellis 2016);
+- ``pass_gap_s``: how far the second pass moved the position from the first (two alignments
+  that disagree cannot both be right);
+- ``tempo_dev``: how far the local tempo of the path strays from the tempo around it, relative
+  to the notated tempo (a path that rushes or stalls where the music does not).
 
 Each margin enters as ``log(1 + m)`` (capped at :data:`MARGIN_CAP`). The coefficients
 (:data:`COEFFICIENTS`) were fitted by ``bench/fit_confidence.py`` on the *development* renders of
@@ -32,15 +36,16 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["FEATURES", "COEFFICIENTS", "OFFSET", "MARGIN_CAP", "UNRELIABLE_BELOW", "local_confidence",
+__all__ = ["FEATURES", "COEFFICIENTS", "design", "OFFSET", "MARGIN_CAP", "UNRELIABLE_BELOW", "local_confidence",
            "unreliable_spans", "bridge_unsure"]
 
-FEATURES = ("margin_100ms", "margin_300ms", "margin_coarse", "ratio")
+FEATURES = ("margin_100ms", "margin_300ms", "margin_coarse", "ratio", "pass_gap_s", "tempo_dev")
 #: Margins above this (in mean-cost units) count as this much (a path 50 mismatching frames
 #: dearer is as sure as it gets; the band edge gives infinity).
 MARGIN_CAP = 50.0
-#: Intercept and one weight per feature (log1p of the capped margins, the ratio as is).
-COEFFICIENTS = (0.0, 1.5, 0.8, 0.4, -4.0)
+#: Intercept and one weight per feature (log1p of the capped margins, the ratio as is, log1p of the
+#: pass gap in units of 50 ms, the tempo deviation as is).
+COEFFICIENTS = (0.0, 1.5, 0.8, 0.4, -4.0, -1.0, -1.0)
 #: Added to the linear predictor (negative: more cautious).
 OFFSET = 0.0
 #: Positions under this confidence are unreliable; spans of them are named to the user.
@@ -50,14 +55,19 @@ JOIN_S = 1.0
 MIN_SPAN_S = 1.0
 
 
-def _design(local: pd.DataFrame) -> np.ndarray:
+def design(local: pd.DataFrame) -> np.ndarray:
+    """The model's design matrix (intercept, then one column per :data:`FEATURES`)."""
     cols = [np.ones(len(local))]
     for f in FEATURES:
         v = local[f].to_numpy(np.float64) if f in local else np.full(len(local), np.nan)
         if f.startswith("margin"):
             v = np.log1p(np.minimum(np.where(np.isfinite(v), v, MARGIN_CAP), MARGIN_CAP))
-        else:
+        elif f == "pass_gap_s":
+            v = np.log1p(np.where(np.isfinite(v), v, 0.0) / 0.05)
+        elif f == "ratio":
             v = np.where(np.isfinite(v), v, 1.0)
+        else:
+            v = np.where(np.isfinite(v), v, 0.0)
         cols.append(v)
     return np.stack(cols, axis=1)
 
@@ -66,7 +76,7 @@ def local_confidence(local: pd.DataFrame, *, coefficients=COEFFICIENTS, offset: 
     """Probability (0..1) that each position of ``local`` is placed within 100 ms."""
     if len(local) == 0:
         return np.zeros(0)
-    z = _design(local) @ np.asarray(coefficients, dtype=np.float64) + offset
+    z = design(local) @ np.asarray(coefficients, dtype=np.float64) + offset
     return 1.0 / (1.0 + np.exp(-z))
 
 
