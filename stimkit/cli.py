@@ -19,6 +19,7 @@ import typer
 
 from . import __version__
 from .errors import InputError, StimkitError
+from .session import DEFAULT_FEATURE_RATE_HZ
 
 app = typer.Typer(
     add_completion=False,
@@ -35,11 +36,35 @@ def _interactive() -> bool:
     return sys.stderr.isatty() and not os.environ.get("CI")
 
 
+class _StageLines:
+    """Progress for pipes, notebooks and logs: one line on stdout per stage as it finishes
+    (stderr stays for the one-line error).
+
+    A stage is one run of a ``progress(task, fraction)`` task up to ``fraction == 1``; a task
+    that starts again (its fraction falls) is a new stage and gets its own line."""
+
+    def __init__(self, stream=None):
+        import time
+
+        self._clock = time.perf_counter
+        self._t0 = self._clock()
+        self._last: dict[str, float] = {}
+        self._stream = stream
+
+    def __call__(self, task: str, fraction: float) -> None:
+        before = self._last.get(task)
+        self._last[task] = fraction
+        if fraction >= 1.0 and (before is None or before < 1.0):
+            print(f"stimkit: {task} done ({self._clock() - self._t0:.1f} s)",
+                  file=self._stream or sys.stdout, flush=True)
+
+
 def _with_progress(fn, *args, **kwargs):
     """Call ``fn(*args, progress=..., **kwargs)`` with a rich progress bar on a terminal; without
-    a terminal (CI, pipes) call it with ``progress=None`` and stay quiet."""
+    a terminal (CI, pipes, notebooks) print one line per stage as it finishes
+    (:class:`_StageLines`)."""
     if not _interactive():
-        return fn(*args, progress=None, **kwargs)
+        return fn(*args, progress=_StageLines(), **kwargs)
     from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
     bar = Progress(TextColumn("{task.description}"), BarColumn(), TimeElapsedColumn(), transient=True)
@@ -60,6 +85,38 @@ def _console():
     return Console(highlight=False, soft_wrap=True)
 
 
+def _plain_metavars(cmd):
+    """Show plain metavars in help (``DIR``, ``HZ``; nothing for flags) instead of type names
+    such as ``<bool>`` or ``<list[Path]>``; arguments show their name in the usage line."""
+    from typer.core import TyperArgument
+
+    for p in cmd.params:
+        if isinstance(p, TyperArgument):
+            piece = (p.metavar or p.name.upper()) + ("..." if p.nargs != 1 else "")
+            p.get_usage_pieces = (lambda ctx, _s=piece if p.required else f"[{piece}]": [_s])
+            p.display_type_rich = lambda ctx: ""
+        else:
+            shown = "" if getattr(p, "is_flag", False) else (p.metavar or p.name.upper())
+            p.display_type_rich = lambda ctx, _m=shown: _m
+    help_option = cmd.get_help_option
+
+    def plain_help_option(ctx, _get=help_option):
+        opt = _get(ctx)
+        if opt is not None:
+            opt.display_type_rich = lambda ctx: ""
+        return opt
+
+    cmd.get_help_option = plain_help_option
+    for sub in getattr(cmd, "commands", {}).values():
+        _plain_metavars(sub)
+    return cmd
+
+
+def cli_command():
+    """The click command behind :data:`app`, with plain metavars in its help."""
+    return _plain_metavars(typer.main.get_command(app))
+
+
 def _print_version(value: bool):
     if value:
         typer.echo(f"stimkit {__version__}")
@@ -77,15 +134,21 @@ def _root(
 
 @app.command()
 def plan(
-    scores: List[Path] = typer.Argument(..., help="Score files (.musicxml, .xml, .mxl, .mid)."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
+    scores: List[Path] = typer.Argument(..., metavar="SCORE", help="Score files (.musicxml, .xml, .mxl, .mid)."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
     no_repeats: bool = typer.Option(False, "--no-repeats", help="Keep printed order; do not expand repeats."),
-    gap_s: float = typer.Option(30.0, "--gap", help="Seconds between pieces in the programme plan."),
+    gap_s: float = typer.Option(30.0, "--gap", metavar="S", help="Seconds between pieces in the programme plan."),
+    kinds: Optional[str] = typer.Option(None, "--kinds", metavar="KIND,KIND",
+                                        help="Cue sheet: show only these boundary kinds, e.g. "
+                                             "dynamic,tempo,tempo_change (the tables keep all)."),
 ):
     """Boundaries and nominal timeline per score, programme plan and cue sheet."""
+    from .report.cuesheet import parse_kinds
     from .score.plan import make_plan, summary_tables
 
-    result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s)
+    shown = parse_kinds(kinds) if kinds is not None else None
+    result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s,
+                       cue_kinds=shown)
     con = _console()
     for table in summary_tables(result):
         con.print(table)
@@ -95,9 +158,10 @@ def plan(
 
 @app.command()
 def features(
-    audio: Path = typer.Argument(..., help="Recording (WAV, FLAC, OGG, AIFF)."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
-    rate: float = typer.Option(1.0, "--rate", help="Frames per second of the feature table (up to 100)."),
+    audio: Path = typer.Argument(..., metavar="AUDIO", help="Recording (WAV, FLAC, OGG, AIFF)."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
+    rate: float = typer.Option(DEFAULT_FEATURE_RATE_HZ, "--rate", metavar="HZ",
+                               help="Frames per second of the feature table (up to 100)."),
 ):
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
@@ -118,10 +182,10 @@ def _repeats_option(value: str) -> str:
 
 @app.command()
 def align(
-    score: Path = typer.Argument(..., help="Score file."),
-    audio: Path = typer.Argument(..., help="Recording of a performance of that score."),
-    out: Path = typer.Option(Path("."), "-o", "--out", help="Output folder."),
-    anchor: List[str] = typer.Option([], "--anchor", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
+    score: Path = typer.Argument(..., metavar="SCORE", help="Score file."),
+    audio: Path = typer.Argument(..., metavar="AUDIO", help="Recording of a performance of that score."),
+    out: Path = typer.Option(Path("."), "-o", "--out", metavar="DIR", help="Output folder."),
+    anchor: List[str] = typer.Option([], "--anchor", metavar="M[.B][@P]=S", help="MEASURE[.BEAT]\\[@PASS]=SECONDS (e.g. 12.3=45.6; 12.3@2=95.0 for the repeat), repeatable."),
     force: bool = typer.Option(False, "--force", help="Write the alignment even when it looks like a wrong piece."),
     repeats: str = typer.Option("auto", "--repeats", metavar="auto|all|none",
                                 help="Which repeats were played: decide from the recording (auto), all as written, or none."),
@@ -144,10 +208,19 @@ def align(
 
 @app.command()
 def annotate(
-    session: Optional[Path] = typer.Argument(None, help="Session file (TOML)."),
-    score: List[Path] = typer.Option([], "--score", help="One-piece shortcut: the score (repeat for several)."),
-    audio: Optional[Path] = typer.Option(None, "--audio", help="One-piece shortcut: the recording."),
-    out: Optional[Path] = typer.Option(None, "-o", "--out", help="Output folder (overrides the session file)."),
+    session: Optional[Path] = typer.Argument(None, metavar="SESSION", help="Session file (TOML)."),
+    score: List[Path] = typer.Option([], "--score", metavar="FILE",
+                                     help="Shortcut without a session file: a score (repeat for several, in the order played)."),
+    audio: Optional[Path] = typer.Option(None, "--audio", metavar="FILE", help="Shortcut: the recording."),
+    out: Optional[Path] = typer.Option(None, "-o", "--out", metavar="DIR", help="Output folder (overrides the session file)."),
+    rate: Optional[float] = typer.Option(None, "--rate", metavar="HZ",
+                                         help=f"Frames per second of the continuous features (default "
+                                              f"{DEFAULT_FEATURE_RATE_HZ:g}; overrides the session file)."),
+    anchor: List[str] = typer.Option([], "--anchor", metavar="M[.B][@P]=S",
+                                     help="Shortcut with one --score: bar M (beat B, pass P) sounded at S "
+                                          "seconds of the recording; repeatable."),
+    force: bool = typer.Option(False, "--force",
+                               help="Keep an alignment that looks like a wrong piece (a warning says so)."),
     template: bool = typer.Option(False, "--template", help="Print a commented starter session file."),
     repeats: Optional[str] = typer.Option(None, "--repeats", metavar="auto|all|none",
                                           help="Which repeats were played (overrides the session file; default auto)."),
@@ -164,11 +237,19 @@ def annotate(
     if session is None:
         if not score or audio is None:
             raise InputError("give a session file, or both --score and --audio (see --template)")
-        sess = session_from_files(score, audio, out_dir=out)
+        sess = session_from_files(score, audio, out_dir=out, rate_hz=rate, anchors=anchor, force=force)
         command = ["stimkit", "annotate"] + [a for s in score for a in ("--score", str(s))] + ["--audio", str(audio)]
+        command += [a for x in anchor for a in ("--anchor", x)]
     else:
-        sess = load_session(session, out_dir=out)
+        if anchor:
+            raise InputError("--anchor goes with --score/--audio; in a session file write anchors = [...] "
+                             "in the piece's [[piece]] table", path=session)
+        sess = load_session(session, out_dir=out, rate_hz=rate, force=force or None)
         command = ["stimkit", "annotate", str(session)]
+    if rate is not None:
+        command += ["--rate", f"{rate:g}"]
+    if force:
+        command.append("--force")
     if out is not None:
         command += ["-o", str(out)]
     if repeats is not None:
@@ -185,9 +266,82 @@ def annotate(
         con.print(line)
 
 
+def _numbers(text: str, what: str, cast=float) -> tuple:
+    try:
+        return tuple(cast(v) for v in text.split(",") if v.strip())
+    except ValueError:
+        raise InputError(f"{what} must be comma-separated numbers, got '{text}'") from None
+
+
+@app.command()
+def relate(
+    handoff: Path = typer.Argument(..., help="The _events.tsv written by annotate, or its output folder."),
+    physio: List[Path] = typer.Argument(..., help="Physiological files: BIDS *_physio.tsv.gz (with .json) "
+                                        "or a beat table (time s, interval ms); one per participant."),
+    out: Path = typer.Option(Path("relate"), "-o", "--out", help="Output folder."),
+    stim: Optional[Path] = typer.Option(None, "--stim", help="The _stim.tsv.gz features (found beside the "
+                                        "events when a folder is given)."),
+    kind: str = typer.Option("rr", "--kind", help="rr, ari, other (per-beat values), ecg, eda or rsp (signals)."),
+    column: Optional[str] = typer.Option(None, "--column", help="Column of the physiological file."),
+    mode: Optional[str] = typer.Option(None, "--mode", help="BIDS beat column: value_at_beat, marker or waveform."),
+    participant: List[str] = typer.Option([], "--participant", help="Label per file, in order (default: "
+                                          "sub-<label> of the file name, else its name)."),
+    offset_s: float = typer.Option(0.0, "--offset-s", help="Seconds added to the file's times to put them on "
+                                   "the events' recorder clock."),
+    window_beats: str = typer.Option("20,80", "--window-beats", help="Window sizes in beats (comma-separated)."),
+    window_s: str = typer.Option("10,30", "--window-s", help="Window sizes in seconds for fixed-rate series."),
+    guard_s: float = typer.Option(0.0, "--guard-s", help="Gap after the boundary before the after window (s)."),
+    pseudo_boundaries: int = typer.Option(1000, "--pseudo-boundaries", help="K for the calibrated test."),
+    surrogates: int = typer.Option(1000, "--surrogates", help="R for every null (surrogates, shifts, sets)."),
+    music_source: str = typer.Option("events", "--music-changes", help="events (feature_change rows) or detect "
+                                     "(from the continuous features)."),
+    max_radius_s: float = typer.Option(10.0, "--max-radius-s", help="Largest coincidence radius h (grid of 0.5 s)."),
+    music_leads: bool = typer.Option(False, "--music-leads", help="Count a coincidence only when the physiological "
+                                     "change follows the music change (by --lag-s to --lag-s + h)."),
+    lag_s: float = typer.Option(0.0, "--lag-s", help="Physiological latency for --music-leads (s)."),
+    seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
+    jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
+):
+    """Relate physiological series to the music: boundary windows and change-point coincidence."""
+    from dataclasses import replace
+
+    from .physio.inputs import PhysioSpec, find_handoff, relate_files
+    from .physio.relate import RelateSettings
+
+    if handoff.is_dir():
+        events_path, found_stim = find_handoff(handoff)
+        stim = stim or found_stim
+    else:
+        events_path = handoff
+    if participant and len(participant) != len(physio):
+        raise InputError(f"give one --participant per physiological file ({len(physio)}), or none")
+    if not 1 <= jobs <= 64 or surrogates < 19 or pseudo_boundaries < 19:
+        raise InputError("--jobs must be 1-64; --surrogates and --pseudo-boundaries at least 19")
+    if not 0.5 <= max_radius_s <= 60:
+        raise InputError("--max-radius-s must be between 0.5 and 60 s")
+    h = tuple(round(0.5 * k, 1) for k in range(1, int(round(max_radius_s / 0.5)) + 1))
+    settings = replace(RelateSettings(), window_beats=_numbers(window_beats, "--window-beats", int),
+                       window_s=_numbers(window_s, "--window-s"), guard_s=guard_s, n_pseudo=pseudo_boundaries,
+                       n_share_null=surrogates, n_surrogates=surrogates, music_source=music_source,
+                       h_grid_s=h, n_jobs=jobs, coincidence_window="music_leads" if music_leads else "symmetric",
+                       lag_s=lag_s)
+    if music_source not in ("events", "detect"):
+        raise InputError("--music-changes must be events or detect")
+    specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
+                        participant=participant[i] if participant else None) for i, f in enumerate(physio)]
+    command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]
+    run = _with_progress(relate_files, events_path, specs, out_dir=out, stim_path=stim, settings=settings,
+                         seed=seed, command=command)
+    con = _console()
+    from .physio.summary import summary_lines
+
+    for line in summary_lines(run):
+        con.print(line)
+
+
 @app.command()
 def demo(
-    out: Path = typer.Option(Path("demo-output"), "-o", "--out", help="Output folder."),
+    out: Path = typer.Option(Path("demo-output"), "-o", "--out", metavar="DIR", help="Output folder."),
 ):
     """Run the main job on the bundled scenario (two original pieces, a rendered session)."""
     from .demo.run import run_demo
@@ -201,7 +355,7 @@ def demo(
 def main(argv: list[str] | None = None) -> int:
     """Console entry point; returns the exit code (0 ok, 1 work failed, 2 bad input/usage)."""
     try:
-        app(args=argv, standalone_mode=True)  # click prints usage errors itself (exit 2)
+        cli_command()(args=argv, prog_name="stimkit", standalone_mode=True)  # click prints usage errors itself (exit 2)
     except SystemExit as exc:
         code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
         if code == 130:  # typer turns Ctrl-C into exit 130; outputs are staged, so none appeared

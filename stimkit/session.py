@@ -33,13 +33,22 @@ from .errors import InputError
 __all__ = [
     "Session", "PieceSpec", "SyncSpec", "SessionFileError",
     "load_session", "parse_session_text", "session_from_files", "template_text",
-    "annotate_session", "summary_lines", "key_lines",
+    "annotate_session", "summary_lines", "key_lines", "DEFAULT_FEATURE_RATE_HZ",
 ]
+
+#: Frames per second of the continuous features when neither the session file nor ``--rate``
+#: says otherwise; the same default for ``stimkit features`` and ``stimkit annotate``. Ten rows
+#: per second resolve the 0.4 s momentary-loudness window (EBU Tech 3341) and are a common
+#: sampling rate for skin-conductance and respiration analyses, while a 2-hour session stays at
+#: 72 000 rows.
+DEFAULT_FEATURE_RATE_HZ = 10.0
 
 AUDIO_SUFFIXES = (".wav", ".flac", ".ogg", ".aif", ".aiff", ".mp3")
 SCORE_SUFFIXES = (".musicxml", ".xml", ".mxl", ".mid", ".midi")
 _ANCHOR = re.compile(r"^\s*(\d+)(?:\.(\d+(?:\.\d+)?))?(?:@(\d+))?\s*=\s*([0-9]+(?:\.[0-9]*)?)\s*$")
-_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "bids", "sync", "piece"}
+_TOP_KEYS = {"recording", "output", "feature_rate_hz", "expand_repeats", "repeats", "force", "check_audio",
+             "bids", "sync", "piece",
+             "physio", "relate"}
 _BIDS_KEYS = {"subject", "session", "task", "run"}
 _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorder_file", "recorder_column",
               "offset_s", "search_start_s", "search_end_s"}
@@ -97,13 +106,16 @@ class Session:
     pieces: list[PieceSpec]
     sync: SyncSpec = field(default_factory=SyncSpec)
     bids: dict = field(default_factory=dict)
-    rate_hz: float = 10.0
+    rate_hz: float = DEFAULT_FEATURE_RATE_HZ
     out_dir: Path = Path("annotated")
     expand_repeats: bool = True
     force: bool = False
+    check_audio: bool = True   # write check-by-ear.flac beside the report
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
     strict: bool = False       # fail when an alignment is doubtful (unreliable spans, doubtful repeats)
+    physio: list = field(default_factory=list)   # stimkit.physio.inputs.PhysioSpec, one per [[physio]]
+    relate: dict = field(default_factory=dict)   # [relate] options (seed, surrogates, ...)
 
     def repeats_of(self, piece: "PieceSpec") -> str:
         """The repeats setting of ``piece``: its own, else the session's; ``printed`` when the
@@ -157,8 +169,10 @@ def _is_number(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))
 
 
-def load_session(path: str | Path, *, out_dir: str | Path | None = None) -> Session:
-    """Read and validate a session file; ``out_dir`` overrides its ``output``.
+def load_session(path: str | Path, *, out_dir: str | Path | None = None, rate_hz: float | None = None,
+                 force: bool | None = None) -> Session:
+    """Read and validate a session file; ``out_dir``, ``rate_hz`` and ``force`` (when given)
+    override its ``output``, ``feature_rate_hz`` and ``force``.
 
     Raises :class:`SessionFileError` (an :class:`InputError`, exit 2) listing every problem with
     its line, or :class:`InputError` when the file cannot be read or is not TOML.
@@ -171,7 +185,18 @@ def load_session(path: str | Path, *, out_dir: str | Path | None = None) -> Sess
                          "prints a starter file)", path=path) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise InputError(f"cannot read the session file ({exc}); it must be UTF-8 TOML", path=path) from None
-    return parse_session_text(text, base_dir=path.parent, source=path, out_dir=out_dir)
+    sess = parse_session_text(text, base_dir=path.parent, source=path, out_dir=out_dir)
+    if rate_hz is not None:
+        sess.rate_hz = _check_rate(rate_hz)
+    if force is not None:
+        sess.force = bool(force)
+    return sess
+
+
+def _check_rate(rate_hz) -> float:
+    if not _is_number(rate_hz) or not 0 < float(rate_hz) <= 100:
+        raise InputError(f"--rate must be a number of frames per second in (0, 100], got {rate_hz}")
+    return float(rate_hz)
 
 
 def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
@@ -212,16 +237,16 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
             bad(f"recording '{rec}' is not an audio file ({', '.join(AUDIO_SUFFIXES)})", key="recording")
 
     # scalars
-    rate = data.get("feature_rate_hz", 10.0)
+    rate = data.get("feature_rate_hz", DEFAULT_FEATURE_RATE_HZ)
     if not _is_number(rate) or not 0 < float(rate) <= 100:
         bad("'feature_rate_hz' must be a number of frames per second in (0, 100]", key="feature_rate_hz")
-        rate = 10.0
+        rate = DEFAULT_FEATURE_RATE_HZ
     output = data.get("output", "annotated")
     if not isinstance(output, str) or not output.strip():
         bad("'output' must be a folder name in quotes", key="output")
         output = "annotated"
     flags = {}
-    for k, default in (("expand_repeats", True), ("force", False)):
+    for k, default in (("expand_repeats", True), ("force", False), ("check_audio", True)):
         v = data.get(k, default)
         if not isinstance(v, bool):
             bad(f"'{k}' must be true or false", key=k)
@@ -248,6 +273,10 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
                 bad(f"[bids] {k} must be a text or a whole number", "bids", 0, k)
                 continue
             s = str(v)
+            if k == "run" and not re.fullmatch(r"[0-9]+", s):
+                # BIDS 1.11 entity table: run-<index>, an index is a non-negative integer
+                bad(f"[bids] run = {v!r} must be a whole number such as 1 (BIDS run index)", "bids", 0, k)
+                continue
             if not re.fullmatch(r"[A-Za-z0-9]+", s):
                 bad(f"[bids] {k} = '{s}' may hold only letters and digits (BIDS labels)", "bids", 0, k)
                 continue
@@ -389,12 +418,79 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
     if any(b2[0] <= a2[0] for a2, b2 in zip(starts, starts[1:])):
         problems.append((None, "the pieces' start_s must increase in the order the pieces are listed"))
 
+    physio, relate_opts = _physio_tables(data, bad, rel)
+
     if problems:
         raise SessionFileError(source, problems)
     out = Path(out_dir) if out_dir is not None else rel(output)
     return Session(recording=recording, pieces=pieces, sync=sync, bids=bids, rate_hz=float(rate),
                    out_dir=out, expand_repeats=flags["expand_repeats"], force=flags["force"],
-                   source=source, repeats=repeats)
+                   check_audio=flags["check_audio"],
+                   source=source, repeats=repeats, physio=physio, relate=relate_opts)
+
+
+_PHYSIO_KEYS = {"file", "kind", "column", "participant", "mode", "offset_s"}
+_RELATE_KEYS = {"seed", "surrogates", "pseudo_boundaries", "window_beats", "window_s", "jobs", "guard_s"}
+
+
+def _physio_tables(data: dict, bad, rel) -> tuple[list, dict]:
+    """The ``[[physio]]`` tables (one physiological file each) and the ``[relate]`` options."""
+    from .physio.inputs import PhysioSpec
+    from .physio.read import READ_KINDS
+
+    out = []
+    pl = data.get("physio", [])
+    if not isinstance(pl, list) or not all(isinstance(p, dict) for p in pl):
+        bad("'physio' must be written as [[physio]] tables (file, kind, column, participant)", key="physio")
+        pl = []
+    seen = set()
+    for i, p in enumerate(pl):
+        where = f"[[physio]] #{i + 1}"
+        for k in sorted(set(p) - _PHYSIO_KEYS):
+            bad(f"{where}: unknown key '{k}' (known: {', '.join(sorted(_PHYSIO_KEYS))})", "physio", i, k)
+        f = p.get("file")
+        if not isinstance(f, str) or not f.strip():
+            bad(f"{where}: missing file = \"participant_physio.tsv.gz\" (or a beat table)", "physio", i, "file")
+            continue
+        path = rel(f)
+        if not path.is_file():
+            bad(f"{where}: file '{f}' not found (looked for {path})", "physio", i, "file")
+        kind = p.get("kind", "rr")
+        if kind not in READ_KINDS:
+            bad(f"{where}: kind must be one of {', '.join(READ_KINDS)}", "physio", i, "kind")
+        for k in ("column", "participant", "mode"):
+            if k in p and (not isinstance(p[k], str) or not p[k].strip()):
+                bad(f"{where}: {k} must be a text in quotes", "physio", i, k)
+        if "mode" in p and p["mode"] not in ("value_at_beat", "marker", "waveform"):
+            bad(f"{where}: mode must be value_at_beat, marker or waveform", "physio", i, "mode")
+        off = p.get("offset_s", 0.0)
+        if not _is_number(off):
+            bad(f"{where}: offset_s must be a number of seconds (added to the file's times)", "physio", i,
+                "offset_s")
+            off = 0.0
+        label = p.get("participant")
+        key = (label or path.name, kind, p.get("column"))
+        if key in seen:
+            bad(f"{where}: the same participant and series is listed twice", "physio", i, "participant")
+        seen.add(key)
+        out.append(PhysioSpec(file=path, kind=kind, column=p.get("column"), participant=label,
+                              mode=p.get("mode"), offset_s=float(off)))
+    opts = data.get("relate", {})
+    if not isinstance(opts, dict):
+        bad("'relate' must be a table: [relate] with seed, surrogates, ...", key="relate")
+        opts = {}
+    for k in sorted(set(opts) - _RELATE_KEYS):
+        bad(f"unknown key '{k}' in [relate] (known: {', '.join(sorted(_RELATE_KEYS))})", "relate", 0, k)
+    for k, lo in (("seed", 0), ("surrogates", 19), ("pseudo_boundaries", 19), ("jobs", 1)):
+        if k in opts and (isinstance(opts[k], bool) or not isinstance(opts[k], int) or opts[k] < lo):
+            bad(f"[relate] {k} must be a whole number >= {lo}", "relate", 0, k)
+    for k in ("window_beats", "window_s"):
+        if k in opts and (not isinstance(opts[k], list) or not opts[k]
+                          or not all(_is_number(v) and v > 0 for v in opts[k])):
+            bad(f"[relate] {k} must be a list of positive numbers", "relate", 0, k)
+    if "guard_s" in opts and (not _is_number(opts["guard_s"]) or opts["guard_s"] < 0):
+        bad("[relate] guard_s must be a number of seconds >= 0", "relate", 0, "guard_s")
+    return out, dict(opts)
 
 
 def _stem(p: Path) -> str:
@@ -405,9 +501,23 @@ def _stem(p: Path) -> str:
     return p.stem
 
 
-def session_from_files(scores, audio, *, out_dir=None) -> Session:
-    """The ``--score S --audio A`` shortcut: pieces in the order given, no sync, default rate."""
+def session_from_files(scores, audio, *, out_dir=None, rate_hz: float | None = None,
+                       anchors=(), force: bool = False) -> Session:
+    """The ``--score S --audio A`` shortcut: pieces in the order given, no sync.
+
+    ``rate_hz`` (default :data:`DEFAULT_FEATURE_RATE_HZ`), ``anchors`` (``MEASURE[.BEAT][@PASS]=SECONDS``
+    texts, only with one score) and ``force`` mean what the session file's keys of the same
+    names mean."""
     scores = [Path(s) for s in scores]
+    anchors = list(anchors)
+    rate = DEFAULT_FEATURE_RATE_HZ if rate_hz is None else _check_rate(rate_hz)
+    if anchors and len(scores) != 1:
+        raise InputError("--anchor needs exactly one --score; for several pieces write anchors = [...] "
+                         "in each [[piece]] table of a session file (see --template)")
+    for a in anchors:
+        if not _ANCHOR.match(a):
+            raise InputError(f"--anchor '{a}' is not MEASURE[.BEAT][@PASS]=SECONDS "
+                             "(e.g. 12.3=61.5, or 8@2=40 for the repeat of bar 8)")
     audio = Path(audio)
     problems: list[tuple[int | None, str]] = []
     if not audio.is_file():
@@ -420,8 +530,9 @@ def session_from_files(scores, audio, *, out_dir=None) -> Session:
         problems.append((None, "two scores have the same file name; use a session file to name them"))
     if problems:
         raise SessionFileError(None, problems)
-    pieces = [PieceSpec(score=s, name=n) for s, n in zip(scores, names)]
-    return Session(recording=audio, pieces=pieces,
+    pieces = [PieceSpec(score=s, name=n, anchors=list(anchors) if len(scores) == 1 else [])
+              for s, n in zip(scores, names)]
+    return Session(recording=audio, pieces=pieces, rate_hz=rate, force=bool(force),
                    out_dir=Path(out_dir) if out_dir is not None else Path("."), source=None)
 
 
@@ -440,7 +551,7 @@ recording = "session.flac"
 # Where the outputs go (created if needed; `-o DIR` on the command line overrides it).
 output = "annotated"
 
-# Rows per second of the continuous feature file (_stim.tsv.gz), up to 100.
+# Rows per second of the continuous feature file (_stim.tsv.gz), up to 100 (default 10).
 feature_rate_hz = 10
 
 # Which repeats the performers played: "auto" (decide from the recording, for every repeat sign,
@@ -450,6 +561,10 @@ repeats = "auto"
 
 # Keep an alignment that looks like the wrong piece instead of stopping (use with care).
 force = false
+
+# Write check-by-ear.flac beside the report: the recording with clicks at the placed bars and
+# boundaries, to verify the alignment by listening (about 1.2 MB per minute of recording).
+check_audio = true
 
 # BIDS naming of the outputs: sub-<subject>_ses-<session>_task-<task>_run-<run>_events.tsv.
 # All optional; letters and digits only.
@@ -487,6 +602,17 @@ start_s = 45                 # optional rough start in the recording (seconds)
 
 [[piece]]
 score = "second-piece.musicxml"
+
+# Optional: physiological recordings of the participants, one [[physio]] table per file, on the
+# recorder clock (BIDS *_physio.tsv.gz with its .json, or a beat table: time s, interval ms).
+# annotate then relates each to the music (docs/physiology.md): results in <output>/physio/.
+# [[physio]]
+# file = "sub-01_physio.tsv.gz"
+# kind = "rr"                # rr, ari, other, ecg, eda, rsp
+# participant = "01"
+# [relate]
+# seed = 1
+# surrogates = 1000
 '''
 
 

@@ -203,14 +203,15 @@ def _music21_beats(path) -> int:
 
 def test_rerun_is_byte_identical(runs):
     a, b = runs
-    names = sorted(p.name for p in a.iterdir())
-    assert names == sorted(p.name for p in b.iterdir())
+    names = sorted(p.relative_to(a).as_posix() for p in a.rglob("*") if p.is_file())
+    assert names == sorted(p.relative_to(b).as_posix() for p in b.rglob("*") if p.is_file())
     for n in names:
-        if n == "provenance.json":
+        if n in ("provenance.json", "physio/relate.json"):  # the command line differs on purpose
             pa, pb = (json.loads((d / n).read_text()) for d in (a, b))
             for d in (pa, pb):
                 d.pop("timings_s", None)
                 d.pop("command", None)
+                d.pop("Command", None)
             assert pa == pb
         else:
             assert (a / n).read_bytes() == (b / n).read_bytes(), n
@@ -229,14 +230,70 @@ def test_provenance_records_inputs_and_settings(out):
     assert "timings_s" in prov and prov["settings"]["feature_rate_hz"] == asked
 
 
+def test_outputs_name_no_machine_folder(runs):
+    # paths are written relative to the session file's folder (docs/session-and-outputs.md)
+    repo = str(DEMO.resolve().parent)
+    for out in runs:
+        for f in out.iterdir():
+            if f.suffix in (".json", ".tsv", ".html"):
+                text = f.read_text("utf-8")
+                assert repo not in text and str(out.parent) not in text, f.name
+    prov = json.loads((runs[0] / "provenance.json").read_text())
+    assert prov["inputs"]["recording"]["path"] == "demo-session.flac"
+    assert prov["settings"]["output"] == "."
+
+
 def test_report_is_self_contained(out):
     html = (out / "report.html").read_text()
-    assert "data:image/png;base64," in html
-    assert "http://" not in html and "https://" not in html
+    assert html.count("<svg") == 3                     # the overview and one panel per piece
+    assert "http://" not in html and "https://" not in html and "<script src" not in html
     assert (out / "report.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature
+    assert (out / "check-by-ear.flac").read_bytes()[:4] == b"fLaC"          # FLAC stream marker
 
 
 def test_demo_prints_a_summary(runs, truth):
     text = SAID["demo"]
     assert f"{len(truth['pieces'])} piece(s) found" in text  # the renderer's count of pieces and "drift" in text and "boundaries placed" in text
     assert "report.html" in text and "out" in text
+
+
+def test_onset_rate_and_tempo_level_inside_the_pieces(out, truth):
+    # the demo recording has sync clicks, speech and applause around the pieces: the onset rate
+    # inside the pieces must still follow the renderer's note times (the old peak picker,
+    # normalised to the file's loudest event, read a fraction of it), and the audio tempo must sit
+    # at the metrical level of the alignment's tempo
+    side = json.loads((out / f"{BASE}_stim.json").read_text())
+    data = pd.read_csv(out / f"{BASE}_stim.tsv.gz", sep="\t", header=None, na_values=["n/a"],
+                       keep_default_na=False, names=side["Columns"])
+    t_rec = side["RecordingStartTime"] + np.arange(len(data)) / side["RecordingSamplingFrequency"]
+    notes = pd.read_csv(DEMO / "demo-truth-notes.tsv", sep="\t")
+    for p in truth["pieces"]:
+        a, b = p["start_recording_s"] + 5, p["end_recording_s"] - 5
+        inside = (t_rec > a) & (t_rec < b)
+        on = np.sort(notes.loc[notes["piece"] == p["piece"], "recording"].to_numpy())
+        on = on[np.r_[True, np.diff(on) > 0.03]]  # a chord (spread by a few ms) is one onset
+        true_rate = np.sum((on > a) & (on < b)) / (b - a)
+        assert data.loc[inside, "onset_rate_hz"].mean() == pytest.approx(true_rate, rel=0.3)
+        ratio = (data.loc[inside, "tempo_bpm"] / data.loc[inside, "aligned_tempo_bpm"]).dropna()
+        assert len(ratio) and np.median(np.abs(np.log(ratio))) <= np.log(1.15)
+
+
+def test_demo_participant_planted_responses_found(out):
+    # the invented participant of stimkit/demo/participant.py: steps planted at three section
+    # boundaries (and after three loudness changes); the calibrated test flags exactly the planted
+    # section boundaries, and the change points coincide with loudness changes beyond the IAAFT null
+    from stimkit.demo.participant import PLANTED, loudness_feature
+
+    phys = out / "physio"
+    bt = pd.read_csv(phys / "boundary_tests.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
+    sec = bt[(bt.trial_type == "section") & (bt.N == 20) & (bt.status == "ok")]
+    planted = [t for t, what, _ in PLANTED if what == "section"]
+    hit = sec.onset.map(lambda t: any(abs(t - p) < 0.5 for p in planted))
+    assert hit.sum() == 3 and sec.loc[hit, "significant"].all()
+    assert not sec.loc[~hit, "significant"].any() and (~hit).sum() >= 1
+    cs = pd.read_csv(phys / "coincidence_summary.tsv", sep="\t", na_values=["n/a"], keep_default_na=False)
+    name = loudness_feature(cs.feature_set)  # read from the outputs, not a fixed column name
+    loud = cs[(cs.feature_set == name) & (cs.reference == "physio") & (cs.null_method == "iaaft")]
+    assert loud.p_global.iloc[0] < 0.05
+    page = (out / "report.html").read_text()
+    assert "Physiology and music" in page and "not a clinical tool" in page

@@ -8,7 +8,7 @@ Modules
   LRA, max M/S, sample and true peak), streaming.
 - :mod:`~stimkit.audio.spectral` -- streaming STFT, centroid, bandwidth, roll-off, flatness, flux.
 - :mod:`~stimkit.audio.rhythm` -- onset strength, onsets, onset rate, local tempo, pulse clarity.
-- :mod:`~stimkit.audio.tonal` -- chroma, local key and key clarity, harmonic change, roughness.
+- :mod:`~stimkit.audio.tonal` -- chroma, local key and key strength, harmonic change, roughness.
 - :mod:`~stimkit.audio.silence` -- silent segments of a level curve or of a file.
 - :mod:`~stimkit.audio.pipeline` -- ``compute_features`` / ``features_from_array`` ->
   ``FeatureResult``; ``write_features``; ``summary_table``.

@@ -25,6 +25,8 @@ Conventions
   above ~43 Hz) the value is linearly interpolated at the frame centre. Onset rate, tempo and key
   are windowed around the frame centre (windows stated in the column descriptions). With rates
   above 4 Hz, tempo is evaluated at 4 Hz and each frame takes the nearest value.
+- Frames whose centre lies in a silent segment get n/a (NaN; ``None`` for the key name) for the
+  tempo, key and tonal columns (:data:`UNDEFINED_IN_SILENCE`): nothing is measured there.
 - Memory is bounded by the block length (10 s, two blocks decoded ahead in a reader thread) plus
   a few floats per STFT frame and per 5 ms. The loudness path runs in a second thread.
 
@@ -51,48 +53,55 @@ from .read import (MIN_SAMPLE_RATE_HZ, MAX_SAMPLE_RATE_HZ, StreamResampler, _cle
                    audio_info, iter_blocks)
 
 __all__ = ["FeatureResult", "compute_features", "features_from_array", "write_features",
-           "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "MAX_RATE_HZ", "BLOCK_S"]
+           "summary_table", "COLUMNS", "UNITS", "DESCRIPTIONS", "UNDEFINED_IN_SILENCE", "MAX_RATE_HZ",
+           "BLOCK_S"]
 
 MAX_RATE_HZ = 100.0
 BLOCK_S = 10.0
 LEVEL_FLOOR_DB = -120.0
 TEMPO_EVAL_MAX_HZ = 4.0
 
-CHROMA_COLUMNS = [f"chroma_{p}" for p in tonal.PITCH_CLASSES]
+CHROMA_COLUMNS = [f"chroma_{tonal.column_safe(p)}" for p in tonal.PITCH_CLASSES]
+#: Columns set to n/a (NaN, or None for text) in frames inside a silent segment: no tempo, key or
+#: tonal value is measured where nothing sounds.
+UNDEFINED_IN_SILENCE = (["tempo_bpm", "tempo_confidence", "pulse_clarity"] + CHROMA_COLUMNS
+                        + ["key", "key_strength", "harmonic_change", "roughness"])
 COLUMNS = (["momentary_lufs", "short_term_lufs", "rms_dbfs", "onset_strength", "onset_rate_hz",
             "tempo_bpm", "tempo_confidence", "pulse_clarity", "centroid_hz", "bandwidth_hz",
             "rolloff_hz", "flatness", "flux"] + CHROMA_COLUMNS
-           + ["key", "key_clarity", "harmonic_change", "roughness", "silent"])
+           + ["key", "key_strength", "harmonic_change", "roughness", "silent"])
 
 UNITS = {
     "momentary_lufs": "LUFS", "short_term_lufs": "LUFS", "rms_dbfs": "dBFS", "onset_strength": "dB",
     "onset_rate_hz": "Hz", "tempo_bpm": "BPM", "tempo_confidence": "ratio", "pulse_clarity": "ratio",
     "centroid_hz": "Hz", "bandwidth_hz": "Hz", "rolloff_hz": "Hz", "flatness": "ratio",
     "flux": "arbitrary", **{c: "ratio" for c in CHROMA_COLUMNS}, "key": "n/a",
-    "key_clarity": "ratio", "harmonic_change": "arbitrary", "roughness": "arbitrary", "silent": "n/a",
+    "key_strength": "ratio", "harmonic_change": "arbitrary", "roughness": "arbitrary", "silent": "n/a",
 }
 
+_SILENT_NA = " It is n/a in silent frames."
+
 DESCRIPTIONS = {
-    "momentary_lufs": "Momentary loudness (ITU-R BS.1770-4, EBU Tech 3341): K-weighted 0.4 s window centred on the frame; -120 for digital silence.",
-    "short_term_lufs": "Short-term loudness (EBU Tech 3341): K-weighted 3 s window centred on the frame, clipped at the file edges.",
-    "rms_dbfs": "RMS level of the mono mix over the frame interval: 10 log10 of the mean square (a full-scale sine reads -3.01 dBFS, a full-scale square wave 0).",
-    "onset_strength": "Log-mel spectral flux (mean positive dB increase over 128 mel bands), mean over the frame interval.",
-    "onset_rate_hz": "Detected onsets per second in a 3 s window centred on the frame.",
-    "tempo_bpm": "Local tempo from the onset-strength autocorrelation in an 8.9 s Hann window centred on the frame (40-240 BPM); n/a without periodicity.",
-    "tempo_confidence": "Normalised autocorrelation (0-1) of the onset strength at the local beat period.",
-    "pulse_clarity": "Beat-level pulse clarity: maximum normalised autocorrelation over 40-240 BPM (Lartillot et al. 2008, MaxAutocor).",
-    "centroid_hz": "Spectral centroid of the 22.05 kHz mono mix, mean over the frame interval.",
-    "bandwidth_hz": "Spectral bandwidth (magnitude-weighted standard deviation around the centroid), mean over the frame interval.",
-    "rolloff_hz": "Frequency below which 85 % of the spectral magnitude lies, mean over the frame interval.",
-    "flatness": "Spectral flatness (geometric / arithmetic mean of the power spectrum, 0-1), mean over the frame interval.",
-    "flux": "Positive spectral flux (mean positive magnitude increase per bin from the previous STFT frame), mean over the frame interval.",
-    **{c: f"Chroma energy of pitch class {c.split('_', 1)[1]} (STFT chroma, A440, each STFT frame scaled to max 1), mean over the frame interval."
-       for c in CHROMA_COLUMNS},
-    "key": "Local key: best Pearson correlation of the chroma summed over a 10 s window centred on the frame with the 24 Krumhansl-Kessler profiles.",
-    "key_clarity": "Key clarity: that best correlation (-1..1).",
-    "harmonic_change": "Harmonic change (Harte, Sandler & Gasser 2006): distance between smoothed tonal centroids of neighbouring STFT frames, mean over the frame interval.",
-    "roughness": "Sensory roughness after Sethares (1993) from the 20 strongest spectral peaks, mean over the frame interval.",
-    "silent": "1 if the frame centre lies in a silent segment (K-weighted 50 ms level below -50 LUFS for at least 1 s), else 0.",
+    "momentary_lufs": "Momentary loudness in LUFS (ITU-R BS.1770-4, EBU Tech 3341): the K-weighted level of the 0.4 s window centred on the frame; -120 for digital silence.",
+    "short_term_lufs": "Short-term loudness in LUFS (EBU Tech 3341): the K-weighted level of the 3 s window centred on the frame, clipped at the file edges; -120 for digital silence.",
+    "rms_dbfs": "RMS level of the mono mix over the frame interval in dBFS: 10 log10 of the mean square, so that a full-scale sine reads -3.01 dBFS and a full-scale square wave 0 dBFS.",
+    "onset_strength": "Onset strength in dB, mean over the frame interval: a SuperFlux-style spectral flux (Böck & Widmer 2013), the mean over 24-per-octave log-frequency bands of the positive dB rise of the next three STFT frames above the band's maximum over its neighbours and over the previous five frames.",
+    "onset_rate_hz": "Onset rate in onsets per second: the onsets found by adaptive-threshold peak picking of the onset strength (Bello et al. 2005) in a 3 s window centred on the frame.",
+    "tempo_bpm": "Local tempo in beats per minute, from the autocorrelation of the onset strength in an 8.9 s Hann window centred on the frame (40-240 BPM), the metrical level chosen with a log-normal prior around 120 BPM (Ellis 2007); n/a where the window holds no periodicity." + _SILENT_NA,
+    "tempo_confidence": "Tempo confidence as a ratio from 0 to 1: the normalised autocorrelation of the onset strength at the chosen beat period." + _SILENT_NA,
+    "pulse_clarity": "Pulse clarity as a ratio from 0 to 1: the maximum of the normalised autocorrelation of the onset strength over the beat range (40-240 BPM) in the tempo window, one of the pulse-clarity descriptors of Lartillot, Eerola, Toiviainen & Fornari (2008)." + _SILENT_NA,
+    "centroid_hz": "Spectral centroid of the 22.05 kHz mono mix in Hz, mean over the frame interval.",
+    "bandwidth_hz": "Spectral bandwidth in Hz, the magnitude-weighted standard deviation of frequency around the centroid, mean over the frame interval.",
+    "rolloff_hz": "Spectral roll-off in Hz, the frequency below which 85 % of the spectral magnitude lies, mean over the frame interval.",
+    "flatness": "Spectral flatness as a ratio from 0 to 1, the geometric over the arithmetic mean of the power spectrum, mean over the frame interval.",
+    "flux": "Positive spectral flux in linear magnitude per frequency bin (a full-scale sine has magnitude 1 at its bin): the mean positive magnitude increase per bin from the previous STFT frame, mean over the frame interval.",
+    **{c: f"Chroma energy of pitch class {p} as a ratio from 0 to 1 (STFT chroma, A440, each STFT frame scaled to a maximum of 1), mean over the frame interval." + _SILENT_NA
+       for c, p in zip(CHROMA_COLUMNS, tonal.PITCH_CLASSES)},
+    "key": "Local key, the best of the 24 Krumhansl-Kessler key profiles (Krumhansl 1990) by Pearson correlation with the chroma summed over a 10 s window centred on the frame." + _SILENT_NA,
+    "key_strength": "Key strength, the Pearson correlation (from -1 to 1, given as a ratio) of the chroma summed over the 10 s key window with the best of the 24 Krumhansl-Kessler key profiles, the key strength of the Krumhansl-Schmuckler key-finding algorithm (Krumhansl 1990; Temperley 1999)." + _SILENT_NA,
+    "harmonic_change": "Harmonic change in tonal-centroid units (Harte, Sandler & Gasser 2006): the distance between the smoothed 6-dimensional tonal centroids of neighbouring STFT frames, mean over the frame interval." + _SILENT_NA,
+    "roughness": "Sensory roughness (Plomp & Levelt 1965; Vassilakis 2001), estimated with Sethares' (1993) parameterisation of the Plomp-Levelt curve summed over pairs of the 20 strongest spectral peaks below 5 kHz, in arbitrary units that grow with level squared (not in asper), mean over the frame interval." + _SILENT_NA,
+    "silent": "Silence flag: 1 if the frame centre lies in a silent segment (the K-weighted 50 ms level below -50 LUFS for at least 1 s), else 0.",
 }
 
 
@@ -164,6 +173,8 @@ class _Analyser:
         self._pool.shutdown(wait=True)
         self._spectra(self.stft.push(self.res.push(np.zeros(0), last=True)))
         self._spectra(self.stft.finish())
+        self._env.append(self.onset.finish())
+
         def cat(xs, shape):
             out = np.concatenate(xs, axis=0) if xs else np.zeros(shape, np.float32)
             xs.clear()  # keep one copy only
@@ -297,9 +308,9 @@ def _analyse(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int
     cagg = _aggregate(chroma, times_s=t_stft, rate_hz=rate_hz, n_frames=n_frames)
     for j, name in enumerate(CHROMA_COLUMNS):
         cols[name] = cagg[:, j]
-    kidx, kclar = tonal.local_key(chroma, frame_rate_hz=fr, centres_s=centres)
+    kidx, kstrength = tonal.local_key(chroma, frame_rate_hz=fr, centres_s=centres)
     cols["key"] = np.array([tonal.KEY_NAMES[i] if i >= 0 else None for i in kidx], dtype=object)
-    cols["key_clarity"] = kclar
+    cols["key_strength"] = kstrength
     if progress is not None:
         progress("features", 0.96)
     cols["harmonic_change"] = _aggregate(tonal.harmonic_change(chroma), times_s=t_stft,
@@ -310,6 +321,12 @@ def _analyse(blocks: Iterable[np.ndarray], *, sample_rate_hz: int, channels: int
     segs = silence.silence_segments(level, step_s=0.005, window_s=silence.SILENCE_WINDOW_S,
                                     duration_s=duration)
     cols["silent"] = silence.silence_mask(segs, centres)
+    quiet = cols["silent"] == 1
+    if quiet.any():
+        for c in UNDEFINED_IN_SILENCE:
+            col = np.array(cols[c], dtype=object if c == "key" else np.float64)
+            col[quiet] = None if c == "key" else np.nan
+            cols[c] = col
 
     frame = pd.DataFrame({c: cols[c] for c in COLUMNS},
                          index=pd.Index(start_s + centres, name="recording"))

@@ -1,12 +1,13 @@
-"""Tonal descriptors: chroma, local key and key clarity, harmonic change, sensory roughness.
+"""Tonal descriptors: chroma, local key and key strength, harmonic change, sensory roughness.
 
 What it computes
 ----------------
 - :class:`ChromaStream` -- 12-bin chroma per STFT frame (librosa's STFT chroma filter bank, A440
   tuning, C first), each frame scaled to a maximum of 1 (silent frames: zeros).
-- :func:`local_key` -- key and key clarity at given times: the chroma summed over a centred window
+- :func:`local_key` -- key and key strength at given times: the chroma summed over a centred window
   (``KEY_WINDOW_S``) is correlated (Pearson) with the 24 rotations of the Krumhansl-Kessler
-  probe-tone profiles; the best one names the key, its correlation is the key clarity.
+  probe-tone profiles; the best one names the key, its correlation is the key strength (the
+  name the key-finding literature gives it: Krumhansl 1990; Temperley 1999).
 - :func:`harmonic_change` -- Harte, Sandler & Gasser's harmonic change detection function: the
   6-D tonal centroid of each frame's L1-normalised chroma (``librosa.feature.tonnetz``), smoothed
   over time with a Gaussian (sigma ``HCDF_SIGMA_FRAMES``), and the Euclidean distance between the
@@ -19,29 +20,41 @@ What it computes
 Conventions
 -----------
 Frame times as in :mod:`stimkit.audio.spectral`. Key names: pitch class with the usual spelling
-(C, C#, D, Eb, E, F, F#, G, Ab, A, Bb, B) and "major"/"minor". Key clarity is a correlation
+(C, C#, D, Eb, E, F, F#, G, Ab, A, Bb, B) and "major"/"minor"; in column names ``#`` is written
+``s`` (:func:`column_safe`). Key strength is a correlation
 (-1..1). Harmonic change is a distance in tonal-centroid space (no unit); roughness is in
-Sethares' dissonance units (no unit; grows with level squared).
+Sethares' dissonance units (no unit, not asper; grows with level squared). Key strength and
+roughness keep the names the key-finding literature and psychoacoustics give them.
 
 References
 ----------
 C. L. Krumhansl (1990), Cognitive Foundations of Musical Pitch, Oxford UP (probe-tone profiles,
-key-finding algorithm with E. J. Kessler / M. A. Schmuckler). C. Harte, M. Sandler, M. Gasser
+key-finding algorithm with E. J. Kessler / M. A. Schmuckler). D. Temperley (1999), What's key
+for key? The Krumhansl-Schmuckler key-finding algorithm reconsidered, Music Perception 17(1). C. Harte, M. Sandler, M. Gasser
 (2006), Detecting harmonic change in musical audio, ACM AMCMM. W. A. Sethares (1993), Local
 consonance and the relationship between timbre and scale, JASA 94(3). R. Plomp, W. J. M. Levelt
-(1965), Tonal consonance and critical bandwidth, JASA 38(4).
+(1965), Tonal consonance and critical bandwidth, JASA 38(4). P. N. Vassilakis (2001), Perceptual
+and physical properties of amplitude fluctuation and their musical significance, PhD thesis,
+UCLA ("roughness" as the psychoacoustic name of the sensation; its unit, the asper, is not what
+this function returns).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["ChromaStream", "local_key", "harmonic_change", "roughness", "KEY_NAMES",
+__all__ = ["ChromaStream", "column_safe", "local_key", "harmonic_change", "roughness", "KEY_NAMES",
            "PITCH_CLASSES", "KK_MAJOR", "KK_MINOR", "KEY_WINDOW_S", "N_PEAKS"]
 
 PITCH_CLASSES = ["C", "C#", "D", "Eb", "E", "F", "F#", "G", "Ab", "A", "Bb", "B"]
 KK_MAJOR = np.array([6.35, 2.23, 3.48, 2.33, 4.38, 4.09, 2.52, 5.19, 2.39, 3.66, 2.29, 2.88])
 KK_MINOR = np.array([6.33, 2.68, 3.52, 5.38, 2.60, 3.53, 2.54, 4.75, 3.98, 2.69, 3.34, 3.17])
+def column_safe(pitch_class: str) -> str:
+    """A pitch-class name usable in a column name that R and MATLAB read without quoting:
+    ``#`` becomes ``s`` (``C#`` -> ``Cs``); flats are already plain letters (``Eb``)."""
+    return pitch_class.replace("#", "s")
+
+
 KEY_NAMES = [f"{p} major" for p in PITCH_CLASSES] + [f"{p} minor" for p in PITCH_CLASSES]
 KEY_WINDOW_S = 10.0
 HCDF_SIGMA_FRAMES = 8.0
@@ -71,7 +84,7 @@ def _key_templates() -> np.ndarray:
 
 def local_key(chroma: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray,
               window_s: float = KEY_WINDOW_S) -> tuple[np.ndarray, np.ndarray]:
-    """Key index (0-23 into :data:`KEY_NAMES`, -1 if no energy) and clarity at ``centres_s``."""
+    """Key index (0-23 into :data:`KEY_NAMES`, -1 if no energy) and key strength at ``centres_s``."""
     from scipy.ndimage import uniform_filter1d
 
     ch = np.asarray(chroma, dtype=np.float32)
@@ -90,10 +103,10 @@ def local_key(chroma: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray
     ok = norm > 1e-9
     r = (z / np.where(ok, norm, 1.0)[:, None]) @ _key_templates().T  # (m, 24)
     idx = np.argmax(r, axis=1)
-    clarity = r[np.arange(r.shape[0]), idx]
+    strength = r[np.arange(r.shape[0]), idx]
     idx = np.where(ok, idx, -1)
-    clarity = np.where(ok, clarity, np.nan)
-    return idx, clarity
+    strength = np.where(ok, strength, np.nan)
+    return idx, strength
 
 
 def harmonic_change(chroma: np.ndarray) -> np.ndarray:

@@ -86,5 +86,10 @@ def run_demo(*, out_dir, progress=None) -> list[str]:
                  f"{cmp['boundaries_within_50ms'] * 100:.0f} % within 50 ms")
     lines.append(f"  clock: drift {cmp['drift_error_ppm']:+.2f} ppm, offset {cmp['offset_error_s'] * 1000:+.2f} ms "
                  f"from the values used to render")
+    if result.physio:
+        from .participant import planted_lines
+
+        for r in result.physio:
+            lines.extend(planted_lines(r))
     lines.append(f"open {Path(result.out_dir) / 'report.html'} to see it at a glance")
     return lines

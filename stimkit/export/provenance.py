@@ -3,7 +3,10 @@
 Conventions
 -----------
 - Input files are identified by their SHA-256 (FIPS 180-4), computed by streaming 1 MiB blocks,
-  and their size in bytes; paths are recorded as given.
+  and their size in bytes. Paths are written relative to a base folder -- the session file's
+  folder, or the current folder for a run without one -- with ``/`` separators
+  (:func:`portable_path`), and the output folder as ``.`` (the provenance file lies in it), so
+  the file names no machine folder and is byte-identical wherever the same project is run.
 - Rerun determinism: the provenance holds no wall-clock time, host name or user name. Library
   versions come from the installed distributions (``importlib.metadata``), so the same
   environment and inputs give the same bytes. Run timings are the only varying part: they are
@@ -19,6 +22,7 @@ NIST FIPS 180-4 (2015), Secure Hash Standard (SHA-256).
 from __future__ import annotations
 
 import hashlib
+import os
 import platform
 from importlib import metadata
 from pathlib import Path
@@ -26,7 +30,8 @@ from pathlib import Path
 from ..errors import InputError
 from .tables import OutputSet
 
-__all__ = ["sha256_file", "library_versions", "build_provenance", "write_provenance", "KEY_LIBRARIES"]
+__all__ = ["sha256_file", "library_versions", "build_provenance", "write_provenance", "KEY_LIBRARIES",
+           "portable_path", "portable_command"]
 
 #: Distributions whose versions are recorded (those that shape the numbers stimkit writes).
 KEY_LIBRARIES = ("numpy", "scipy", "pandas", "librosa", "music21", "soundfile", "numba",
@@ -51,6 +56,40 @@ def sha256_file(path: str | Path) -> str:
     return h.hexdigest()
 
 
+def portable_path(path: str | Path, base_dir: str | Path) -> str:
+    """``path`` relative to ``base_dir`` with ``/`` separators (``"."`` for the folder itself).
+
+    Both are made absolute first (relative ones from the current folder). When no relative path
+    exists (another drive on Windows) the file name alone is returned.
+    """
+    p = os.path.abspath(os.fspath(path))
+    b = os.path.abspath(os.fspath(base_dir))
+    try:
+        rel = os.path.relpath(p, b)
+    except ValueError:
+        return Path(p).name
+    return Path(rel).as_posix()
+
+
+def portable_command(command, *, base_dir: str | Path, out_dir: str | Path | None = None) -> list[str]:
+    """The command line with machine paths made portable: an argument naming the output folder
+    becomes ``.``, one naming an existing file becomes :func:`portable_path`; other arguments
+    are kept as typed."""
+    out_abs = os.path.abspath(os.fspath(out_dir)) if out_dir is not None else None
+    res = []
+    for a in command:
+        a = str(a)
+        if a.startswith("-") or not a:
+            res.append(a)
+        elif out_abs is not None and os.path.abspath(a) == out_abs:
+            res.append(".")
+        elif os.path.isfile(a):
+            res.append(portable_path(a, base_dir))
+        else:
+            res.append(a)
+    return res
+
+
 def library_versions(names=KEY_LIBRARIES) -> dict[str, str | None]:
     """Installed version of each distribution (``None`` when not installed)."""
     out = {}
@@ -69,6 +108,7 @@ def build_provenance(
     settings: dict,
     warnings: list[str],
     timings: dict[str, float] | None = None,
+    base_dir: str | Path | None = None,
 ) -> dict:
     """The provenance record of one run.
 
@@ -84,6 +124,8 @@ def build_provenance(
         Warnings raised during the run, in the order they occurred.
     timings : dict, optional
         Step -> seconds; kept under ``"timings_s"`` (rounded to 0.01 s), see module notes.
+    base_dir : path-like, optional
+        Input paths are written relative to it (:func:`portable_path`); as given when None.
 
     Returns
     -------
@@ -100,7 +142,8 @@ def build_provenance(
             size = p.stat().st_size
         except OSError as exc:
             raise InputError(f"input file not found ({exc.strerror})", path=p) from None
-        ins[str(role)] = {"path": str(inputs[role]), "sha256": sha256_file(p), "bytes": int(size)}
+        shown = str(inputs[role]) if base_dir is None else portable_path(p, base_dir)
+        ins[str(role)] = {"path": shown, "sha256": sha256_file(p), "bytes": int(size)}
     data = {
         "software": {
             "stimkit": __version__,

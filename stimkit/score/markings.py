@@ -23,9 +23,17 @@ Conventions
 - The same marking at (nearly) the same place in several parts is one row; ``part`` lists the
   parts carrying it (``all`` when every part does). Tolerances: ``SAME_PLACE_QN`` for
   dynamics/accents/fermatas, ``GLOBAL_SAME_PLACE_QN`` for tempo, key, meter and sections.
-- Velocities: :data:`VELOCITY` (a common MIDI convention, not a standard), ``mf`` before the first
-  dynamic; hairpins ramp linearly towards the next dynamic (or one level); accents raise the
-  accented note; ``fp``-type marks sound the first level and leave the second in force.
+- Velocities: :data:`VELOCITY`, derived here from a stated rule, not taken from any program:
+  the ten notated levels pppp..ffff are **equal steps of level in dB** spread over the whole
+  range of the project's velocity -> level law (:data:`LEVEL_RANGE_DB` = 40 dB from velocity 1
+  to 127, linear in dB; :mod:`stimkit.align.template` uses the same law), so pppp = velocity 1
+  (-40 dB), ffff = 127 (0 dB) and each step is 40/9 = 4.4 dB (14 velocity units). Equal dB
+  steps are equal loudness *ratios* under Stevens' power law (loudness doubles per ~10 dB [2]_):
+  about x1.36 per step. A step of 3-6 dB between neighbouring dynamics is what performers
+  produce on average (*from memory; rule of thumb*). ``mf`` before the first dynamic; hairpins
+  ramp linearly towards the next dynamic (or one level); an accent raises its note by one step,
+  a strong accent (marcato) by one and a half (project convention); ``fp``-type marks sound the
+  first level and leave the second in force.
 - After a jump back (repeat, D.C., D.S.) the tempo, dynamic and key the target bar had on its
   first pass are resumed unless a mark sits there (an inferred ``tempo_change`` row says so).
 - General pause: every part silent for at least the length of the bar where the silence starts,
@@ -36,6 +44,7 @@ References
 ----------
 .. [1] MusicXML 4.0 dynamics element (W3C Music Notation Community Group): the names pppp..ffff,
    sf, sfz, sffz, fz, rf, rfz, fp, sfp, sfpp, pf.
+.. [2] Stevens, S. S. (1957). On the psychophysical law. Psychological Review 64(3), 153-181.
 """
 
 from __future__ import annotations
@@ -52,7 +61,7 @@ from .model import BOUNDARY_COLUMNS, BOUNDARY_EXTRA_COLUMNS, NOTE_COLUMNS, Score
 from .words import classify_tempo_text, word_quarter_bpm
 
 __all__ = ["MarkingContext", "tempo_events", "note_table", "boundaries", "DYNAMIC_LEVELS",
-           "ACCENTS", "VELOCITY", "BOUNDARY_TABLE_COLUMNS", "BOUNDARY_EXTRA_COLUMNS",
+           "ACCENTS", "VELOCITY", "LEVEL_RANGE_DB", "LEVEL_STEP_DB", "ACCENT_VELOCITY", "BOUNDARY_TABLE_COLUMNS", "BOUNDARY_EXTRA_COLUMNS",
            "LONG_SILENCE_S", "SAME_PLACE_QN", "GLOBAL_SAME_PLACE_QN", "velocity_of_level"]
 
 DYNAMIC_LEVELS = {"pppp": 1, "ppp": 2, "pp": 3, "p": 4, "mp": 5, "mf": 6, "f": 7, "ff": 8,
@@ -61,7 +70,21 @@ DYNAMIC_LEVELS = {"pppp": 1, "ppp": 2, "pp": 3, "p": 4, "mp": 5, "mf": 6, "f": 7
 ACCENTS = {"sf": (8, None), "sfz": (8, None), "sffz": (9, None), "fz": (8, None), "ffz": (9, None),
            "rf": (7, None), "rfz": (8, None), "sfzp": (8, 4), "fp": (7, 4), "sfp": (8, 4),
            "sfpp": (8, 3), "ffp": (8, 4), "pf": (4, 7), "fzp": (8, 4)}
-VELOCITY = {1: 8, 2: 16, 3: 33, 4: 49, 5: 64, 6: 80, 7: 96, 8: 112, 9: 120, 10: 127}
+#: velocity -> level law of the project (dB over velocity 1..127, linear in dB)
+LEVEL_RANGE_DB = 40.0
+#: dB between neighbouring dynamic levels: the law's range in nine equal steps (pppp..ffff)
+LEVEL_STEP_DB = LEVEL_RANGE_DB / 9
+
+
+def _velocity_of_db(db: float) -> int:
+    """Velocity whose level is ``db`` (<= 0) under the 40 dB law: 127 + 126 db / 40."""
+    return int(round(127 + 126 * db / LEVEL_RANGE_DB))
+
+
+#: dynamic level 1..10 -> MIDI velocity; level k sits (10 - k) equal steps below ffff
+VELOCITY = {k: _velocity_of_db(-(10 - k) * LEVEL_STEP_DB) for k in range(1, 11)}
+#: velocity added by an accent (one level step) and a strong accent (one and a half)
+ACCENT_VELOCITY = {1: 126 * LEVEL_STEP_DB / LEVEL_RANGE_DB, 2: 1.5 * 126 * LEVEL_STEP_DB / LEVEL_RANGE_DB}
 DEFAULT_LEVEL = 6
 LONG_SILENCE_S = 2.0
 SAME_PLACE_QN = 0.26
@@ -126,6 +149,36 @@ def _fmt_bpm(v: float) -> str:
     return f"{v:.0f}" if abs(v - round(v)) < 0.05 else f"{v:.1f}"
 
 
+_SOURCE_WORDS = {"metronome mark": "printed", "sound tempo": "played by the file"}
+
+
+def _tempo_conflict(best: dict, said: list[tuple[float, str, str]], *, multi: bool) -> str:
+    """Plain words for tempo indications that disagree at one place, with the one used and why."""
+    seen = []
+    for v, src, part in said:
+        txt = f"quarter = {_fmt_bpm(v)} {_SOURCE_WORDS.get(src, src)}" + (f" in {part}" if multi else "")
+        if txt not in seen:
+            seen.append(txt)
+    why = ("the printed mark is what the performers read; the file's playback tempo is a setting of "
+           "the program that wrote it" if best["source"] == "metronome mark" else
+           "the first part's value")
+    return (f"bar {best['measure']}: tempo marks disagree ({'; '.join(seen)}); quarter = "
+            f"{_fmt_bpm(best['bpm'])} is used: {why}")
+
+
+def _plausible(bpm: float, what: str, r, model) -> float:
+    """``bpm`` when it lies in the plausible range (:data:`stimkit.score.tempomap.MIN_BPM` ..
+    ``MAX_BPM`` quarter notes per minute), else NaN with a warning (the mark is ignored)."""
+    from .tempomap import MAX_BPM, MIN_BPM
+
+    if not np.isfinite(bpm) or MIN_BPM <= bpm <= MAX_BPM:
+        return bpm
+    model.warnings.append(f"bar {r.measure}: the {what} is outside {MIN_BPM:g}-{MAX_BPM:g} quarter notes "
+                          "per minute, the range of real tempo marks; it is ignored and the tempo in "
+                          "force before it continues")
+    return float("nan")
+
+
 def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, float]]]:
     """Tempo events (merged across parts) and fermata holds, in performed order.
 
@@ -149,6 +202,10 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
                     if np.isfinite(v) and v <= 0:
                         raise InputError(f"tempo mark at bar {r.measure} is {v:g} BPM; a tempo must "
                                          "be positive; fix the score", path=ctx.path)
+                written, sounding = _plausible(written, f"printed tempo mark ({r.text2 or 'quarter'} = "
+                                               f"{num:g})" if np.isfinite(num) else "", r, model), \
+                    _plausible(sounding, f"playback tempo (quarter = {snd:g})" if np.isfinite(snd) else "",
+                               r, model)
                 if np.isfinite(written):
                     ref_name = (r.text2 or "quarter").lower()
                     cands.append(dict(qn=r.score_qn, kind="tempo", bpm=written, prio=1, part=r.part_name,
@@ -189,17 +246,11 @@ def tempo_events(ctx: MarkingContext) -> tuple[list[dict], list[tuple[float, flo
                 e["parts"] = parts
                 e["qn"] = min(c["qn"] for c in gk)
                 if kind == "tempo":
-                    vals = sorted({round(c["bpm"], 3) for c in gk if c["prio"] <= 2})
-                    if len(vals) > 1:
-                        model.warnings.append(
-                            f"tempo conflict at bar {best['measure']}: "
-                            + ", ".join(f"{_fmt_bpm(v)}" for v in vals)
-                            + f" quarter BPM; using {_fmt_bpm(best['bpm'])} ({best['source']})")
-                    snd = best.get("sounding", np.nan)
-                    if best["prio"] == 1 and np.isfinite(snd) and abs(snd - best["bpm"]) > 0.5:
-                        model.warnings.append(
-                            f"bar {best['measure']}: metronome mark {best['label']} but sound tempo "
-                            f"{_fmt_bpm(snd)}; the written mark is used")
+                    said = [(c["bpm"], c["source"], c["part"]) for c in gk if c["prio"] <= 2]
+                    said += [(c["sounding"], "sound tempo", c["part"]) for c in gk
+                             if c["prio"] == 1 and np.isfinite(c.get("sounding", np.nan))]
+                    if len({round(v, 1) for v, _s, _p in said}) > 1:
+                        model.warnings.append(_tempo_conflict(best, said, multi=len(model.parts) > 1))
                     word_text = ", ".join(dict.fromkeys(
                         c["word"].strip() for c in group
                         if c.get("word") and c["kind"] != "ramp" and c["word"].strip()))
@@ -351,7 +402,7 @@ def note_table(ctx: MarkingContext) -> pd.DataFrame:
                 hit = np.abs(q - s[0]) < 1e-3
                 v[hit] = np.maximum(v[hit], VELOCITY[int(s[2])])
         acc = pn["accent"].to_numpy()[idx]
-        v = v + np.where(acc == 2, 16, np.where(acc == 1, 10, 0))
+        v = v + np.where(acc == 2, ACCENT_VELOCITY[2], np.where(acc == 1, ACCENT_VELOCITY[1], 0.0))
         vel[idx] = v
     if getattr(ctx.printed, "is_midi", False) and "vel" in pn:
         given = pn["vel"].to_numpy(dtype=float)
@@ -393,6 +444,12 @@ def _merge_parts(rows: list[dict], all_parts: list[str], tol: float) -> list[dic
         r = dict(group[0])
         names = [g["part"] for g in group]
         r["part"] = _part_label(names, all_parts)
+        if r["trial_type"] == "key":
+            # the written key of every transposing part merged into this concert-pitch row
+            extra = [seg for g in group[1:] for seg in g["detail"].split("; ")
+                     if seg.startswith("written ") and seg not in r["detail"]]
+            if extra:
+                r["detail"] += "; " + "; ".join(dict.fromkeys(extra))
         ends = [g["end_qn"] for g in group if np.isfinite(g["end_qn"])]
         r["end_qn"] = max(ends) if ends else np.nan
         out.append(r)
@@ -420,6 +477,16 @@ def _key_label(sharps: int, mode: str, tonic: str) -> tuple[str, str]:
     n = abs(int(sharps))
     sig = "no sharps or flats" if n == 0 else f"{n} {acc}{'s' if n > 1 else ''}"
     return f"{sig} ({maj} major / {mnr} minor)", "key signature; mode not notated"
+
+
+def _written_note(r) -> str:
+    """'; written D major in Clarinet in Bb (sounds a major second lower than written)' for a key
+    of a transposing part (the loader stores keys at concert pitch), else ''."""
+    w = getattr(r, "written", None)
+    if not isinstance(w, tuple):
+        return ""
+    lab, _ = _key_label(*w)
+    return f"; written {lab} in {r.part_name} ({r.text3})"
 
 
 def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame:
@@ -523,23 +590,24 @@ def boundaries(ctx: MarkingContext, *, tempo_events: list[dict]) -> pd.DataFrame
         k = ev[ev["kind"] == "key"]
         for part in sorted(k["part"].unique()):
             kp = k[k["part"] == part].sort_values(["perf"], kind="mergesort")
-            items = [(float(r.score_qn), (int(r.num), r.text, r.text2), r.part_name, int(r.perf) == 0, "")
-                     for r in kp.itertuples(index=False)]
+            items = [(float(r.score_qn), (int(r.num), r.text, r.text2), r.part_name, int(r.perf) == 0,
+                      _written_note(r)) for r in kp.itertuples(index=False)]
             for q_now, q_first, bar in ctx.jumps or []:
                 # after a jump back: the key the target bar had on its first pass
                 if any(abs(it[0] - q_now) < 1e-6 for it in items):
                     continue
-                before = [it for it in items if it[0] <= q_first + 1e-6 and not it[4]]
+                before = [it for it in items if it[0] <= q_first + 1e-6 and "after the jump" not in it[4]]
                 if before:
                     items.append((q_now, before[-1][1], before[-1][2], False,
-                                  f"; in force at bar {bar} on its first pass (after the jump)"))
+                                  before[-1][4] + f"; in force at bar {bar} on its first pass (after the jump)"))
             items.sort(key=lambda it: it[0])
             prev = None
             for q, cur, pname, at_start, note_ in items:
                 if prev is not None and cur == prev and not at_start:
                     continue
                 lab, det = _key_label(*cur)
-                glob.append(_row("key", lab, q, part=pname, value=cur[0], detail=det + note_))
+                row = _row("key", lab, q, part=pname, value=cur[0], detail=det + note_)
+                glob.append(row)
                 prev = cur
     # meters in force per performed bar (first part's bars)
     prev = None

@@ -36,7 +36,10 @@ References
 
 from __future__ import annotations
 
+import re
+import warnings as _warnings
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -45,6 +48,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .model import BOUNDARY_COLUMNS, NOTE_COLUMNS, ScoreModel
+from . import barsync, limits, notices, transpose
 from .repeats import BarMarks, RepeatError, RepeatPlan, repeat_plan
 
 __all__ = ["load_score", "score_for_choice", "SCORE_SUFFIXES", "GRACE_QN", "REPEAT_CHOICES", "read_music21",
@@ -55,7 +59,7 @@ MXL_SUFFIXES = (".mxl",)
 MIDI_SUFFIXES = (".mid", ".midi")
 SCORE_SUFFIXES = XML_SUFFIXES + MXL_SUFFIXES + MIDI_SUFFIXES
 GRACE_QN = 0.0625
-MAX_XML_BYTES = 200_000_000
+MAX_XML_BYTES = limits.MAX_XML_BYTES
 #: Named repeat choices of :func:`load_score` (see :meth:`stimkit.score.repeats.RepeatPlan.choice`).
 REPEAT_CHOICES = ("all", "none", "max", "printed")
 
@@ -64,12 +68,15 @@ REPEAT_CHOICES = ("all", "none", "max", "printed")
 # reading and validation
 # --------------------------------------------------------------------------------------------
 def _xml_bytes_from_mxl(path: Path) -> bytes:
+    """The root score of a compressed MusicXML file, read as a bounded stream
+    (:func:`stimkit.score.limits.read_bounded`: the member's declared size is not trusted)."""
     try:
         with zipfile.ZipFile(path) as zf:
             names = zf.namelist()
             root_name = None
             if "META-INF/container.xml" in names:
-                cont = _safe_xml(zf.read("META-INF/container.xml"), path)
+                with zf.open("META-INF/container.xml") as fh:
+                    cont = _safe_xml(limits.read_bounded(fh, path=path, what="container file"), path)
                 for el in cont.iter():
                     if el.tag.endswith("rootfile") and el.get("full-path"):
                         root_name = el.get("full-path")
@@ -79,11 +86,10 @@ def _xml_bytes_from_mxl(path: Path) -> bytes:
                 if not cands:
                     raise InputError("compressed MusicXML holds no score file", path=path)
                 root_name = cands[0]
-            info = zf.getinfo(root_name)
-            if info.file_size > MAX_XML_BYTES:
-                raise InputError("score inside the .mxl is larger than 200 MB; refused", path=path)
-            return zf.read(root_name)
-    except (zipfile.BadZipFile, KeyError, OSError) as exc:
+            with zf.open(root_name) as fh:
+                return limits.read_bounded(fh, path=path, what="score inside the .mxl")
+    except (zipfile.BadZipFile, KeyError, OSError, EOFError, RuntimeError, NotImplementedError,
+            zlib.error) as exc:
         raise InputError(f"not a readable compressed MusicXML (.mxl) file ({exc}); "
                          "export the score again", path=path) from None
 
@@ -120,23 +126,23 @@ def read_music21(path: str | Path):
         raise InputError(f"unsupported score extension '{path.suffix}'; use one of "
                          + ", ".join(SCORE_SUFFIXES), path=path)
     if suffix in MIDI_SUFFIXES:
-        from music21 import converter
-
         with open(path, "rb") as fh:
             head = fh.read(4)
         if head != b"MThd":
             raise InputError("not a standard MIDI file (no MThd header)", path=path)
+        mf = limits.read_midi(path)  # bounded before music21 makes bars of it
         try:
-            return converter.parse(str(path), format="midi", forceSource=True)
+            from music21.midi import translate
+
+            return translate.midiFileToStream(mf)
         except Exception as exc:  # music21 raises many kinds
-            raise InputError(f"music21 cannot read this MIDI file ({type(exc).__name__}: {exc})",
-                             path=path) from None
+            raise InputError(f"this MIDI file could not be made into a score ({type(exc).__name__}); "
+                             "export it again", path=path) from None
     if suffix in MXL_SUFFIXES:
         data = _xml_bytes_from_mxl(path)
     else:
-        if path.stat().st_size > MAX_XML_BYTES:
-            raise InputError("score file is larger than 200 MB; refused", path=path)
-        data = path.read_bytes()
+        with open(path, "rb") as fh:
+            data = limits.read_bounded(fh, path=path, what="score file")
     if data.startswith(b"PK\x03\x04"):
         raise InputError("this is a compressed MusicXML (zip) file; rename it to .mxl", path=path)
     head = data[3:] if data.startswith(b"\xef\xbb\xbf") else data
@@ -147,26 +153,46 @@ def read_music21(path: str | Path):
         raise InputError("score-timewise MusicXML is not supported; export as partwise", path=path)
     if root.tag != "score-partwise":
         raise InputError(f"XML root is <{root.tag}>, not a MusicXML <score-partwise>", path=path)
+    limits.check_xml_tree(root, path=path)
     # music21 looks for <other-dynamic>; the MusicXML element is <other-dynamics>
     for el in root.iter("other-dynamics"):
         el.tag = "other-dynamic"
+    # written -> sounding intervals, read before music21 (which needs some <transpose> repaired)
+    concert = root.find("defaults/concert-score") is not None
+    transpositions = transpose.xml_transpositions(root, concert_score=concert)
     from music21.musicxml.xmlToM21 import MusicXMLImporter
 
+    with _warnings.catch_warnings(record=True) as caught:
+        _warnings.simplefilter("always")
+        try:
+            imp = MusicXMLImporter()
+            imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
+            sc = imp.stream
+            exc = None
+        except Exception as e:
+            exc = e
+    if exc is None:
+        for w in caught:  # handed on to the caller (load_score words them plainly)
+            _warnings.warn(w.message, w.category, stacklevel=2)
+    else:
+        # music21 says where it failed in a warning ("... took place in m. 12 in part Viola.")
+        where = ""
+        for w in caught:
+            hit = re.search(r"in m\. (\S+) in part (.*?)\.?$", " ".join(str(w.message).split()))
+            if hit:
+                where = f" at bar {hit[1]}" + (f" of {hit[2]}" if hit[2].strip() else "")
+        raise InputError(f"the MusicXML could not be read{where} ({type(exc).__name__}); check that "
+                         "bar in the file, or export the score again", path=path) from None
+    sc._stimkit_transpositions = transpositions
+    sc._stimkit_sound_tempos = []
     try:
-        imp = MusicXMLImporter()
-        imp.xmlRootToScore(root, imp.stream)  # staves and spanners are added to imp.stream
-        sc = imp.stream
-    except Exception as exc:
-        raise InputError(f"music21 cannot import this MusicXML ({type(exc).__name__}: {exc})",
-                         path=path) from None
-    try:
-        sc._stimkit_wedges = xml_wedges(root)  # written wedge positions (see xml_wedges)
+        sc._stimkit_wedges = xml_wedges(root, sc._stimkit_sound_tempos)  # written wedge positions (see xml_wedges)
     except Exception:  # a best-effort refinement; music21's wedges are used without it
         sc._stimkit_wedges = None
     return sc
 
 
-def xml_wedges(root) -> list[dict]:
+def xml_wedges(root, sounds: list | None = None) -> list[dict]:
     """Wedges at their written positions, read from the MusicXML tree.
 
     music21 binds a wedge to the note *after* its start and ends it at the last note's start;
@@ -175,6 +201,11 @@ def xml_wedges(root) -> list[dict]:
     not advance; a direction's ``<offset>`` is added). Returns dicts with ``part`` (index of the
     ``<part>``), ``part_id``, ``kind``, ``bar``/``off`` (start: printed bar index, quarters into the bar) and
     ``end_bar``/``end_off``.
+
+    When ``sounds`` is a list, every ``<sound tempo>`` (in a ``<direction>`` or alone in the bar)
+    is appended to it as a dict with ``part_id``, ``part``, ``bar``, ``off`` and ``tempo``: music21
+    drops the playback tempo of a ``<direction>`` that also prints a ``<metronome>`` (measured on
+    10.5.1), so a printed mark that disagrees with it would go unnoticed.
     """
     out = []
     for pk, part in enumerate(root.findall("part")):
@@ -195,8 +226,15 @@ def xml_wedges(root) -> list[dict]:
                     pos -= float(el.findtext("duration") or 0) / div
                 elif tag == "forward":
                     pos += float(el.findtext("duration") or 0) / div
+                elif tag == "sound" and sounds is not None and el.get("tempo"):
+                    sounds.append(dict(part=pk, part_id=part.get("id") or "", bar=bi, off=pos,
+                                       tempo=el.get("tempo")))
                 elif tag == "direction":
                     shift = float(el.findtext("offset") or 0) / div
+                    snd = el.find("sound")
+                    if sounds is not None and snd is not None and snd.get("tempo"):
+                        sounds.append(dict(part=pk, part_id=part.get("id") or "", bar=bi,
+                                           off=max(pos + shift, 0.0), tempo=snd.get("tempo")))
                     for w in el.iter("wedge"):
                         typ, num = w.get("type"), w.get("number", "1")
                         at = max(pos + shift, 0.0)
@@ -263,13 +301,65 @@ def _volta_numbers(rb) -> tuple[int, ...]:
     return tuple(int(n) for n in nums if n is not None)
 
 
+def _music21_part_of(parts, part_id: str, xml_index: int) -> int:
+    """The first music21 part (staff) built from the MusicXML ``<part id=part_id>``."""
+    for j, p in enumerate(parts):
+        x = str(getattr(p, "id", ""))
+        if part_id and (x == part_id or x.startswith(part_id + "-Staff")):
+            return j
+    return min(xml_index, len(parts) - 1)
+
+
+def _key_tuple(ks) -> tuple[int, str, str]:
+    """(sharps, mode, tonic name) of a music21 Key or KeySignature ('' when not notated)."""
+    from music21 import key
+
+    if isinstance(ks, key.Key):  # a Key carries its mode and tonic, a KeySignature not
+        return int(ks.sharps), str(ks.mode or ""), str(ks.tonic.name)
+    return int(ks.sharps), "", ""
+
+
+def _transposers(score, parts, warnings: list[str]) -> list:
+    """One :class:`~stimkit.score.transpose.Transposer` per music21 part; every staff of a
+    MusicXML part (music21 ids ``P2-Staff1``, ``P2-Staff2``) shares the part's transpositions."""
+    raw, warns = getattr(score, "_stimkit_transpositions", None) or ([], [])
+    warnings.extend(warns)
+    bases = [str(getattr(p, "id", "")).split("-Staff")[0] for p in parts]
+    by_id = any(t.part_id in bases for t in raw)
+    return [transpose.Transposer([(t.bar, t.interval, t.semitones) for t in raw
+                                  if (t.part_id == base if by_id else t.part == k)])
+            for k, base in enumerate(bases)]
+
+
+def _attach_sound_tempos(ev: list[dict], sounds: list[dict], parts, part_measures) -> None:
+    """Give a printed metronome mark the playback tempo (``<sound tempo>``) written at its place,
+    when music21 dropped it (``num2`` NaN), so that a disagreement can be reported."""
+    marks = {}
+    for e in ev:
+        if e["kind"] == "metronome":
+            marks.setdefault((e["part"], e["bar"]), []).append(e)
+    for snd in sounds:
+        try:
+            bpm = float(snd["tempo"])
+        except (TypeError, ValueError):
+            continue
+        k = _music21_part_of(parts, snd["part_id"], snd["part"])
+        pm = part_measures[k]
+        if snd["bar"] >= len(pm):
+            continue
+        i, d, _m = pm[snd["bar"]]
+        for e in marks.get((k, i), []):
+            if abs(e["off"] - (d + snd["off"])) < 1e-3 and not np.isfinite(e.get("num2", np.nan)):
+                e["num2"] = bpm
+
+
 def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> PrintedScore:
     """Read bars, notes and markings of a music21 score in printed order.
 
     ``keep_velocity`` records each note's own velocity (column ``vel``, NaN when absent), used for
     MIDI files, whose notes carry a played velocity rather than notated dynamics.
     """
-    from music21 import (bar, chord, dynamics, expressions, key, meter, note, repeat, spanner,
+    from music21 import (bar, chord, dynamics, expressions, harmony, key, meter, note, repeat, spanner,
                          stream, tempo, articulations)
 
     parts = list(score.parts)
@@ -280,60 +370,66 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
             raise InputError("score has no parts or bars", path=path)
     names = _part_names(parts)
     warnings: list[str] = []
-    ref = list(parts[0].getElementsByClass(stream.Measure))
-    if not ref:
+    measures_of = [list(p.getElementsByClass(stream.Measure)) for p in parts]
+    if not any(measures_of):
         # e.g. a flat MIDI part: make bars
-        score = score.makeMeasures() if not score.parts else score
         parts = [p.makeMeasures() for p in parts]
-        ref = list(parts[0].getElementsByClass(stream.Measure))
-        if not ref:
+        measures_of = [list(p.getElementsByClass(stream.Measure)) for p in parts]
+        if not any(measures_of):
             raise InputError("score has no bars", path=path)
+    for ms in measures_of:
+        for m in ms:
+            limits.check_measure_number(m.number, path=path)
+    # the reference bar list: the bar count most parts share (ties: the larger count, then the
+    # first part); parts with another count are matched to it (barsync.match_bars)
+    counts = [len(ms) for ms in measures_of]
+    common = max(set(c for c in counts if c), key=lambda c: (counts.count(c), c))
+    r = counts.index(common)
+    ref = measures_of[r]
     n = len(ref)
-    offsets = np.array([float(m.offset) for m in ref])
-    part_measures = []
-    for k, p in enumerate(parts):
-        ms = list(p.getElementsByClass(stream.Measure))
-        if len(ms) != n:
-            warnings.append(f"part '{names[k]}' has {len(ms)} bars, the first part {n}; "
-                            "bars matched by position")
-            offs = np.array([float(m.offset) for m in ms])
-            idx = np.clip(np.searchsorted(offsets, offs + 1e-6, side="right") - 1, 0, n - 1)
-            part_measures.append(list(zip(idx.tolist(), ms)))
-        else:
-            part_measures.append(list(enumerate(ms)))
+    ref_labels = [str(m.measureNumberWithSuffix()) for m in ref]
+    raw_offsets = np.array([float(m.offset) for m in ref])
+    part_measures = []  # per part: [(reference bar index, quarter notes into that bar, Measure)]
+    in_step = []  # parts whose bars are matched one to one (they decide bar lengths)
+    for k, ms in enumerate(measures_of):
+        if len(ms) == n:
+            part_measures.append([(i, 0.0, m) for i, m in enumerate(ms)])
+            in_step.append(True)
+            continue
+        in_step.append(False)
+        if not ms:
+            part_measures.append([])
+            continue
+        matched, how = barsync.match_bars(ref_labels, raw_offsets,
+                                          [str(m.measureNumberWithSuffix()) for m in ms],
+                                          np.array([float(m.offset) for m in ms]))
+        part_measures.append([(i, d, m) for (i, d), m in zip(matched, ms)])
+        warnings.append(f"{names[k]} has {len(ms)} bars where {names[r]} has {n}; its bars are matched "
+                        + ("by their printed numbers" if how == "number" else
+                           "by their running time, so they may be a bar or more out of place after a "
+                           "missing or extra bar")
+                        + "; check the file against the printed score")
+    # transpositions (MusicXML <transpose>), per part, indexed by the part's own bar position
+    transposers = _transposers(score, parts, warnings)
 
-    # --- bars: length, meter -----------------------------------------------------------------
+    # --- meter per bar (the reference part's, else any part's) ----------------------------------
+    ts_of = [None] * n
+    for k in [r] + [j for j in range(len(parts)) if j != r and in_step[j]]:
+        for i, _d, m in part_measures[k]:
+            if ts_of[i] is None:
+                ts_of[i] = next((el for el in m.elements if isinstance(el, meter.TimeSignature)), None)
+    if ts_of[0] is None:
+        ts_of[0] = ref[0].getContextByClass(meter.TimeSignature)
+    meter_known = ts_of[0] is not None
+    if not meter_known:
+        ts_of[0] = meter.TimeSignature("4/4")
+        warnings.append("the score has no time signature; bars are as long as their notes and beats are "
+                        "counted in quarter notes (4/4 assumed)")
     ts_cur = None
-    rows = []
-    for i, m in enumerate(ref):
-        # Measure.timeSignature, read from the bar's own elements (fast and never the previous meter)
-        ts = next((el for el in m.elements if isinstance(el, meter.TimeSignature)), None)
-        if ts is None and ts_cur is None:
-            ts = m.getContextByClass(meter.TimeSignature)
-        if ts is not None:
-            ts_cur = ts
-        if ts_cur is None:
-            ts_cur = meter.TimeSignature("4/4")
-            warnings.append("no time signature; 4/4 assumed")
-        bar_qn = float(ts_cur.barDuration.quarterLength)
-        beat_qn = float(ts_cur.beatDuration.quarterLength)
-        if i + 1 < n:
-            dur = float(offsets[i + 1] - offsets[i])
-        else:
-            dur = max(float(pm[-1][1].duration.quarterLength) if pm else 0.0 for pm in part_measures)
-        if dur <= 1e-9:
-            dur = bar_qn
-        pad = float(getattr(m, "paddingLeft", 0.0) or 0.0)
-        first_beat = 1.0
-        if pad > 1e-9:
-            first_beat = 1.0 + pad / beat_qn
-        elif i == 0 and dur < bar_qn - 1e-6:
-            first_beat = 1.0 + (bar_qn - dur) / beat_qn
-        rows.append(dict(index=i, measure=int(m.number), label=str(m.measureNumberWithSuffix()),
-                         offset=float(offsets[i]), duration_qn=dur, numerator=int(ts_cur.numerator),
-                         denominator=int(ts_cur.denominator), beat_qn=beat_qn,
-                         first_beat=first_beat, bar_qn=bar_qn, meter=ts_cur.ratioString))
-    bars = pd.DataFrame(rows)
+    for i in range(n):
+        ts_cur = ts_of[i] = ts_of[i] if ts_of[i] is not None else ts_cur
+    notated = np.array([float(ts.barDuration.quarterLength) for ts in ts_of])
+    content = np.full((len(parts), n), np.nan)
 
     # --- per-part walk ------------------------------------------------------------------------
     marks = [BarMarks() for _ in range(n)]
@@ -346,15 +442,25 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
         d.update(kw)
         ev.append(d)
 
-    def add_key(k, i, off, ks):
-        is_key = isinstance(ks, key.Key)  # a Key carries its mode and tonic, a KeySignature not
-        mode = getattr(ks, "mode", None) if is_key else None
-        tonic = ks.tonic.name if is_key else None
-        add("key", k, i, off, num=float(ks.sharps), text=mode or "", text2=tonic or "")
+    def add_key(k, i, off, ks, iv=None):
+        """A key signature at concert pitch; for a transposing part the written key goes to
+        ``written`` as (sharps, mode, tonic) and the interval's words to ``text3``."""
+        written = None
+        if iv is not None:
+            written = _key_tuple(ks)
+            ks = ks.transpose(iv)
+        sharps, mode, tonic = _key_tuple(ks)
+        add("key", k, i, off, num=float(sharps), text=mode, text2=tonic, written=written,
+            text3=transpose.describe(iv) if iv is not None else "")
 
+    right_barlines: list[int] = []  # positions in ev of end-of-bar barlines (offset set below)
+    tail = 0.0
     for k, pm in enumerate(part_measures):
         key_cur = None
-        for i, m in pm:
+        tr = transposers[k]
+        for j, (i, delta, m) in enumerate(pm):
+            shift = tr.semitones_at(j) if tr else 0
+            iv = tr.interval_at(j) if tr else None
             # barlines and repeats
             for side, bl in (("left", m.leftBarline), ("right", m.rightBarline)):
                 if bl is None:
@@ -369,19 +475,21 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                 btype = getattr(bl, "type", None)
                 if not isinstance(bl, bar.Repeat) and btype in _DOUBLE_BARS:
                     # a double bar ends this bar (right side) or the bar before (left side)
-                    j = i if side == "right" else i - 1
-                    if j >= 0:
-                        marks[j].double_bar = True
-                add("barline", k, i, 0.0 if side == "left" else float(bars.at[i, "duration_qn"]),
-                    text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
+                    j_ = i if side == "right" else i - 1
+                    if j_ >= 0:
+                        marks[j_].double_bar = True
+                if side == "right":
+                    right_barlines.append(len(ev))
+                add("barline", k, i, 0.0, text=f"{side}:{btype}:{getattr(bl, 'direction', '') or ''}")
             key_here = False
-            stack = [(m, 0.0)]
+            end, sounding = 0.0, False  # a bar of rests only does not decide the bar's length
+            stack = [(m, delta)]
             while stack:
                 container, base = stack.pop()
                 for el in container.elements:
                     off = base + float(container.elementOffset(el))
                     if isinstance(el, key.KeySignature):
-                        add_key(k, i, off, el)
+                        add_key(k, i, off, el, iv)
                         key_cur = el
                         key_here = True
                         continue
@@ -389,10 +497,15 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                         stack.append((el, off))
                         continue
                     if isinstance(el, note.GeneralNote):
+                        if isinstance(el, harmony.Harmony):
+                            continue  # a chord symbol names the harmony; it is not a sounding note
                         dur = float(el.duration.quarterLength)
                         grace = dur <= 0 or el.duration.isGrace
                         if grace:
                             dur = GRACE_QN
+                        elif not (isinstance(el, note.Rest) and el.fullMeasure is True):
+                            end = max(end, off - delta + dur)
+                            sounding = sounding or not isinstance(el, note.Rest)
                         where[id(el)] = (k, i, off, dur)
                         ferm = any(isinstance(x, expressions.Fermata) for x in el.expressions)
                         if isinstance(el, note.Rest):
@@ -414,11 +527,11 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                         if isinstance(el, chord.Chord):
                             for cn in el.notes:
                                 t = cn.tie if cn.tie is not None else el.tie
-                                note_rows.append((k, i, off, dur, int(cn.pitch.midi),
+                                note_rows.append((k, i, off, dur, int(cn.pitch.midi) + shift,
                                                   t.type if t is not None else "", acc, vel))
                         elif isinstance(el, note.Note):
                             t = el.tie
-                            note_rows.append((k, i, off, dur, int(el.pitch.midi),
+                            note_rows.append((k, i, off, dur, int(el.pitch.midi) + shift,
                                               t.type if t is not None else "", acc, vel))
                         continue
                     if isinstance(el, dynamics.Dynamic):
@@ -455,29 +568,60 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                         add("rehearsal", k, i, off, text=str(el.content))
                     elif isinstance(el, expressions.TextExpression):
                         add("words", k, i, off, text=str(el.content or ""))
-            if key_cur is None and not key_here and i == pm[0][0]:
+            if tr and not key_here and key_cur is not None and tr.changes_at(j):
+                add_key(k, i, 0.0, key_cur, iv)  # same written key, new concert key
+            if in_step[k]:
+                content[k, i] = end if sounding else 0.0
+            elif i == n - 1:
+                tail = max(tail, delta + end)  # bars matched past the reference's last bar
+            if key_cur is None and not key_here and j == 0:
                 ctx = m.getContextByClass(key.KeySignature)
                 if ctx is not None:
                     key_cur = ctx
-                    add_key(k, i, 0.0, ctx)
+                    add_key(k, i, 0.0, ctx, iv)
+    # --- bars: one length for all parts, parts re-synchronised at every barline ----------------
+    meters = [ts.ratioString for ts in ts_of]
+    lengths, sync_warns = barsync.bar_lengths(notated, content, names=names, labels=ref_labels,
+                                              meters=meters, meter_known=meter_known)
+    warnings.extend(sync_warns)
+    lengths = np.where(lengths > barsync.TOL_QN, lengths, notated)
+    lengths[-1] = max(lengths[-1], tail)  # nothing is lost at the end
+    limits.check_length(float(lengths.sum()), path=path)
+    offsets = np.concatenate([[0.0], np.cumsum(lengths)[:-1]])
+    rows = []
+    for i, m in enumerate(ref):
+        ts = ts_of[i]
+        bar_qn, beat_qn = float(notated[i]), float(ts.beatDuration.quarterLength)
+        dur = float(lengths[i])
+        pad = float(getattr(m, "paddingLeft", 0.0) or 0.0)
+        first_beat = 1.0
+        if pad > 1e-9:
+            first_beat = 1.0 + pad / beat_qn
+        elif i == 0 and dur < bar_qn - 1e-6:
+            first_beat = 1.0 + (bar_qn - dur) / beat_qn
+        rows.append(dict(index=i, measure=int(m.number), label=ref_labels[i], offset=float(offsets[i]),
+                         duration_qn=dur, numerator=int(ts.numerator), denominator=int(ts.denominator),
+                         beat_qn=beat_qn, first_beat=first_beat, bar_qn=bar_qn, meter=ts.ratioString))
+    bars = pd.DataFrame(rows)
+    for e in right_barlines:
+        ev[e]["off"] = float(lengths[ev[e]["bar"]])
+
     # marks from later parts collapse to one entry per bar (the union is what matters)
     for b in marks:
         if b.coda > 2:
             b.coda = 2 if b.coda % 2 == 0 else 1
 
     # --- spanners: wedges and voltas -----------------------------------------------------------
-    bar_of_measure = {id(mm): i for pm in part_measures for i, mm in pm}  # music21 Measure -> bar
+    bar_of_measure = {id(mm): i for pm in part_measures for i, _d, mm in pm}  # music21 Measure -> bar
     raw_wedges = getattr(score, "_stimkit_wedges", None)
     if raw_wedges:
-        # <part> index -> the first music21 part (staff) built from it
-        xml_ids = [str(getattr(p, "id", "")) for p in parts]
         for w in raw_wedges:
-            pid = w["part_id"]
-            k = next((j for j, x in enumerate(xml_ids) if pid and (x == pid or x.startswith(pid + "-Staff"))), None)
-            if k is None:
-                k = min(w["part"], len(parts) - 1)
-            if w["bar"] < n and w["end_bar"] < n:
-                add("wedge", k, w["bar"], w["off"], text=w["kind"], end_bar=w["end_bar"], end_off=w["end_off"])
+            k = _music21_part_of(parts, w["part_id"], w["part"])
+            pm = part_measures[k]
+            if w["bar"] < len(pm) and w["end_bar"] < len(pm):
+                (i0, d0, _m0), (i1, d1, _m1) = pm[w["bar"]], pm[w["end_bar"]]
+                add("wedge", k, i0, d0 + w["off"], text=w["kind"], end_bar=i1, end_off=d1 + w["end_off"])
+    _attach_sound_tempos(ev, getattr(score, "_stimkit_sound_tempos", None) or [], parts, part_measures)
     for sp in score.spannerBundle:
         if isinstance(sp, dynamics.DynamicWedge) and not raw_wedges:
             first, last = sp.getFirst(), sp.getLast()
@@ -494,17 +638,19 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                     marks[i].voltas = tuple(sorted(set(marks[i].voltas) | set(nums)))
     notes = pd.DataFrame(note_rows, columns=["part", "bar", "off", "dur", "pitch", "tie", "accent", "vel"])
     events = pd.DataFrame(ev)
-    for c in ("text", "text2"):
+    for c in ("text", "text2", "text3"):
         if c not in events:
             events[c] = ""
     for c in ("num", "num2", "ref_ql", "dur", "end_bar", "end_off"):
         if c not in events:
             events[c] = np.nan
+    if "written" not in events:
+        events["written"] = None
     if events.empty:
-        events = pd.DataFrame(columns=["kind", "part", "bar", "off", "text", "text2", "num", "num2",
-                                       "ref_ql", "dur", "end_bar", "end_off"])
-    events["text"] = events["text"].fillna("")
-    events["text2"] = events["text2"].fillna("")
+        events = pd.DataFrame(columns=["kind", "part", "bar", "off", "text", "text2", "text3", "num", "num2",
+                                       "ref_ql", "dur", "end_bar", "end_off", "written"])
+    for c in ("text", "text2", "text3"):
+        events[c] = events[c].fillna("")
     return PrintedScore(bars=bars, marks=marks, notes=notes, events=events, parts=names,
                         warnings=warnings)
 
@@ -626,10 +772,9 @@ def load_score(path: str | Path, *, expand_repeats: bool = True, repeats="all") 
     with _warnings.catch_warnings(record=True) as caught:
         _warnings.simplefilter("always")
         score = read_music21(path)
-    m21_warnings = list(dict.fromkeys(
-        " ".join(str(w.message).split()) for w in caught
-        if type(w.message).__module__.startswith("music21")
-        and not issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning))))
+    m21_warnings, _raw = notices.plain_reader_warnings(
+        [str(w.message) for w in caught if type(w.message).__module__.startswith("music21")
+         and not issubclass(w.category, (DeprecationWarning, PendingDeprecationWarning))])
     is_midi = path.suffix.lower() in MIDI_SUFFIXES
     printed = collect_printed(score, path=path, keep_velocity=is_midi)
     printed.is_midi = is_midi
@@ -637,7 +782,7 @@ def load_score(path: str | Path, *, expand_repeats: bool = True, repeats="all") 
         raise InputError("score has no pitched notes; nothing to plan or align (percussion-only and "
                          "empty scores are not supported)", path=path)
     plan, plan_warnings = plan_repeats(printed)
-    printed.warnings = [f"music21: {w}" for w in m21_warnings[:20]] + list(printed.warnings) + plan_warnings
+    printed.warnings = list(printed.warnings) + m21_warnings + plan_warnings
     md = getattr(score, "metadata", None)
     title = (getattr(md, "title", None) or getattr(md, "movementName", None) or "") if md is not None else ""
     printed.title = " ".join(str(title).split())

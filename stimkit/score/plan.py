@@ -33,7 +33,7 @@ import pandas as pd
 from ..errors import InputError
 from ..export.tables import OutputSet, check_output_dir
 from ..levels import TRIAL_TYPES
-from .markings import DYNAMIC_LEVELS, LONG_SILENCE_S, VELOCITY
+from .markings import DYNAMIC_LEVELS, LEVEL_RANGE_DB, LEVEL_STEP_DB, LONG_SILENCE_S, VELOCITY
 from .model import ScoreModel
 from .parse import load_score
 from .tempomap import tempo_settings
@@ -159,7 +159,10 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
             "time": "score_qn counts quarter notes as performed; nominal seconds come from the tempo "
                     "map below; n/a marks a missing value",
             "dynamics_velocity": {"levels": DYNAMIC_LEVELS, "midi_velocity": VELOCITY,
-                                  "note": "velocity per level is a common MIDI convention, not a standard"},
+                                  "note": "project rule: the ten levels pppp..ffff are equal steps in dB "
+                                          f"({LEVEL_STEP_DB:.2f} dB each) over the {LEVEL_RANGE_DB:g} dB "
+                                          "of the velocity-to-level law (velocity 1..127, linear in dB); "
+                                          "equal dB steps are equal loudness ratios (Stevens 1957)"},
             "tempo_words": "tempo words get a nominal BPM from the project's word table "
                            "(stimkit.score.words); these values are conventions, stated in 'detail'",
             "long_silence_s": LONG_SILENCE_S,
@@ -176,7 +179,8 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
     }
 
 
-def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.0) -> PlanResult:
+def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.0,
+              cue_kinds=None) -> PlanResult:
     """Plan a session from one or more scores and write the plan files.
 
     Parameters
@@ -189,6 +193,8 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
         Expand repeats into the performed order (default True).
     gap_s : float
         Seconds between pieces in the programme (>= 0).
+    cue_kinds : list of str, optional
+        Boundary kinds shown in the cue sheet (default all); the boundary tables keep every row.
 
     Returns
     -------
@@ -223,7 +229,8 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
                                             "boundaries", "warnings", "file"])
     from ..report.cuesheet import cue_sheet_html
 
-    html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s))
+    html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s),
+                          kinds=cue_kinds)
     check_output_dir(out)
     fmt = {"column_formats": {"beat": "%.3f", "score_qn": "%.4f", "end_qn": "%.4f", "nominal": "%.3f",
                               "nominal_end": "%.3f", "programme": "%.3f", "value": "%.4g"}}

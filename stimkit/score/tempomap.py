@@ -20,6 +20,12 @@ Conventions (project defaults, stated in every sidecar)
   the first one; relative words multiply the tempo in force.
 - The first absolute tempo applies from the start when it lies in the first bar or before the
   first note; otherwise the default tempo fills the gap (and a warning says so).
+- A tempo mark outside ``MIN_BPM`` .. ``MAX_BPM`` quarter notes per minute (10 .. 1000) is ignored
+  with a warning (:mod:`stimkit.score.markings`): a metronome's scale runs from about 40 to 208
+  beats per minute (common knowledge), and a half- or eighth-note beat moves that by a factor of
+  two either way; beyond another factor of two we take the number for damage, not music.
+- A performed score longer than :data:`stimkit.score.limits.MAX_TOTAL_QN` is refused before any
+  map is built.
 
 References
 ----------
@@ -37,10 +43,12 @@ import numpy as np
 from ..errors import InputError
 from ..timemap import TimeMap
 
-__all__ = ["build_tempo_map", "DEFAULT_BPM", "RAMP_DEPTH", "FERMATA_FACTOR", "RAMP_STEP_QN",
+__all__ = ["build_tempo_map", "DEFAULT_BPM", "MIN_BPM", "MAX_BPM", "RAMP_DEPTH", "FERMATA_FACTOR", "RAMP_STEP_QN",
            "tempo_settings", "ramp_seconds"]
 
 DEFAULT_BPM = 100.0
+MIN_BPM = 10.0
+MAX_BPM = 1000.0
 RAMP_DEPTH = 0.2
 FERMATA_FACTOR = 2.0
 RAMP_STEP_QN = 0.25
@@ -53,6 +61,7 @@ def tempo_settings() -> dict:
         "ramp_depth": RAMP_DEPTH,
         "fermata_factor": FERMATA_FACTOR,
         "ramp_step_qn": RAMP_STEP_QN,
+        "plausible_bpm": [MIN_BPM, MAX_BPM],
         "note": "Project conventions: default tempo when the score has none, depth of rit./accel. "
                 "ramps to the next mark, hold factor of fermatas.",
     }
@@ -87,7 +96,10 @@ def build_tempo_map(events: list[dict], *, fermatas: list[tuple[float, float]], 
     (TimeMap, list of str)
         The map (``meta`` holds the settings and the BPM segments) and warnings.
     """
+    from .limits import check_length
+
     warns: list[str] = []
+    check_length(float(total_qn), path=path, where=" as performed")
     total_qn = max(float(total_qn), 1e-6)
     first_bar_end_qn = first_bar_end_qn if first_bar_end_qn is not None else 0.0
     for e in events:

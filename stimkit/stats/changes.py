@@ -124,7 +124,7 @@ def novelty_curve(
         Indexed by frame-centre time (s), one column per feature.
     columns : list of str, optional
         Features to use. Default: one column per aspect -- loudness, tempo, onset rate,
-        brightness, noisiness, key clarity, harmonic change, roughness -- as found by
+        brightness, noisiness, key strength, harmonic change, roughness -- as found by
         :func:`stimkit.stats.roles.change_columns`, so that a family of many columns (twelve
         chroma bins, three loudness measures) does not outweigh the rest; every numeric column
         when none of those is present.

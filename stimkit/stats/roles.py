@@ -1,4 +1,4 @@
-"""Which feature column plays which role (loudness, tempo, tonal tension, onset rate).
+"""Which feature column plays which role (loudness, tempo, tonality, onset rate).
 
 The feature frame's column names belong to the audio pipeline; the report and the summaries
 only need "the loudness column", "the tempo column" and so on. Each role lists candidate
@@ -18,9 +18,9 @@ ROLE_CANDIDATES: dict[str, tuple[str, ...]] = {
                  "loudness_momentary_lufs", "loudness_lufs", "rms_dbfs"),
     "loudness_short_term": ("short_term_lufs", "loudness_short_term_lufs"),
     "tempo": ("tempo_bpm", "local_tempo_bpm"),
-    # Tonal tension: tonal ambiguity (1 - key clarity) first, then the rate of harmonic change,
-    # then sensory roughness (see stimkit.report.figure for the reasoning).
-    "tension": ("key_clarity", "harmonic_change", "roughness"),
+    # Tonality: key strength first (drawn as key ambiguity, 1 - key strength), then the rate of
+    # harmonic change, then sensory roughness (see stimkit.report.figure for the reasoning).
+    "tonality": ("key_strength", "harmonic_change", "roughness"),
     "onset_rate": ("onset_rate_hz", "onset_density_hz"),
     # one column per aspect for change detection, so that no family (e.g. twelve chroma
     # columns, three loudness columns) outweighs the others in the novelty distance
@@ -30,7 +30,7 @@ ROLE_CANDIDATES: dict[str, tuple[str, ...]] = {
     "change:onsets": ("onset_rate_hz", "onset_density_hz"),
     "change:brightness": ("centroid_hz",),
     "change:noisiness": ("flatness",),
-    "change:key_clarity": ("key_clarity",),
+    "change:key_strength": ("key_strength",),
     "change:harmony": ("harmonic_change",),
     "change:roughness": ("roughness",),
 }

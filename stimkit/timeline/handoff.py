@@ -6,7 +6,8 @@ Through one :class:`~stimkit.export.tables.OutputSet` (atomic: a failure or an i
 no file): ``<base>_events.tsv/.json`` (BIDS events, :func:`stimkit.export.bids.write_events`),
 ``<base>_stim.tsv.gz/.json`` (the continuous features on the recorder clock,
 :func:`stimkit.export.bids.write_stim`), ``<base>_beats.tsv/.json``, ``dataset_description.json``,
-``report.png`` and ``report.html`` (:mod:`stimkit.report`) and ``provenance.json``
+``report.png``, ``report.html`` and ``check-by-ear.flac`` (:mod:`stimkit.report.build`) and
+``provenance.json``
 (:mod:`stimkit.export.provenance`).
 
 Conventions
@@ -18,7 +19,7 @@ Conventions
   (the feature frames are evenly spaced on the recording clock, so on the recorder clock their
   spacing is stretched by the clock slope). Each row is the feature of one window, at the
   window's centre. Text features are left out of that numeric file (listed in its sidecar).
-- The report's lanes and marks are drawn against ``onset``.
+- The report's pictures and tables are on ``onset`` (one clock for the page).
 - Timings of the steps are the only part of ``provenance.json`` that changes between reruns.
 """
 
@@ -55,11 +56,13 @@ class HandoffData:
     descriptions: dict
     pieces: list                        # stimkit.timeline.run.PieceResult
     spans: list                         # stimkit.timeline.segment.PieceSpan
-    low_confidence: list                # (start, end) recording seconds
+    low_confidence: list                # (start, end, reason) recording seconds
     changes: pd.DataFrame | None
     warnings: list[str]
     timings: dict
     settings: dict = field(default_factory=dict)  # extra settings of the chain
+    physio: list = field(default_factory=list)         # stimkit.physio.RelateResult per [[physio]]
+    physio_inputs: dict = field(default_factory=dict)  # participant label -> physiological file
 
 
 def output_base(session) -> str:
@@ -77,32 +80,6 @@ def _defaults(fn, names) -> dict:
     return {n: sig.parameters[n].default for n in names if n in sig.parameters}
 
 
-def _envelope(path, *, t_map, columns: int = 2400):
-    """Waveform min/max per display column, streamed; times on the figure's clock."""
-    from ..audio.read import audio_info, iter_blocks
-
-    info = audio_info(path)
-    per = max(int(math.ceil(info.frames / columns)), 1)
-    lo, hi = [], []
-    rest = np.zeros(0)
-    for _, x in iter_blocks(path, block_s=max(per / info.sample_rate_hz * 200, 10.0), mono=True,
-                            dtype="float32"):
-        x = np.concatenate([rest, x])
-        n = x.size // per * per
-        if n:
-            blk = x[:n].reshape(-1, per)
-            lo.append(blk.min(axis=1))
-            hi.append(blk.max(axis=1))
-        rest = x[n:]
-    if rest.size:
-        lo.append(np.array([rest.min()]))
-        hi.append(np.array([rest.max()]))
-    lo_a = np.concatenate(lo) if lo else np.zeros(0)
-    hi_a = np.concatenate(hi) if hi else np.zeros(0)
-    t = (np.arange(lo_a.size) + 0.5) * per / info.sample_rate_hz
-    return np.asarray(t_map(t), dtype=np.float64), lo_a, hi_a
-
-
 # ---------------------------------------------------------------------------------------------
 
 
@@ -114,8 +91,6 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     """
     from ..export import bids, provenance
     from ..export.tables import OutputSet
-    from ..report.figure import figure_png, overview_figure
-    from ..report.html import write_report
 
     lap = lap or (lambda name: None)
     session, clock, events, frame = d.session, d.clock, d.events, d.frame
@@ -133,7 +108,6 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         "RecordingSamplingFrequency": float(session.rate_hz),
         "ClockFit": clock.to_dict(),
     }
-    clock_label = "onset, recorder clock (s)" if synchronized else "recording time (s)"
 
     report_pieces = pd.DataFrame({
         "piece": [p.name for p in pieces_out],
@@ -142,18 +116,11 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     })
     on_frame = frame.copy()
     on_frame.index = pd.Index(np.asarray(clock(t_frames), dtype=np.float64), name="onset")
-    sync_df = None
-    if clock.method == "marks":
-        sync_df = pd.DataFrame({"onset": clock(clock.recording_s), "residual_ms": clock.residuals_s * 1000})
-    env = _envelope(session.recording, t_map=clock)
-    lap("envelope")
+    from ..report.build import build_report, write_session_report
 
-    fig = overview_figure(
-        features=on_frame, units=units, events=events, columns={"tempo": ALIGNED_TEMPO},
-        pieces=report_pieces, low_confidence=[(float(clock(a)), float(clock(b))) for a, b in low_conf],
-        sync=sync_df, envelope=env, time_column="onset", clock_label=clock_label,
-        title=f"{base}: {', '.join(names)}")
-    png = figure_png(fig)
+    parts = build_report(title=f"{base}: {', '.join(names)}", clock=clock, events=events, beats=beat_df,
+                         features=on_frame, units=units, pieces=report_pieces, regions_recording=low_conf,
+                         changes=changes, pieces_info=pieces_out, columns={"tempo": ALIGNED_TEMPO})
     stats_tables = {}
     try:
         from ..stats.windows import piece_summary
@@ -162,10 +129,13 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     except Exception as exc:  # summary numbers are a convenience; the report says why they are missing
         warnings.append(f"piece summary skipped: {type(exc).__name__}: {exc}")
         piece_table = report_pieces
-    if changes is not None and len(changes):
-        stats_tables["feature change points (recording time)"] = changes
+    base_dir = Path(session.source).parent if session.source is not None else Path.cwd()
+
+    def portable(path):
+        return None if path is None else provenance.portable_path(path, base_dir)
+
     summary = {
-        "recording file": str(session.recording),
+        "recording file": portable(session.recording),
         "duration (s)": round(duration_s, 3),
         "pieces": len(pieces_out),
         "boundaries placed": int(sum(p.n_boundaries for p in pieces_out)),
@@ -178,19 +148,19 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     lap("report")
 
     settings = {
-        "recording": str(session.recording),
-        "pieces": [{"name": p.name, "score": str(p.score), "start_s": p.start_s, "anchors": p.anchors}
+        "recording": portable(session.recording),
+        "pieces": [{"name": p.name, "score": portable(p.score), "start_s": p.start_s, "anchors": p.anchors}
                    for p in session.pieces],
         "sync": {"mode": session.sync.mode, "kind": session.sync.kind, "frequency_hz": session.sync.frequency_hz,
                  "duration_s": session.sync.duration_s, "recorder_s": session.sync.recorder_s,
-                 "recorder_file": None if session.sync.recorder_file is None else str(session.sync.recorder_file),
+                 "recorder_file": portable(session.sync.recorder_file),
                  "recorder_column": session.sync.recorder_column, "offset_s": session.sync.offset_s,
                  "search_start_s": session.sync.search_start_s, "search_end_s": session.sync.search_end_s},
         "bids": dict(session.bids),
         "feature_rate_hz": session.rate_hz,
         "expand_repeats": session.expand_repeats,
         "force": session.force,
-        "output": str(session.out_dir),
+        "output": ".",
         **d.settings,
         "sync_detection": _defaults(detect_sync_marks, ("min_score", "min_jump_db", "min_level_db",
                                                         "min_gap_s", "block_s")),
@@ -205,6 +175,8 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         inputs["session"] = session.source
     if session.sync.recorder_file is not None:
         inputs["recorder_sync"] = session.sync.recorder_file
+    for label, f in d.physio_inputs.items():
+        inputs[f"physio:{label}"] = f
 
     stim = frame  # write_stim keeps numeric columns and lists the text ones it leaves out
     with OutputSet(out_dir) as outs:
@@ -218,13 +190,28 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                                    extra=stim_extra)
         written += bids.write_beats(outs, base, beat_df)
         written.append(bids.write_dataset_description(outs, name=f"stimkit annotation of {base}"))
-        written += write_report(outs, title=f"stimkit report: {base}", figure_png=png, summary=summary,
-                                pieces=piece_table, events=events, stats=stats_tables,
-                                warnings=warnings, sync=clock.to_dict() if clock.method != "none" else None)
+        extra_sections = []
+        if d.physio:  # relate results: physio/ tables and figures, and their report section
+            from ..physio.outputs import write_relate
+            from ..report.physio_section import SECTION_HEADING, physio_section_html
+
+            figs: dict = {}
+            written += write_relate(outs, d.physio, inputs={f"physio:{k}": v for k, v in d.physio_inputs.items()},
+                                    paths_base=Path(session.source).parent if session.source else None,
+                                    prefix="physio/", command=command, figures_out=figs)
+            extra_sections.append((SECTION_HEADING, physio_section_html(d.physio, figures=figs)))
+        written += write_session_report(outs, parts, recording=session.recording,
+                                        title=f"stimkit report: {base}", summary=summary,
+                                        piece_table=piece_table, events=events, stats=stats_tables,
+                                        warnings=warnings,
+                                        sync=clock.to_dict() if clock.method != "none" else None,
+                                        check_audio=getattr(session, "check_audio", True),
+                                        extra_sections=extra_sections)
         lap("write")
         prov = provenance.build_provenance(
-            command=list(command) if command else ["stimkit", "annotate",
-                                                   str(session.source or session.recording)],
-            inputs=inputs, settings=settings, warnings=warnings, timings=timings)
+            command=provenance.portable_command(
+                list(command) if command else ["stimkit", "annotate", str(session.source or session.recording)],
+                base_dir=base_dir, out_dir=out_dir),
+            inputs=inputs, settings=settings, warnings=warnings, timings=timings, base_dir=base_dir)
         written.append(provenance.write_provenance(outs, prov, with_timings=True))
     return [Path(w) for w in written]

@@ -29,6 +29,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from ..audio.rhythm import match_octave
 from ..errors import InputError, WorkFailed
 from . import events as ev
 from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offset_clock, pair_marks, \
@@ -72,6 +73,7 @@ class AnnotateResult:
     beats: pd.DataFrame
     warnings: list[str] = field(default_factory=list)
     timings_s: dict = field(default_factory=dict)
+    physio: list = field(default_factory=list)  # stimkit.physio.RelateResult per [[physio]]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -121,10 +123,11 @@ def _confidence_fn(result):
     return lambda q: confidence_at(result, np.asarray(q, dtype=np.float64))
 
 
-def _regions(result) -> list[tuple[float, float]]:
-    """Low-confidence regions of an alignment as ``(start, end)`` recording seconds: its flagged
-    regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
-    out = [(float(r["start"]), float(r["end"])) for r in result.regions]
+def _regions(result) -> list[tuple[float, float, str]]:
+    """Low-confidence regions of an alignment as ``(start, end, reason)`` recording seconds: its
+    flagged regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
+    out = [(float(r["start"]), float(r["end"]), str(r.get("reason") or r.get("kind") or ""))
+           for r in result.regions]
     loc = result.local
     if len(loc):
         q = loc["score_qn"].to_numpy(dtype=np.float64)
@@ -132,8 +135,8 @@ def _regions(result) -> list[tuple[float, float]]:
         edges = np.diff(np.r_[0, low.astype(int), 0])
         for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
             r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
-            out.append((float(r[0]), float(max(r[1], r[0] + 0.1))))
-    out = [(s, e) for s, e in out if math.isfinite(s) and math.isfinite(e) and e > s]
+            out.append((float(r[0]), float(max(r[1], r[0] + 0.1)), "low local confidence"))
+    out = [(s, e, why) for s, e, why in out if math.isfinite(s) and math.isfinite(e) and e > s]
     return sorted(out)
 
 
@@ -162,6 +165,30 @@ def _aligned_tempo(times_s: np.ndarray, aligned, pieces) -> np.ndarray:
     return out
 
 
+def _read_physio(session) -> list:
+    """(spec, participant label, BeatSeries) for every ``[[physio]]`` of the session."""
+    if not getattr(session, "physio", None):
+        return []
+    from ..physio.inputs import participant_label, read_series
+
+    return [(spec, spec.participant or participant_label(spec.file), read_series(spec)) for spec in session.physio]
+
+
+def _relate_physio(session, events, physio_in, *, progress=None) -> list:
+    """:func:`stimkit.physio.relate` per physiological series of the session (seed from
+    ``[relate] seed``, one child per series in the order listed)."""
+    if not physio_in:
+        return []
+    from ..physio.inputs import settings_from_options
+    from ..physio.relate import relate, root_seed
+
+    opts = getattr(session, "relate", {}) or {}
+    settings = settings_from_options(opts)
+    kids = root_seed(int(opts.get("seed", 0))).spawn(len(physio_in))
+    return [relate(events, None, series, settings=settings, seed=kid, participant=label, progress=progress)
+            for (spec, label, series), kid in zip(physio_in, kids)]
+
+
 def annotate(session, *, progress=None, command: list[str] | None = None) -> AnnotateResult:
     """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
 
@@ -185,6 +212,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         now = time.perf_counter()
         timings[name] = timings.get(name, 0.0) + now - clock0
         clock0 = now
+        if progress is not None:  # a stage finished: lets a piped CLI print one line per stage
+            progress(name, 1.0)
 
     out_dir = check_output_dir(session.out_dir)
     info = audio_info(session.recording)
@@ -195,6 +224,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         scores.append(sc)
         warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
     lap("scores")
+    physio_in = _read_physio(session)  # bad physiological files stop the run before the work
+    lap("physio")
 
     clock, mark_times, w = _clock(session, duration_s=duration_s, progress=progress)
     warnings.extend(w)
@@ -247,7 +278,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     tables = []
     beats = []
     pieces_out: list[PieceResult] = []
-    low_conf: list[tuple[float, float]] = []
+    low_conf: list[tuple[float, float, str]] = []
     for p, sp, res in zip(session.pieces, spans, aligned):
         sc = res.score       # the score in the order performed (repeats as decided)
         to_rec = _timemap_call(res.timemap)
@@ -274,24 +305,34 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     events = ev.merge_events(tables)
     frame = frame.copy()
     frame[ALIGNED_TEMPO] = _aligned_tempo(np.asarray(frame.index, dtype=np.float64), aligned, pieces_out)
+    # inside the pieces the audio tempo takes the metrical level of the alignment's tempo
+    frame["tempo_bpm"] = match_octave(frame["tempo_bpm"].to_numpy(np.float64), frame[ALIGNED_TEMPO].to_numpy())
     units = dict(feats.units)
     units[ALIGNED_TEMPO] = "BPM"
     descriptions = dict(feats.descriptions)
+    descriptions["tempo_bpm"] += (" Inside the aligned pieces it is moved to the metrical level (x1/3, 1/2, "
+                                  "2/3, 3/2, 2 or 3) closest to aligned_tempo_bpm.")
     descriptions[ALIGNED_TEMPO] = ("Tempo of the performance from the score alignment: beats per minute in "
                                    "the bar's beat unit, smoothed over a few beats; n/a outside the pieces.")
     beat_df = pd.concat(beats, ignore_index=True) if beats else pd.DataFrame()
     lap("events")
+    physio_results = _relate_physio(session, events, physio_in, progress=progress)
+    for r in physio_results:
+        warnings.extend(r.warnings)
+    lap("physio")
 
     written = write_handoff(HandoffData(
         session=session, out_dir=out_dir, duration_s=duration_s, clock=clock, events=events,
         beats=beat_df, frame=frame, units=units, descriptions=descriptions, pieces=pieces_out,
         spans=spans, low_confidence=low_conf, changes=changes, warnings=warnings, timings=timings,
         settings={"span_pad_s": SPAN_PAD_S, "piece_search_max_ratio": MAX_RATIO,
-                  "low_confidence_below": LOW_CONFIDENCE}),
+                  "low_confidence_below": LOW_CONFIDENCE},
+        physio=physio_results, physio_inputs={label: spec.file for spec, label, _ in physio_in}),
         command=command, lap=lap)
     base = output_base(session)
     return AnnotateResult(out_dir=out_dir, base=base, written=[Path(w) for w in written], pieces=pieces_out,
-                          clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings)
+                          clock=clock, events=events, beats=beat_df, warnings=warnings, timings_s=timings,
+                          physio=physio_results)
 
 
 def repeats_line(name: str, repeats: list, tempo_ratio: float = 1.0) -> str:
@@ -328,14 +369,22 @@ def summary_lines(result: AnnotateResult) -> list[str]:
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
     c = result.clock
     if c.method == "marks":
+        res = ("residuals zero by construction (two marks fix offset and drift exactly)"
+               if c.recording_s.size == 2 else f"largest residual {c.max_residual_s * 1000:.2f} ms")
         lines.append(f"clock: {c.recording_s.size} sync marks, offset {c.offset_s:.4f} s, drift "
-                     f"{c.drift_ppm:+.2f} ppm, largest residual {c.max_residual_s * 1000:.2f} ms")
+                     f"{c.drift_ppm:+.2f} ppm, {res}")
     elif c.method == "offset":
         lines.append(f"clock: stated offset {c.offset_s:.4f} s, no drift")
     else:
         lines.append("clock: no sync given; onset = recording time")
+    if result.physio:
+        from ..physio.summary import series_lines
+
+        for r in result.physio:
+            lines.extend(series_lines(r))
     if result.warnings:
         lines.append(f"{len(result.warnings)} warning(s), listed in report.html and provenance.json")
     lines.append(f"outputs in {result.out_dir}:")
-    lines.extend(f"  {p.name}" for p in sorted(result.written, key=lambda q: q.name))
+    lines.extend(f"  {p.relative_to(result.out_dir).as_posix() if p.is_relative_to(result.out_dir) else p.name}"
+                 for p in sorted(result.written, key=lambda q: q.name))
     return lines

@@ -70,7 +70,7 @@ def test_key_of_cadences(tonic, mode, name):
     fr = features_from_array(cadence(tonic, mode), SR, rate_hz=1.0).frame
     mid = fr.iloc[len(fr) // 2]
     assert mid["key"] == name
-    assert mid["key_clarity"] > 0.6  # KK correlation of a full cadence is high (value from memory)
+    assert mid["key_strength"] > 0.6  # KK correlation of a full cadence is high (value from memory)
 
 
 def test_key_agrees_with_music21_krumhansl():

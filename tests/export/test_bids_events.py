@@ -233,12 +233,12 @@ def test_stim_file_read_back(tmp_path):
 
 
 def test_stim_file_is_numeric_text_columns_listed(tmp_path):
-    frame = pd.DataFrame({"key": ["G major", "E minor"], "key_clarity": [0.8, 0.6],
+    frame = pd.DataFrame({"key": ["G major", "E minor"], "key_strength": [0.8, 0.6],
                           "silent": [False, True]})
     with OutputSet(tmp_path) as outs:
         write_stim(outs, BASE, frame, sampling_hz=1.0, start_time_s=0.5, units={}, descriptions={})
     side = json.loads((tmp_path / f"{BASE}_stim.json").read_text("utf-8"))
-    assert side["Columns"] == ["key_clarity", "silent"]
+    assert side["Columns"] == ["key_strength", "silent"]
     assert list(side["ColumnsLeftOut"]) == ["key"]
     with gzip.open(tmp_path / f"{BASE}_stim.tsv.gz", "rt", encoding="utf-8") as fh:
         rows = list(csv.reader(fh, delimiter="\t"))
