@@ -64,9 +64,7 @@ _MARGIN_HOPS = 128          # 2.6 s of context each side of a block (longest CQT
 CHROMA_GAMMA = 1.0
 ONSET_GAMMA = 1000.0
 TUNING_WINDOW_S = 120.0     # seconds at the start used to estimate the tuning
-SILENCE_DB = -65.0
-import os as _os
-VIBRATO_BINS = int(_os.environ.get("STIMKIT_DEV_VIBRATO", "0"))          # frames this far below the loudest are silence (15 dB ramp above)
+SILENCE_DB = -65.0          # frames this far below the loudest are silence (15 dB ramp above)
 
 
 @dataclass
@@ -215,16 +213,11 @@ def onset_from_pitch_energy(P, *, rate_hz: float = RATE_HZ, chunk_frames: int = 
     prev = None
     for a in range(0, n, chunk_frames):
         L = np.log1p(scale * P[a:a + chunk_frames].astype(np.float64))
-        ref = L
-        if VIBRATO_BINS > 0:
-            from scipy.ndimage import maximum_filter1d
-
-            ref = maximum_filter1d(L, 2 * VIBRATO_BINS + 1, axis=1, mode="nearest")
         D = np.zeros_like(L)
-        D[1:] = np.maximum(L[1:] - ref[:-1], 0.0)
+        D[1:] = np.maximum(L[1:] - L[:-1], 0.0)
         if prev is not None:
             D[0] = np.maximum(L[0] - prev, 0.0)
-        prev = ref[-1]
+        prev = L[-1]
         out[a:a + chunk_frames] = fold_octaves(D)
     return out
 

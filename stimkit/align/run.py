@@ -704,7 +704,7 @@ def align_score(
         "bridged_spans": bridged,
         "second_pass": None if fin is None else {
             "template": "warped to the first pass", "band_s": 0.5,
-            "attack_s": fin.attack_s, "release_s": fin.release_s},
+            "attack": fin.attack, "room_wet_decay_s": list(fin.room)},
     }
     # the performed / notated tempo over the middle 80 % of the piece (the ends hold a final
     # ritardando and held chords)
