@@ -81,7 +81,7 @@ from ..errors import InputError, WorkFailed
 from ..timemap import TimeMap
 from . import chroma as _chroma
 from .dtw import StepWeights, _unit, band_margins, downsample, key_shift_costs, multiscale_dtw, path_costs
-from .confidence import bridge_unsure, local_confidence, unreliable_spans
+from .confidence import bridge_unsure, local_confidence, neighbourhood_min, unreliable_spans
 from .refine import refine
 from .structure import DOUBTFUL_MARGIN, fit_structure
 from .template import HEAD_S, score_features
@@ -652,6 +652,7 @@ def align_score(
         "recording": np.asarray(tm(qn), dtype=np.float64),
         "confidence": np.interp(qn, local_qn, local["confidence"].to_numpy()),
     })
+    notes["confidence"] = neighbourhood_min(notes["recording"].to_numpy(), notes["confidence"].to_numpy())
     unreliable = []
     for sp in unreliable_spans(notes["recording"].to_numpy(), notes["confidence"].to_numpy(), qn):
         where = score.locate([sp["score_qn_start"], sp["score_qn_end"]])
@@ -736,10 +737,11 @@ def align_files(score_path, audio_path, *, anchors=(), force: bool = False, repe
 
 
 def confidence_at(result: AlignResult, score_qn) -> np.ndarray:
-    """Local alignment confidence (0..1) at ``score_qn`` positions (linear interpolation)."""
+    """Alignment confidence (0..1, the probability of being within 100 ms) at ``score_qn``
+    positions: the note positions' values (:mod:`stimkit.align.confidence`), interpolated."""
     q = np.asarray(score_qn, dtype=np.float64)
-    loc = result.local
-    return np.interp(q, loc["score_qn"].to_numpy(), loc["confidence"].to_numpy())
+    n = result.notes
+    return np.interp(q, n["score_qn"].to_numpy(np.float64), n["confidence"].to_numpy(np.float64))
 
 
 def _json_payload(result: AlignResult) -> dict:

@@ -128,14 +128,11 @@ def _regions(result) -> list[tuple[float, float, str]]:
     flagged regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
     out = [(float(r["start"]), float(r["end"]), str(r.get("reason") or r.get("kind") or ""))
            for r in result.regions]
-    loc = result.local
-    if len(loc):
-        q = loc["score_qn"].to_numpy(dtype=np.float64)
-        low = loc["confidence"].to_numpy(dtype=np.float64) < LOW_CONFIDENCE
-        edges = np.diff(np.r_[0, low.astype(int), 0])
-        for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
-            r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
-            out.append((float(r[0]), float(max(r[1], r[0] + 0.1)), "low local confidence"))
+    for sp in getattr(result, "unreliable", []) or []:
+        bars = (f"bar {sp['first_measure']}" if sp["first_measure"] == sp["last_measure"]
+                else f"bars {sp['first_measure']}-{sp['last_measure']}")
+        out.append((float(sp["start"]), float(max(sp["end"], sp["start"] + 0.1)),
+                    f"alignment unsure at {bars} (confidence down to {sp['min_confidence']:.2f})"))
     out = [(s, e, why) for s, e, why in out if math.isfinite(s) and math.isfinite(e) and e > s]
     return sorted(out)
 
