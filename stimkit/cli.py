@@ -143,12 +143,14 @@ def plan(
                                              "dynamic,tempo,tempo_change (the tables keep all)."),
 ):
     """Boundaries and nominal timeline per score, programme plan and cue sheet."""
+    from .export.tables import protect_inputs
     from .report.cuesheet import parse_kinds
     from .score.plan import make_plan, summary_tables
 
     shown = parse_kinds(kinds) if kinds is not None else None
-    result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s,
-                       cue_kinds=shown)
+    with protect_inputs(scores):
+        result = make_plan(scores, out_dir=out, expand_repeats=not no_repeats, gap_s=gap_s,
+                           cue_kinds=shown)
     con = _console()
     for table in summary_tables(result):
         con.print(table)
@@ -165,9 +167,14 @@ def features(
 ):
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
+    from .audio.read import audio_info
+    from .export.tables import check_output_dir, protect_inputs
 
+    audio_info(audio)                        # the input first, then the folder, then the work
+    check_output_dir(out, create=False)
     result = _with_progress(compute_features, audio, rate_hz=rate)
-    written = write_features(result, out_dir=out)
+    with protect_inputs([audio]):
+        written = write_features(result, out_dir=out)
     con = _console()
     con.print(summary_table(result))
     for p in written:
@@ -193,12 +200,14 @@ def align(
 ):
     """Align the score to the recording: the recording time of every note-onset position."""
     from .align.run import align_files, check_strict, summary_lines, write_alignment
+    from .export.tables import protect_inputs
 
     result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
                             repeats=_repeats_option(repeats))
     if strict:
         check_strict(result)
-    written = write_alignment(result, out_dir=out)
+    with protect_inputs([score, audio]):
+        written = write_alignment(result, out_dir=out)
     con = _console()
     for line in summary_lines(result):
         con.print(line)
@@ -299,6 +308,12 @@ def relate(
     music_leads: bool = typer.Option(False, "--music-leads", help="Count a coincidence only when the physiological "
                                      "change follows the music change (by --lag-s to --lag-s + h)."),
     lag_s: float = typer.Option(0.0, "--lag-s", help="Physiological latency for --music-leads (s)."),
+    correction: str = typer.Option("fdr_bh", "--correction", help="Across boundaries of a family: fdr_bh "
+                                   "(Benjamini-Hochberg), fdr_by (any dependence) or holm."),
+    share_null: str = typer.Option("circular_shift", "--share-null", help="Pseudo boundary sets for the share "
+                                   "test: circular_shift or uniform."),
+    penalty: str = typer.Option("bic_lrv", "--penalty", help="Change-point penalty: bic_lrv (autocorrelation-"
+                                "aware), bic_iid, or a number (in the series' unit squared)."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
     jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
 ):
@@ -327,6 +342,21 @@ def relate(
                        lag_s=lag_s)
     if music_source not in ("events", "detect"):
         raise InputError("--music-changes must be events or detect")
+    if not settings.window_beats or min(settings.window_beats) < 3 or not settings.window_s or \
+            min(settings.window_s) <= 0:
+        raise InputError("--window-beats must be whole numbers of at least 3 and --window-s positive seconds")
+    if correction not in ("fdr_bh", "fdr_by", "holm"):
+        raise InputError("--correction must be fdr_bh, fdr_by or holm")
+    if share_null not in ("circular_shift", "uniform"):
+        raise InputError("--share-null must be circular_shift or uniform")
+    if penalty not in ("bic_lrv", "bic_iid"):
+        try:
+            penalty = float(penalty)
+        except ValueError:
+            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number") from None
+        if not penalty > 0:
+            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number")
+    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty)
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
                         participant=participant[i] if participant else None) for i, f in enumerate(physio)]
     command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]
@@ -352,23 +382,140 @@ def demo(
         con.print(line)
 
 
-def main(argv: list[str] | None = None) -> int:
-    """Console entry point; returns the exit code (0 ok, 1 work failed, 2 bad input/usage)."""
+class Stopped(BaseException):
+    """Raised in the main thread by a SIGTERM or SIGHUP: unwinds like Ctrl-C, so every pending
+    output set is dropped, then :func:`main` returns 128 + the signal number."""
+
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _on_stop_signal(signum, frame):  # pragma: no cover - exercised through a subprocess
+    raise Stopped(signum)
+
+
+def _stop_signals_installed():
+    """Handle SIGTERM and SIGHUP like Ctrl-C while a command runs (main thread only); the
+    previous handlers come back afterwards (tests call :func:`main` in-process)."""
+    import contextlib
+    import threading
+
+    @contextlib.contextmanager
+    def cm():
+        if threading.current_thread() is not threading.main_thread():
+            yield
+            return
+        saved = {}
+        for name in ("SIGTERM", "SIGHUP"):
+            sig = getattr(signal, name, None)
+            if sig is None:
+                continue
+            try:
+                saved[sig] = signal.signal(sig, _on_stop_signal)
+            except (OSError, ValueError):
+                pass
+        try:
+            yield
+        finally:
+            for sig, old in saved.items():
+                signal.signal(sig, old)
+
+    return cm()
+
+
+def _stopped_line(what: str, n_before: int) -> str:
+    """What an interrupted run says about its outputs, truthfully: the commit log of
+    :mod:`stimkit.export.tables` tells whether any file was written in this call."""
+    from .export.tables import COMMIT_LOG
+
+    written = COMMIT_LOG[n_before:]
+    if not written:
+        return f"stimkit: {what}; no output was written"
+    folders = sorted({str(p.parent) for p in written})
+    return (f"stimkit: {what} after {len(written)} output file(s) had been written completely "
+            f"(in {', '.join(folders[:3])})")
+
+
+def _usage_line(exc) -> str:
+    """One line for a usage error: click's message and where to find help."""
+    ctx = getattr(exc, "ctx", None)
+    path = ctx.command_path if ctx is not None else "stimkit"
+    msg = " ".join(exc.format_message().split())
+    return f"stimkit: usage error: {msg} (see '{path} --help')"
+
+
+def _click_errors():
+    """The command-line parser's exception classes: typer's own copy of click (recent typer) and
+    click itself (older typer), whichever are present."""
+    mods = []
     try:
-        cli_command()(args=argv, prog_name="stimkit", standalone_mode=True)  # click prints usage errors itself (exit 2)
-    except SystemExit as exc:
-        code = exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 1)
-        if code == 130:  # typer turns Ctrl-C into exit 130; outputs are staged, so none appeared
-            print("stimkit: interrupted; no output was written", file=sys.stderr)
-        return code
+        from typer._click import exceptions as vendored
+
+        mods.append(vendored)
+    except ImportError:  # pragma: no cover - older typer uses click directly
+        pass
+    try:
+        import click.exceptions as plain
+
+        mods.append(plain)
+    except ImportError:  # pragma: no cover
+        pass
+    import typer.exceptions as tx
+
+    def grab(name, *extra):
+        return tuple(getattr(m, name) for m in mods if hasattr(m, name)) + extra
+
+    return (grab("NoArgsIsHelpError"), grab("UsageError"), grab("ClickException"),
+            grab("Abort", getattr(tx, "Abort", KeyboardInterrupt)))
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Console entry point; returns the exit code (0 ok, 1 work failed, 2 bad input/usage,
+    130 interrupted by Ctrl-C, 143 stopped by SIGTERM, 129 by SIGHUP)."""
+    no_args, usage, click_error, abort = _click_errors()
+
+    from .errors import from_os_error
+    from .export.tables import COMMIT_LOG
+
+    n_before = len(COMMIT_LOG)
+    _STATE["debug"] = False
+    try:
+        with _stop_signals_installed():
+            code = cli_command()(args=argv, prog_name="stimkit", standalone_mode=False)
+    except no_args as exc:  # bare `stimkit` or a verb without args
+        exc.show()
+        return 0
+    except usage as exc:
+        print(_usage_line(exc), file=sys.stderr)
+        return 2
+    except click_error as exc:  # e.g. a file option that cannot be opened
+        print(f"stimkit: error: {' '.join(exc.format_message().split())}", file=sys.stderr)
+        return exc.exit_code or 2
+    except (KeyboardInterrupt, *abort):
+        print(_stopped_line("interrupted", n_before), file=sys.stderr)
+        return 130
+    except Stopped as exc:
+        name = signal.Signals(exc.signum).name
+        print(_stopped_line(f"stopped by {name}", n_before), file=sys.stderr)
+        return 128 + exc.signum
     except StimkitError as exc:
         if _STATE["debug"]:
             traceback.print_exc()
         print(f"stimkit: error: {exc}", file=sys.stderr)
         return exc.exit_code
-    except KeyboardInterrupt:
-        print("stimkit: interrupted; no output was written", file=sys.stderr)
-        return 130
+    except OSError as exc:  # disk full, name too long, ...: one line, never "internal error"
+        if _STATE["debug"]:
+            traceback.print_exc()
+        err = from_os_error(exc)
+        print(f"stimkit: error: {err}", file=sys.stderr)
+        return err.exit_code
+    except MemoryError:
+        if _STATE["debug"]:
+            traceback.print_exc()
+        print("stimkit: error: out of memory; close other programs or analyse a shorter part of "
+              "the recording (see the README's limits for long sessions)", file=sys.stderr)
+        return 1
     except Exception as exc:  # the unexpected: still one line unless --debug
         if _STATE["debug"]:
             traceback.print_exc()
@@ -376,7 +523,9 @@ def main(argv: list[str] | None = None) -> int:
         print(f"stimkit: internal error: {type(exc).__name__}: {msg} (rerun with --debug and report it)",
               file=sys.stderr)
         return 1
-    return 0
+    if code == 130:  # typer turns Ctrl-C inside a command into exit 130
+        print(_stopped_line("interrupted", n_before), file=sys.stderr)
+    return code if isinstance(code, int) else 0
 
 
 def run() -> None:  # pragma: no cover - the console script

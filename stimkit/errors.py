@@ -13,7 +13,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-__all__ = ["StimkitError", "InputError", "WorkFailed"]
+import errno
+
+__all__ = ["StimkitError", "InputError", "WorkFailed", "from_os_error"]
 
 
 class StimkitError(Exception):
@@ -39,3 +41,32 @@ class WorkFailed(StimkitError):
     """Valid input, but the work failed or was refused (exit code 1)."""
 
     exit_code = 1
+
+
+def from_os_error(exc: OSError, *, path: str | Path | None = None, doing: str = "") -> StimkitError:
+    """A one-line stimkit error for an operating-system error (disk full, name too long, ...).
+
+    ``doing`` says what was going on ("writing the outputs"); ``path`` defaults to the file the
+    error names. Disk full and other failures of the machine are :class:`WorkFailed` (exit 1);
+    a name too long, a missing file or a refused permission are :class:`InputError` (exit 2),
+    since the user can fix them by choosing another path.
+    """
+    where = path if path is not None else (exc.filename if exc.filename else None)
+    what = f" while {doing}" if doing else ""
+    code = exc.errno
+    if code in (errno.ENOSPC, getattr(errno, "EDQUOT", -1)):
+        return WorkFailed(f"no space left on the device{what}; free some space (or choose another "
+                          f"folder) and rerun", path=where)
+    if code == errno.ENAMETOOLONG:
+        return InputError(f"file name too long{what}; use a shorter name or folder (most file "
+                          f"systems allow 255 bytes per name)", path=where)
+    if code in (errno.EACCES, errno.EPERM, errno.EROFS):
+        return InputError(f"permission denied{what}; choose a folder you can write to, or fix the "
+                          f"file's permissions", path=where)
+    if code in (errno.ENOENT, errno.ENOTDIR):
+        return InputError(f"no such file or folder{what}; check the path", path=where)
+    if code == errno.EISDIR:
+        return InputError(f"a folder is where a file is expected{what}; move it or choose another "
+                          f"path", path=where)
+    reason = exc.strerror or type(exc).__name__
+    return WorkFailed(f"{reason}{what}", path=where)

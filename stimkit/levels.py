@@ -10,14 +10,14 @@ from __future__ import annotations
 __all__ = ["EVENT_COLUMNS", "TRIAL_TYPES", "COLUMN_INFO", "HED_TAGS"]
 
 EVENT_COLUMNS = [
-    "onset", "duration", "trial_type", "piece", "label", "measure", "beat", "score_qn",
-    "nominal", "recording", "confidence", "source", "part",
+    "onset", "duration", "trial_type", "piece", "label", "dynamic_level", "measure", "pass", "beat",
+    "score_qn", "nominal", "recording", "confidence", "source", "part",
 ]
 
 #: ``trial_type`` level -> one-line description (the events sidecar's ``Levels``).
 TRIAL_TYPES: dict[str, str] = {
-    "piece": "A whole piece: onset at its first sounding note, duration to its end.",
-    "dynamic": "A notated dynamic level (pppp..ffff, with its numeric level in the label).",
+    "piece": "A whole piece: onset at its first sounding note, duration to the end of its last note.",
+    "dynamic": "A notated dynamic level (pppp..ffff); its number on a 1-10 scale is in the dynamic_level column.",
     "hairpin": "A crescendo or diminuendo wedge; duration spans the wedge.",
     "accent": "A sudden accent marking (sf, sfz, fp, fz, rfz, ...).",
     "tempo": "A tempo mark: metronome mark or tempo word, with its nominal BPM.",
@@ -42,16 +42,29 @@ COLUMN_INFO: dict[str, tuple[str, str, str | None]] = {
     "duration": ("Event duration", "Length of the event; 0 for point events.", "s"),
     "trial_type": ("Event kind", "What kind of boundary or event this row is.", None),
     "piece": ("Piece", "Name of the piece the event belongs to (n/a for session-level events).", None),
-    "label": ("Label", "What the marking says or what changes, as a short text.", None),
+    "label": ("Label", "What the marking says or what changes, as a short text; where rows of one "
+              "kind at the same moment are merged, their labels are joined with ' + ', each "
+              "followed by its part in brackets when the parts differ.", None),
+    "dynamic_level": ("Dynamic level", "The notated dynamic as a number on an ordinal scale of this "
+                      "tool: pppp = 1, ppp = 2, pp = 3, p = 4, mp = 5, mf = 6, f = 7, ff = 8, "
+                      "fff = 9, ffff = 10; for an accent (sf, sfz, fp, ...) the level it asks for "
+                      "at its note. It ranks the marks and is not a measured loudness. n/a for "
+                      "other rows, and where parts at the same moment are marked at different "
+                      "levels (the label then lists each).", None),
     "measure": ("Measure", "Bar number as printed in the score (a pickup may be 0).", None),
-    "beat": ("Beat", "1-based beat within the bar, in the bar's beat unit.", None),
+    "pass": ("Pass", "Which playing of the bar this is: 1 the first time, 2 on its first repeat, "
+             "and so on; n/a for session-level rows.", None),
+    "beat": ("Beat", "Beat within the bar, counted from 1 in the bar's beat unit; n/a for a "
+             "marking at the end of a bar (a double or final bar line, a repeat end), whose "
+             "time is the end of the bar.", None),
     "score_qn": ("Score position", "Quarter notes from the start of the piece as performed "
                  "(repeats expanded).", "quarter notes"),
     "nominal": ("Nominal time", "Seconds from the start of the piece at the notated tempo.", "s"),
     "recording": ("Recording time", "Seconds from the first sample of the recording file.", "s"),
-    "confidence": ("Alignment confidence", "0..1, how well the score and the recording agree "
-                   "around this event (n/a where no alignment is involved).", None),
-    "source": ("Source", "Where the time comes from: score (nominal only), alignment, audio, sync.", None),
+    "confidence": ("Alignment confidence", "How well the score and the recording agree around "
+                   "this event, from 0 (no agreement) to 1; n/a where no alignment is involved.", None),
+    "source": ("Source", "Where the time comes from: alignment (score markings placed by the "
+               "alignment), audio (silences and feature changes) or sync (sync marks).", None),
     "part": ("Part", "Score part(s) carrying the marking, or 'all'.", None),
 }
 

@@ -55,6 +55,8 @@ _SYNC_KEYS = {"frequency_hz", "duration_s", "kind", "recorder_times_s", "recorde
 _PIECE_KEYS = {"score", "name", "start_s", "anchors", "repeats"}
 #: Values of ``repeats`` (session-wide or per piece): decide from the recording, or play all / none.
 REPEAT_VALUES = ("auto", "all", "none")
+#: Largest recorder time or offset (s) a session may state (stimkit.timeline.clock.MAX_OFFSET_S).
+_MAX_CLOCK_S = 1e6
 
 
 class SessionFileError(InputError):
@@ -300,6 +302,9 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
             if not _is_number(sy["offset_s"]):
                 bad("[sync] offset_s must be a number of seconds (onset = recording + offset_s)",
                     "sync", 0, "offset_s")
+            elif abs(float(sy["offset_s"])) > _MAX_CLOCK_S:
+                bad(f"[sync] offset_s = {float(sy['offset_s']):.6g} is beyond +-{_MAX_CLOCK_S:.0e} s; onset "
+                    f"counts seconds from the start of the physiological recording", "sync", 0, "offset_s")
             else:
                 sync = SyncSpec(mode="offset", offset_s=float(sy["offset_s"]))
         elif has_times or has_file:
@@ -311,6 +316,9 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
                         "clock, one per mark, in order)", "sync", 0, "recorder_times_s")
                 elif any(b2 <= a2 for a2, b2 in zip(v, v[1:])):
                     bad("[sync] recorder_times_s must increase", "sync", 0, "recorder_times_s")
+                elif any(abs(float(t)) > _MAX_CLOCK_S for t in v):
+                    bad(f"[sync] recorder_times_s must be seconds from the start of the physiological "
+                        f"recording (within +-{_MAX_CLOCK_S:.0e} s)", "sync", 0, "recorder_times_s")
                 else:
                     sync.recorder_s = [float(t) for t in v]
             if has_file:

@@ -6,6 +6,7 @@ input, 130 interrupted is the shell convention 128 + SIGINT).
 """
 
 import json
+import os
 import signal
 import subprocess
 import sys
@@ -111,28 +112,80 @@ def test_interrupt_while_writing_leaves_nothing(tmp_path, one_piece, monkeypatch
     monkeypatch.setattr(html, "write_report", boom)
     out = tmp_path / "o"
     assert main(["annotate", "--score", str(SHORT), "--audio", str(one_piece[0]), "-o", str(out)]) == 130
-    assert list(out.iterdir()) == []  # no output and no temporary file
+    assert not out.exists()  # no output, no temporary, and not even the folder it would have made
 
 
-def test_sigint_leaves_nothing(tmp_path, one_piece):
+@pytest.mark.parametrize("sig", ["SIGTERM", "SIGHUP"])
+def test_stop_signal_while_staging_leaves_nothing(tmp_path, one_piece, monkeypatch, capsys, sig):
+    # a job scheduler's SIGTERM or a closed terminal's SIGHUP is handled like Ctrl-C; the exit code
+    # is the shell's 128 + signal number (143 / 129, POSIX shell convention)
+    import stimkit.report.html as html
+
+    def stop(*a, **k):
+        os.kill(os.getpid(), getattr(signal, sig))
+        time.sleep(1)  # the handler raises in this frame before the sleep ends
+
+    monkeypatch.setattr(html, "write_report", stop)
     out = tmp_path / "o"
-    cmd = [sys.executable, "-m", "stimkit.cli", "annotate", "--score", str(SHORT), "--audio",
+    code = main(["annotate", "--score", str(SHORT), "--audio", str(one_piece[0]), "-o", str(out)])
+    assert code == 128 + getattr(signal, sig)
+    assert "no output was written" in capsys.readouterr().err
+    assert not out.exists()
+    assert signal.getsignal(getattr(signal, sig)) is signal.SIG_DFL  # handler given back
+
+
+def test_signal_during_commit_is_held_and_told_truthfully(tmp_path, one_piece, monkeypatch, capsys):
+    # SIGTERM arrives while the files are being moved into place: the commit finishes (the signal
+    # is held back), so every file is whole and new, and the message must not claim otherwise
+    import stimkit.export.tables as tables
+
+    real, calls = os.replace, []
+
+    def replace(a, b):
+        calls.append(b)
+        if len(calls) == 2:
+            os.kill(os.getpid(), signal.SIGTERM)
+        return real(a, b)
+
+    monkeypatch.setattr(tables.os, "replace", replace)
+    out = tmp_path / "o"
+    assert main(["annotate", "--score", str(SHORT), "--audio", str(one_piece[0]), "-o", str(out)]) == 143
+    err = capsys.readouterr().err
+    assert "no output was written" not in err and "written completely" in err
+    names = sorted(p.name for p in out.iterdir())
+    assert "one-piece_events.tsv" in names and "report.html" in names
+    assert not [n for n in names if n.startswith(".")]  # no staging folder left
+
+
+#: The CLI in a child process that says "working" on stdout when the feature stage starts, so the
+#: signal below arrives in the middle of the work, not during the imports, whatever the load.
+_CHILD = """import sys
+import stimkit.audio.pipeline as pipeline
+import stimkit.cli as cli
+real = pipeline.compute_features
+def hooked(*a, **k):
+    print("working", flush=True)
+    return real(*a, **k)
+pipeline.compute_features = hooked
+sys.exit(cli.main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("sig", ["SIGINT", "SIGTERM"])
+def test_signal_to_a_running_process_leaves_nothing(tmp_path, one_piece, sig):
+    out = tmp_path / "o"
+    cmd = [sys.executable, "-c", _CHILD, "annotate", "--score", str(SHORT), "--audio",
            str(one_piece[0]), "-o", str(out)]
-    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=tmp_path)
-    deadline = time.monotonic() + 60
-    while not out.exists() and time.monotonic() < deadline and proc.poll() is None:
-        time.sleep(0.05)
-    time.sleep(0.5)  # into the work (the output folder is created first)
-    if proc.poll() is None:
-        proc.send_signal(signal.SIGINT)
-    code = proc.wait(timeout=60)
-    files = list(out.iterdir()) if out.exists() else []
-    if code == 0:  # finished before the signal: then every file is whole (nothing to check)
-        pytest.skip("the run finished before the interrupt arrived")
-    # 130 = 128 + SIGINT, the shell's code for an interrupted command; a process that dies by the
-    # signal itself (Popen's -2) shows as the same 130 in a shell
-    assert code in (130, -signal.SIGINT)
-    assert files == []
+    proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE, cwd=tmp_path, text=True)
+    for line in proc.stdout:
+        if line.strip() == "working":
+            proc.send_signal(getattr(signal, sig))
+            break
+    _, err = proc.communicate(timeout=120)
+    # 128 + signal number, the shell's code for a command stopped by a signal (130 / 143)
+    assert proc.returncode == 128 + getattr(signal, sig), err
+    assert "no output was written" in err
+    assert not out.exists()
 
 
 def test_plain_offset_shifts_every_time(tmp_path, one_piece):

@@ -149,3 +149,78 @@ def test_score_without_notes_is_refused_for_align_too(tmp_path):
     with pytest.raises(InputError, match="nothing to plan or align") as info:
         load_score(path)
     assert "rests only.musicxml" in str(info.value) and "\n" not in str(info.value)
+
+
+# --- hostile files and a careless output folder (the brief: bad input is one line naming the
+# --- file, exit 2, nothing written; inputs are never overwritten) ---------------------------
+
+def _tiny_wav(path, seconds=1.0):
+    sf.write(path, 0.1 * np.random.default_rng(0).standard_normal(int(22050 * seconds)).astype(np.float32), 22050)
+    return path
+
+
+def test_output_folder_holding_an_input_under_an_output_name_is_refused(tmp_path, capsys):
+    # the recorder's log was saved in the output folder under the events file's BIDS name: the
+    # run must refuse before any work, and the log must keep its bytes
+    _tiny_wav(tmp_path / "take.wav")
+    beh = tmp_path / "out" / "sub-01" / "ses-1" / "beh"
+    beh.mkdir(parents=True)
+    log = beh / "sub-01_ses-1_task-music_run-1_events.tsv"
+    log.write_text("onset\n1.0\n", "utf-8")
+    sess = tmp_path / "s.toml"
+    sess.write_text(f'recording = "take.wav"\noutput = "out"\n[bids]\nsubject = "01"\nsession = "1"\n'
+                    f'task = "music"\nrun = 1\n[sync]\nfrequency_hz = 1000\nduration_s = 0.05\n'
+                    f'recorder_file = "{log.relative_to(tmp_path)}"\n[[piece]]\nscore = "{CHORALE}"\n')
+    assert main(["annotate", str(sess)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "would overwrite" in err and "\n" not in err
+    assert log.read_text("utf-8") == "onset\n1.0\n"
+    assert sorted(p.name for p in beh.iterdir()) == [log.name]
+
+
+@pytest.mark.parametrize("argv", [["features"], ["features", "x.wav", "--rate", "fast"], ["nosuchverb"],
+                                  ["annotate", "--bogus"]])
+def test_usage_errors_are_one_line(argv, capsys):
+    assert main(argv) == 2                                # DESIGN.md: exit 2 for bad usage
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("stimkit: usage error:") and "\n" not in err and "--help" in err
+
+
+def test_garbage_mp3_is_one_line_about_the_file_and_leaves_no_folder(tmp_path, capfd):
+    bad = tmp_path / "concert.mp3"
+    bad.write_bytes(bytes(np.random.default_rng(1).integers(0, 256, 20000, dtype=np.uint8)))
+    out = tmp_path / "out"
+    assert main(["annotate", "--score", str(CHORALE), "--audio", str(bad), "-o", str(out)]) == 2
+    err = capfd.readouterr().err.strip()                 # fd level: a C decoder's notes too
+    assert "concert.mp3" in err and "\n" not in err and "Note:" not in err
+    assert not out.exists()                              # inputs are checked before the folder
+    assert main(["features", str(bad), "-o", str(out)]) == 2
+    assert not out.exists()
+
+
+def test_sync_file_of_random_bytes_is_refused_before_the_work(tmp_path, capsys):
+    _tiny_wav(tmp_path / "take.wav")
+    (tmp_path / "sync.tsv").write_bytes(bytes(np.random.default_rng(2).integers(0, 256, 3000, dtype=np.uint8)))
+    sess = tmp_path / "s.toml"
+    sess.write_text(f'recording = "take.wav"\noutput = "out"\n[sync]\nfrequency_hz = 1000\n'
+                    f'duration_s = 0.05\nrecorder_file = "sync.tsv"\n[[piece]]\nscore = "{CHORALE}"\n')
+    assert main(["annotate", str(sess)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "sync.tsv" in err and "UTF-8" in err and "\n" not in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_features_checks_the_output_folder_before_the_work(tmp_path, capsys):
+    wav = _tiny_wav(tmp_path / "a.wav")
+    (tmp_path / "taken").write_text("a file, not a folder")
+    assert main(["features", str(wav), "-o", str(tmp_path / "taken" / "out")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "not a folder" in err and "\n" not in err
+
+
+def test_absurd_offset_in_a_session_file_names_its_line(tmp_path, capsys):
+    _tiny_wav(tmp_path / "take.wav")
+    sess = tmp_path / "s.toml"
+    sess.write_text(f'recording = "take.wav"\n[sync]\noffset_s = 1e300\n[[piece]]\nscore = "{CHORALE}"\n')
+    assert main(["annotate", str(sess)]) == 2
+    assert "line 3:" in capsys.readouterr().err

@@ -32,6 +32,10 @@ libsndfile (E. de Castro Lopo) through the ``soundfile`` package; resampling wit
 
 from __future__ import annotations
 
+import contextlib
+import os
+import sys
+import threading
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Iterator
@@ -64,6 +68,30 @@ class AudioInfo:
         return self.frames / self.sample_rate_hz
 
 
+@contextlib.contextmanager
+def quiet_decoder():
+    """Silence what a C decoder prints on the process's stderr (libsndfile's MPEG decoder writes
+    "Note: Illegal Audio-MPEG-Header ..." there) while a file is opened: the error that follows
+    names the file in one line instead. Only the main thread redirects (other threads may be
+    printing); elsewhere this does nothing."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+    except (OSError, ValueError, AttributeError):
+        yield
+        return
+    try:
+        with open(os.devnull, "wb") as null:
+            os.dup2(null.fileno(), 2)
+        yield
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+
+
 def audio_info(path) -> AudioInfo:
     """Validate ``path`` as a readable recording and describe it.
 
@@ -79,9 +107,12 @@ def audio_info(path) -> AudioInfo:
     if p.is_dir():
         raise InputError("is a folder, not a recording; give an audio file", path=p)
     try:
-        inf = sf.info(str(p))
+        with quiet_decoder():
+            inf = sf.info(str(p))
     except Exception as exc:  # soundfile raises LibsndfileError/RuntimeError/TypeError
         detail = " ".join(str(exc).split()).rsplit(":", 1)[-1].strip(" .")
+        if "does not exist" in detail and p.is_file():  # libsndfile's words for undecodable data
+            detail = "its content is not audio libsndfile can decode: damaged, or not the format its name says"
         raise InputError(f"not a readable recording ({detail or 'unknown format'}); give a WAV, FLAC, "
                          "OGG/Vorbis or AIFF file", path=p) from None
     if inf.frames <= 0:
@@ -144,7 +175,8 @@ def _native_blocks(info: AudioInfo, *, block_frames: int, start_frame: int, stop
                    dtype: str, counts: dict | None) -> Iterator[tuple[int, np.ndarray]]:
     """Yield ``(first_frame, samples (n, channels))`` at the native rate, cleaned."""
     try:
-        fh = sf.SoundFile(str(info.path))
+        with quiet_decoder():
+            fh = sf.SoundFile(str(info.path))
     except Exception as exc:
         raise InputError(f"cannot open recording ({' '.join(str(exc).split())})", path=info.path) from None
     with fh:

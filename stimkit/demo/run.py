@@ -91,5 +91,7 @@ def run_demo(*, out_dir, progress=None) -> list[str]:
 
         for r in result.physio:
             lines.extend(planted_lines(r))
-    lines.append(f"open {Path(result.out_dir) / 'report.html'} to see it at a glance")
+    report = next((p for p in result.written if str(p).endswith("report.html")),
+                  Path(result.out_dir) / "report.html")
+    lines.append(f"open {report} to see it at a glance")
     return lines

@@ -33,7 +33,7 @@ from .tables import OutputSet
 
 __all__ = [
     "bids_name", "numeric_columns", "write_stim", "events_sidecar", "hed_annotation", "prepare_events",
-    "merge_simultaneous", "write_events", "write_beats", "dataset_description",
+    "merge_simultaneous", "events_for_writing", "write_events", "write_beats", "dataset_description",
     "write_dataset_description", "BEAT_COLUMNS", "BIDS_VERSION", "HED_VERSION",
 ]
 
@@ -58,6 +58,12 @@ def numeric_columns(frame: pd.DataFrame) -> tuple[pd.DataFrame, list[str]]:
             dropped.append(str(c))
             out = out.drop(columns=c)
     return out, dropped
+
+
+def _has_unit(u) -> bool:
+    """A unit worth writing: not missing, empty or a placeholder such as ``n/a`` (BIDS: leave
+    ``Units`` out of a column that has none)."""
+    return u is not None and str(u).strip().lower() not in ("", "n/a", "na", "none", "-")
 
 
 def write_stim(
@@ -90,7 +96,7 @@ def write_stim(
         entry = {}
         if c in descriptions:
             entry["Description"] = descriptions[c]
-        if c in units:
+        if _has_unit(units.get(c)):
             entry["Units"] = units[c]
         if entry:
             sidecar[c] = entry
@@ -127,8 +133,8 @@ HED_VERSION = "8.3.0"
 
 def _clock_note(synchronized: bool | None) -> dict:
     if synchronized is True:
-        text = ("onset is on the physiological recorder's clock: recording time mapped through the "
-                "sync fit (offset and drift) computed from the sync marks.")
+        text = ("The onset column is on the physiological recorder's clock: recording time mapped "
+                "through the sync fit (offset and drift) computed from the sync marks.")
     elif synchronized is False:
         text = ("No sync was given: onset equals recording time (seconds from the first sample of "
                 "the recording file), not the physiological recorder's clock.")
@@ -302,7 +308,9 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
     there repeats its HED group (``TAG_EXPRESSION_REPEATED``), so a BIDS validator rejects the
     dataset. Rows are taken as simultaneous when their onsets agree to the 6 written decimals.
     In a merged row ``label``, ``part`` and ``source`` join the distinct values with `` + `` in
-    table order; ``duration`` is the longest; ``confidence`` the lowest (the cautious value);
+    table order (when different labels come from different parts, each label carries its part
+    in brackets, ``p (Violin) + mf (Cello)``); ``dynamic_level`` is kept when the rows agree and
+    is n/a otherwise; ``duration`` is the longest; ``confidence`` the lowest (the cautious value);
     every other column (``measure``, ``beat``, ...) comes from the row that starts a bar -- the
     lowest ``beat``, so "double bar" at bar 25 beat 5 and "rehearsal mark C" at bar 26 beat 1
     give bar 26 beat 1 -- or the first row when no beat is known. ``events`` must already be sorted
@@ -330,7 +338,7 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
     reps = [groups[j][int(np.argmin(beat[groups[j]]))] for j in firsts]
     out = events.iloc[reps].copy()
     out.index = firsts
-    for c in ("label", "part", "source", "confidence"):
+    for c in ("label", "part", "source", "confidence", "dynamic_level"):
         if c in out.columns:
             out[c] = out[c].astype(object)
     for j in firsts:
@@ -342,6 +350,12 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
             if c in sub.columns:
                 vals = [str(v) for v in sub[c] if not pd.isna(v)]
                 out.at[j, c] = " + ".join(dict.fromkeys(vals)) if vals else None
+        if "label" in sub.columns and "part" in sub.columns:
+            out.at[j, "label"] = _label_with_parts(sub["label"], sub["part"]) or out.at[j, "label"]
+        if "dynamic_level" in sub.columns:
+            lv = pd.to_numeric(sub["dynamic_level"], errors="coerce").to_numpy(np.float64)
+            lv = np.unique(lv[np.isfinite(lv)])
+            out.at[j, "dynamic_level"] = float(lv[0]) if lv.size == 1 else np.nan
         if "duration" in sub.columns:
             d = sub["duration"].to_numpy(np.float64)
             out.at[j, "duration"] = np.nanmax(d) if np.isfinite(d).any() else np.nan
@@ -351,11 +365,34 @@ def merge_simultaneous(events: pd.DataFrame) -> pd.DataFrame:
     return out.reset_index(drop=True)
 
 
+def _label_with_parts(labels: pd.Series, parts: pd.Series) -> str | None:
+    """``"p (Violin) + mf (Cello)"`` when different labels come from different parts, else None."""
+    pairs = [(str(lab), None if pd.isna(pt) else str(pt)) for lab, pt in zip(labels, parts) if not pd.isna(lab)]
+    if len({lab for lab, _ in pairs}) < 2 or len({pt for _, pt in pairs}) < 2:
+        return None
+    shown = [lab if pt in (None, "all") else f"{lab} ({pt})" for lab, pt in pairs]
+    return " + ".join(dict.fromkeys(shown))
+
+
+#: Fixed formats of columns that are not seconds: ``confidence`` always with three decimals.
+_COLUMN_FORMATS = {"confidence": "%.3f"}
+
+
 def _float_formats(df: pd.DataFrame) -> dict[str, str]:
     fmts = {}
     for c in df.columns:
-        fmts[c] = "%.6f" if c in _FIXED_COLUMNS else "%.6g"
+        fmts[c] = "%.6f" if c in _FIXED_COLUMNS else _COLUMN_FORMATS.get(c, "%.6g")
     return fmts
+
+
+def events_for_writing(events: pd.DataFrame, *, merge_same_kind: bool = True) -> pd.DataFrame:
+    """The event table exactly as :func:`write_events` writes it (ordered, same-kind rows at one
+    moment merged, whole bar and pass numbers as integers), for anything else that shows the
+    events (the report) to show the same rows."""
+    table = prepare_events(events)
+    if merge_same_kind:
+        table = merge_simultaneous(table)
+    return _integral_to_int(table, ["measure", "pass", "dynamic_level"])
 
 
 def _integral_to_int(df: pd.DataFrame, cols) -> pd.DataFrame:
@@ -385,10 +422,7 @@ def write_events(outs: OutputSet, base: str, events: pd.DataFrame, *, extra: dic
     list of Path
         ``[tsv, json]`` (staged; they appear when the :class:`OutputSet` commits).
     """
-    table = prepare_events(events)
-    if merge_same_kind:
-        table = merge_simultaneous(table)
-    table = _integral_to_int(table, ["measure"])
+    table = events_for_writing(events, merge_same_kind=merge_same_kind)
     sidecar = events_sidecar(table, extra=extra, synchronized=synchronized)
     p1 = outs.write_tsv(f"{base}_events.tsv", table, column_formats=_float_formats(table))
     p2 = outs.write_json(f"{base}_events.json", sidecar)
@@ -407,9 +441,10 @@ BEAT_INFO: dict[str, tuple[str, str, str | None]] = {
     "duration": ("Beat duration", "Time to the next beat of the same piece (n/a for the last beat).", "s"),
     "piece": ("Piece", "Name of the piece the beat belongs to.", None),
     "measure": COLUMN_INFO["measure"],
-    "pass": ("Pass", "1 on the first playing of a bar, 2 on its first repeat, and so on.", None),
-    "beat": COLUMN_INFO["beat"],
-    "is_downbeat": ("Downbeat", "true on the first beat of a bar.", None),
+    "pass": ("Pass", "Which playing of the bar this is: 1 the first time, 2 on its first repeat, "
+             "and so on.", None),
+    "beat": ("Beat", "Beat within the bar, counted from 1 in the bar's beat unit.", None),
+    "is_downbeat": ("Downbeat", "True on the first beat of a bar, false on the others.", None),
     "score_qn": COLUMN_INFO["score_qn"],
     "recording": COLUMN_INFO["recording"],
 }

@@ -359,7 +359,7 @@ def read_beat_table(path, *, kind: str = "rr", column: str | None = None,
         if np.max(np.abs(dt - step)) > 0.01 * step:
             raise InputError(f"a {kind} signal must be sampled at a fixed rate; the time steps vary "
                              f"by more than 1 %", path=path)
-        return series_from_signal(x, rate_hz=1.0 / step, start_s=float(t[0]), kind=kind, path=path,
+        return series_from_signal(x, rate_hz=round(1.0 / step, 6), start_s=float(t[0]), kind=kind, path=path,
                                   column=vc, clock=clock)
     warnings = []
     fin = np.isfinite(x)

@@ -131,19 +131,24 @@ def build_report(*, title: str, clock, events: pd.DataFrame, beats: pd.DataFrame
 def write_session_report(outs, parts: ReportParts, *, recording, title: str, summary: dict,
                          piece_table: pd.DataFrame | None, events: pd.DataFrame, stats: dict,
                          warnings: list[str], sync: dict | None, check_audio: bool = True,
-                         extra_sections=None) -> list:
-    """Stage ``report.png``, ``report.html`` and (when ``check_audio``) ``check-by-ear.flac``."""
+                         extra_sections=None, name: str = "report",
+                         check_name: str = CHECK_AUDIO_NAME) -> list:
+    """Stage ``<name>.png``, ``<name>.html`` and (when ``check_audio``) ``<check_name>``
+    (default ``report.png``, ``report.html``, ``check-by-ear.flac``; names may hold a sub-folder,
+    the page and the listening file stay side by side)."""
+    from pathlib import PurePosixPath
+
     from .html import write_report
 
     written = []
-    name = None
+    audio = None
     if check_audio:
         data = click_track(recording, bars_s=parts.bars_recording_s, boundaries_s=parts.boundaries_recording_s)
-        written.append(outs.write_bytes(CHECK_AUDIO_NAME, data))
-        name = CHECK_AUDIO_NAME
+        written.append(outs.write_bytes(check_name, data))
+        audio = PurePosixPath(check_name).name  # linked from the page beside it
     written += write_report(outs, title=title, figure_png=parts.png, summary=summary, pieces=piece_table,
                             events=events, stats={**parts.stats, **(stats or {})}, warnings=warnings,
                             sync=sync, overview_svg=parts.overview_svg, piece_panels=parts.piece_panels,
-                            check=parts.check, check_audio=name, clock_label=parts.clock_label,
-                            extra_sections=extra_sections)
+                            check=parts.check, check_audio=audio, clock_label=parts.clock_label,
+                            extra_sections=extra_sections, name=name)
     return written

@@ -83,20 +83,21 @@ def bar_lengths(notated: np.ndarray, contents: np.ndarray, *, names: list[str], 
     if longer and meter_known:
         warns.append(f"{bar_list([labels[i] for i in longer])}: longer than the time signature in every "
                      "part; kept at their written length")
+    # one line per part and kind (the staves of a piano share the part's name)
+    found: dict[tuple[str, str], dict[int, float]] = {}
     for k, nm in enumerate(names):
-        over = np.flatnonzero(has[k] & (c[k] > lengths + TOL_QN))
-        under = np.flatnonzero(has[k] & (c[k] < lengths - TOL_QN))
-        if len(over):
-            i = over[0]
-            warns.append(f"{bar_list([labels[i] for i in over])} of {nm}: longer than the other parts' bar "
-                         f"(bar {labels[i]}: {_fmt(c[k, i])} quarter notes where the bar in {meters[i]} is "
-                         f"{_fmt(lengths[i])}); notes placed from the barline, the excess overlaps the "
-                         "next bar")
-        if len(under):
-            i = under[0]
-            warns.append(f"{bar_list([labels[i] for i in under])} of {nm}: shorter than the other parts' bar "
-                         f"(bar {labels[i]}: {_fmt(c[k, i])} quarter notes where the bar in {meters[i]} is "
-                         f"{_fmt(lengths[i])}); notes placed from the barline, silent to the end of the bar")
+        for kind, bad in (("over", has[k] & (c[k] > lengths + TOL_QN)),
+                          ("under", has[k] & (c[k] < lengths - TOL_QN))):
+            for i in np.flatnonzero(bad):
+                found.setdefault((nm, kind), {}).setdefault(int(i), float(c[k, i]))
+    for (nm, kind), bars in found.items():
+        idx = sorted(bars)
+        i = idx[0]
+        what = ("longer", "the excess overlaps the next bar") if kind == "over" else \
+            ("shorter", "silent to the end of the bar")
+        warns.append(f"{bar_list([labels[j] for j in idx])} of {nm}: {what[0]} than the other parts' bar "
+                     f"(bar {labels[i]}: {_fmt(bars[i])} quarter notes where the bar in {meters[i]} is "
+                     f"{_fmt(lengths[i])}); notes placed from the barline, {what[1]}")
     return lengths, warns
 
 

@@ -262,6 +262,9 @@ class PrintedScore:
     warnings: list[str] = field(default_factory=list)
     is_midi: bool = False
     title: str = ""
+    #: part name -> how it sounds against its written notes, for transposing parts only
+    #: (e.g. 'sounds a major second lower than written from bar 1'); notes are at sounding pitch
+    transpositions: dict = field(default_factory=dict)
 
 
 _DOUBLE_BARS = ("double", "final", "heavy-light", "heavy-heavy", "light-light", "light-heavy")
@@ -651,8 +654,14 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                                        "ref_ql", "dur", "end_bar", "end_off", "written"])
     for c in ("text", "text2", "text3"):
         events[c] = events[c].fillna("")
+    sounding: dict[str, str] = {}
+    for k, tr in enumerate(transposers):
+        if tr and names[k] not in sounding:
+            sounding[names[k]] = "; ".join(
+                f"{transpose.describe(iv)} from bar {part_measures[k][j][2].measureNumberWithSuffix()}"
+                for j, iv in tr.intervals() if j < len(part_measures[k]))
     return PrintedScore(bars=bars, marks=marks, notes=notes, events=events, parts=names,
-                        warnings=warnings)
+                        warnings=warnings, transpositions=sounding)
 
 
 # --------------------------------------------------------------------------------------------

@@ -148,6 +148,7 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
         "SourceFile": model.path.name,
         "RepeatsExpanded": bool(model.repeats_expanded),
         "Parts": list(model.parts),
+        "TransposingParts": dict(getattr(getattr(model, "printed", None), "transpositions", None) or {}),
         "PrintedBars": int(model.measures["index"].nunique()) if "index" in model.measures else None,
         "PerformedBars": int(len(model.measures)),
         "TotalQuarterNotes": model.total_qn,
@@ -165,6 +166,9 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
                                           "equal dB steps are equal loudness ratios (Stevens 1957)"},
             "tempo_words": "tempo words get a nominal BPM from the project's word table "
                            "(stimkit.score.words); these values are conventions, stated in 'detail'",
+            "pitch": "notes and key rows are at sounding (concert) pitch; TransposingParts says how each "
+                     "transposing part's written notes were moved (MusicXML <transpose>), and a key row's "
+                     "detail gives the written key",
             "long_silence_s": LONG_SILENCE_S,
             "same_marking_merge": "the same marking at nearly the same place in several parts is one row",
         },

@@ -76,7 +76,8 @@ def xml_transpositions(root, *, concert_score: bool) -> tuple[list[XmlTransposit
 
     out: list[XmlTransposition] = []
     warns: list[str] = []
-    names = {sp.get("id"): (sp.findtext("part-name") or "").strip() for sp in root.iter("score-part")}
+    names = {sp.get("id"): (sp.findtext("part-name") or "").strip()
+             for sp in root.iterfind("part-list/score-part")}
     mp = None
     for pk, part in enumerate(root.findall("part")):
         pid = part.get("id") or ""
@@ -130,9 +131,10 @@ class Transposer:
         self._bars = [c[0] for c in changes]
         self._iv = [c[1] for c in changes]
         self._semi = [c[2] for c in changes]
+        self._any = any(self._semi)
 
     def __bool__(self) -> bool:
-        return any(self._semi)
+        return self._any
 
     def _k(self, bar: int) -> int:
         return bisect.bisect_right(self._bars, bar) - 1

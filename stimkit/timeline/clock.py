@@ -68,6 +68,9 @@ __all__ = [
     "burst_template",
     "half_rise_onset",
     "pair_marks",
+    "check_clock",
+    "MAX_OFFSET_S",
+    "MAX_DRIFT_PPM",
 ]
 
 #: Largest residual (s) of the clock fit before a warning (common practice: 2 ms).
@@ -323,9 +326,12 @@ def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: f
 
     The recorder times fix the spacing of the marks; every detected mark is tried as the
     partner of every recorder time, the others are predicted from the spacing and matched to
-    the nearest detected mark within ``tol_s + max_drift_ppm * 1e-6 * spacing``. The anchor
+    the nearest detected mark within ``tol_s + max_drift_ppm * 1e-6 * spacing``. The pairing
     matching the most recorder times (then the smallest total error) wins, so extra detections
-    (claps that look like clicks, say) are ignored.
+    (claps that look like clicks, say) are ignored -- but only when the spacing decides: if two
+    different pairings match as many recorder times (one recorder time and two detected marks,
+    or equally spaced marks of which the recorder logged only some), the pairing is a guess and
+    :class:`~stimkit.errors.WorkFailed` is raised, naming the candidates and how to decide.
 
     Returns
     -------
@@ -334,9 +340,9 @@ def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: f
     """
     det = np.sort(np.asarray(detected_s, dtype=np.float64))
     rec = np.asarray(recorder_s, dtype=np.float64)
-    best = (-1, np.inf, np.full(rec.size, np.nan))
     if det.size == 0:
-        return best[2], list(range(rec.size))
+        return np.full(rec.size, np.nan), list(range(rec.size))
+    found: dict[tuple, tuple[int, float, np.ndarray]] = {}  # pairing -> (matched, error, times)
     for i0 in range(rec.size):          # the recorder time taken as the anchor
         for d0 in det:                  # the detection taken as its partner
             pred = d0 + (rec - rec[i0])
@@ -350,11 +356,57 @@ def pair_marks(detected_s, recorder_s, *, max_drift_ppm: float = 300.0, tol_s: f
             vals = near[ok]
             if vals.size != np.unique(vals).size:  # one detection serves one recorder time
                 continue
-            score = (int(ok.sum()), -float(err[ok].sum()))
-            if score > (best[0], -best[1]):
-                best = (score[0], -score[1], np.where(ok, near, np.nan))
-    got = best[2]
+            key = tuple(float(v) if o else None for v, o in zip(near, ok))
+            total = float(err[ok].sum())
+            if key not in found or total < found[key][1]:
+                found[key] = (int(ok.sum()), total, np.where(ok, near, np.nan))
+    most = max(v[0] for v in found.values())
+    best = sorted((v for v in found.values() if v[0] == most), key=lambda v: v[1])
+    if most > 0 and len(best) > 1:
+        raise WorkFailed(_ambiguous_message(rec, best))
+    got = best[0][2]
     return got, [int(i) for i in np.flatnonzero(~np.isfinite(got))]
+
+
+def _ambiguous_message(rec: np.ndarray, best: list) -> str:
+    def options_at(k):
+        return sorted({float(b[2][k]) for b in best if np.isfinite(b[2][k])})
+
+    i = max(range(rec.size), key=lambda k: (len(options_at(k)), -k))
+    options = options_at(i)
+    shown = " s, ".join(f"{t:.3f}" for t in options[:4])
+    more = f" and {len(options) - 4} more" if len(options) > 4 else ""
+    return (f"the recorder's sync time {rec[i]:.3f} s could go with {len(options)} of the detected "
+            f"marks (at {shown} s{more} recording time), so the clock would be a guess; give the "
+            f"recorder times of every mark in the recording (recorder_times_s / recorder_file), or "
+            f"limit the search to the logged marks with [sync] search_start_s / search_end_s, or "
+            f"state the offset with offset_s")
+
+
+#: Largest clock offset accepted (s): ``onset`` is seconds from the start of the physiological
+#: recording (BIDS), so more than ~11.6 days means recorder times on another scale (Unix time,
+#: milliseconds) or a typing error.
+MAX_OFFSET_S = 1e6
+#: Largest clock drift accepted (ppm): independent audio clocks differ by about 10-100 ppm
+#: (REFERENCES.md, clock sync; common practice), so a fit beyond 1000 ppm (0.1 %) means marks
+#: paired wrongly, recorder times in other units, or marks too close together to measure drift.
+MAX_DRIFT_PPM = 1000.0
+
+
+def check_clock(offset_s: float, slope: float = 1.0, *, where: str = "") -> None:
+    """Refuse an absurd clock map (:class:`~stimkit.errors.InputError` for a stated offset,
+    :class:`~stimkit.errors.WorkFailed` for a fit): see :data:`MAX_OFFSET_S`, :data:`MAX_DRIFT_PPM`."""
+    lead = f"{where}: " if where else ""
+    if not np.isfinite(offset_s) or abs(offset_s) > MAX_OFFSET_S:
+        raise InputError(f"{lead}clock offset {offset_s:.6g} s is beyond +-{MAX_OFFSET_S:.0e} s; "
+                         f"onset counts seconds from the start of the physiological recording, so "
+                         f"give recorder times (or offset_s) in seconds from that start")
+    drift = (slope - 1.0) * 1e6
+    if not np.isfinite(drift) or abs(drift) > MAX_DRIFT_PPM:
+        raise WorkFailed(f"{lead}the sync fit gives a clock drift of {drift:.6g} ppm, beyond "
+                         f"+-{MAX_DRIFT_PPM:g} ppm (audio and recorder clocks differ by about "
+                         f"10-100 ppm); check that the recorder times are seconds and pair with the "
+                         f"marks, or use marks further apart")
 
 
 def fit_clock(recording_s, recorder_s, *, residual_warn_s: float = RESIDUAL_WARN_S) -> ClockFit:
@@ -367,7 +419,10 @@ def fit_clock(recording_s, recorder_s, *, residual_warn_s: float = RESIDUAL_WARN
     p = np.asarray(recorder_s, dtype=np.float64).ravel()
     if a.size != p.size or a.size == 0:
         raise InputError(f"clock fit needs pairs: {a.size} recording times, {p.size} recorder times")
+    if not (np.all(np.isfinite(a)) and np.all(np.isfinite(p))):
+        raise InputError("sync times must be finite numbers of seconds")
     if a.size == 1:
+        check_clock(float(p[0] - a[0]))
         fit = ClockFit(offset_s=float(p[0] - a[0]), slope=1.0, method="marks",
                        recording_s=a, recorder_s=p, residuals_s=np.zeros(1))
         return fit
@@ -388,18 +443,50 @@ def fit_clock(recording_s, recorder_s, *, residual_warn_s: float = RESIDUAL_WARN
                             f"fit (more than {residual_warn_s * 1000:g} ms): check the pairing")
     if not slope > 0:
         raise WorkFailed("clock fit gives a non-increasing map; check the recorder sync times")
+    check_clock(offset, slope)
     return ClockFit(offset_s=offset, slope=slope, method="marks", recording_s=a, recorder_s=p,
                     residuals_s=resid, warnings=warnings)
 
 
 def offset_clock(offset_s: float) -> ClockFit:
-    """``onset = recording + offset_s`` (a stated plain offset, no drift)."""
+    """``onset = recording + offset_s`` (a stated plain offset, no drift); an absurd offset is
+    refused (:func:`check_clock`)."""
+    check_clock(float(offset_s))
     return ClockFit(offset_s=float(offset_s), slope=1.0, method="offset")
 
 
 def identity_clock() -> ClockFit:
     """No sync: ``onset`` equals ``recording``."""
     return ClockFit(offset_s=0.0, slope=1.0, method="none")
+
+
+#: Largest text file read as a recorder sync table (bytes): a log of sync marks is a few lines.
+MAX_SYNC_FILE_BYTES = 50 * 1024 * 1024
+
+
+def _read_text_file(path: Path, *, what: str) -> str:
+    """Text of a small table file: UTF-8 (with or without BOM), or UTF-16 with its BOM (Excel's
+    "Unicode text"); anything else -- another encoding, random bytes -- is refused in one line."""
+    try:
+        size = path.stat().st_size
+        if size > MAX_SYNC_FILE_BYTES:
+            raise InputError(f"{what} is {size / 1e6:.0f} MB; a table of sync times is a few lines "
+                             f"(is this the right file?)", path=path)
+        data = path.read_bytes()
+    except OSError as exc:
+        raise InputError(f"cannot read {what} ({exc.strerror}); check the path", path=path) from None
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        try:
+            return data.decode("utf-16")
+        except UnicodeDecodeError:
+            pass
+    elif b"\x00" not in data:
+        try:
+            return data.decode("utf-8-sig")
+        except UnicodeDecodeError:
+            pass
+    raise InputError(f"{what} is not UTF-8 text (another encoding, or not a text file); save it "
+                     f"as UTF-8 CSV/TSV with a header line", path=path)
 
 
 def read_recorder_times(path: str | Path, *, column: str) -> np.ndarray:
@@ -409,13 +496,13 @@ def read_recorder_times(path: str | Path, *, column: str) -> np.ndarray:
     column is missing or a cell is not a number.
     """
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except OSError as exc:
-        raise InputError(f"cannot read recorder sync file ({exc.strerror}); check the path",
-                         path=path) from None
+    text = _read_text_file(path, what="recorder sync file")
     delim = "\t" if path.suffix.lower() in (".tsv", ".tab", ".txt") else ","
-    rows = list(csv.reader(text.splitlines(), delimiter=delim))
+    try:
+        rows = list(csv.reader(text.splitlines(), delimiter=delim))
+    except csv.Error as exc:
+        raise InputError(f"recorder sync file is not a readable table ({exc}); save it as a "
+                         f"CSV or TSV text file", path=path) from None
     rows = [r for r in rows if r and not (len(r) == 1 and not r[0].strip())]
     if not rows:
         raise InputError("recorder sync file is empty; it needs a header line and one row per mark",
@@ -431,7 +518,10 @@ def read_recorder_times(path: str | Path, *, column: str) -> np.ndarray:
         if cell == "" or cell.lower() == "n/a":
             continue
         try:
-            out.append(float(cell))
+            v = float(cell)
+            if not np.isfinite(v):
+                raise ValueError(cell)
+            out.append(v)
         except ValueError:
             raise InputError(f"line {lineno}: '{cell}' in column '{column}' is not a number of "
                              f"seconds", path=path) from None

@@ -5,7 +5,9 @@ What it computes
 - :func:`piece_events` -- one ``piece`` row (onset at the first sounding note, duration to the
   end of the last note) and one row per score boundary. ``recording`` comes from the alignment's
   ``score_qn -> recording`` map, ``nominal`` from the score's tempo map, ``confidence`` from the
-  alignment, ``onset`` from the clock fit applied to ``recording``.
+  alignment, ``onset`` from the clock fit applied to ``recording``; ``pass`` tells the playings
+  of a repeated bar apart; ``dynamic_level`` is the number of a dynamic or accent mark
+  (:data:`stimkit.score.markings.DYNAMIC_LEVELS`, pppp = 1 ... ffff = 10).
 - :func:`silence_events`, :func:`sync_events`, :func:`change_events` -- session-level rows.
 - :func:`merge_events` -- all rows in one table with :data:`stimkit.levels.EVENT_COLUMNS`,
   sorted deterministically by ``onset``, ``trial_type``, ``label``.
@@ -17,7 +19,10 @@ Conventions
 Kinds of time as in DESIGN.md: ``score_qn`` (quarter notes as performed), ``nominal`` (seconds
 from the piece's start at the notated tempo), ``recording`` (seconds from the recording's first
 sample), ``onset`` (recorder clock). Durations on the recorder clock are differences of onsets.
-Missing values are ``NaN`` / ``None`` (written as ``n/a``).
+Missing values are ``NaN`` / ``None`` (written as ``n/a``). A marking at the end of a bar (a
+double or final bar line, a repeat end) keeps the bar it closes in ``measure`` and has no
+``beat`` (the score gives it one past the bar's last beat, "beat 5 of a 4/4 bar", which no
+player counts); its time columns say when the bar ends.
 """
 
 from __future__ import annotations
@@ -129,7 +134,7 @@ def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> 
     rows = [{
         "onset": float(clock(r0)), "duration": float(clock(r1) - clock(r0)), "trial_type": "piece",
         "piece": piece, "label": piece, "measure": int(loc["measure"].iloc[0]),
-        "beat": float(loc["beat"].iloc[0]), "score_qn": q_first,
+        "pass": int(loc["pass"].iloc[0]), "beat": float(loc["beat"].iloc[0]), "score_qn": q_first,
         "nominal": float(score.tempo_map(q_first)), "recording": r0,
         "confidence": float(np.nanmedian(conf(notes["score_qn"].to_numpy(dtype=np.float64))))
         if confidence is not None and len(notes) else np.nan,
@@ -152,19 +157,43 @@ def piece_events(score, *, piece: str, to_recording, clock, confidence=None) -> 
         dur = np.zeros(q.size)
         if has_end.any():
             dur[has_end] = np.atleast_1d(clock(to_recording(qe[has_end]))) - on[has_end]
-        for i, r in enumerate(b.itertuples(index=False)):
-            d = r._asdict()
+        beats = _beats_inside_bars(score, b)
+        for i, d in enumerate(b.to_dict("records")):  # not itertuples: "pass" is a keyword
             tt = str(d.get("trial_type"))
             if tt not in TRIAL_TYPES or tt == "piece":  # the piece row is built above, at its first note
                 continue
+            level = _num(d.get("value")) if tt in ("dynamic", "accent") else float("nan")
             rows.append({
                 "onset": float(on[i]), "duration": float(max(dur[i], 0.0)), "trial_type": tt,
-                "piece": piece, "label": _text(d.get("label")),
-                "measure": _num(d.get("measure")), "beat": _num(d.get("beat")),
+                "piece": piece, "label": _text(d.get("label")), "dynamic_level": level,
+                "measure": _num(d.get("measure")), "pass": _num(d.get("pass")), "beat": float(beats[i]),
                 "score_qn": float(q[i]), "nominal": float(nom[i]), "recording": float(rec[i]),
                 "confidence": float(cf[i]), "source": "alignment", "part": _text(d.get("part")),
             })
     return _frame(rows)
+
+
+def _beats_inside_bars(score, b: pd.DataFrame) -> np.ndarray:
+    """The ``beat`` of each boundary row, NaN where it lies one past the last beat of its bar
+    (a marking at the bar's end: see the module notes)."""
+    beat = pd.to_numeric(b["beat"], errors="coerce").to_numpy(dtype=np.float64) if "beat" in b.columns \
+        else np.full(len(b), np.nan)
+    m = score.measures
+    if m is None or not len(m) or "measure" not in b.columns:
+        return beat
+    ends = m["first_beat"].to_numpy(np.float64) + m["duration_qn"].to_numpy(np.float64) / m["beat_qn"].to_numpy(np.float64)
+    end_beat = dict(zip(zip(m["measure"].astype(int), m["pass"].astype(int)), ends))
+    meas = pd.to_numeric(b["measure"], errors="coerce").to_numpy(dtype=np.float64)
+    pas = pd.to_numeric(b["pass"], errors="coerce").to_numpy(dtype=np.float64) if "pass" in b.columns \
+        else np.ones(len(b))
+    out = beat.copy()
+    for i in range(len(b)):
+        if not (np.isfinite(meas[i]) and np.isfinite(pas[i]) and np.isfinite(beat[i])):
+            continue
+        last = end_beat.get((int(meas[i]), int(pas[i])))
+        if last is not None and beat[i] >= last - 1e-6:
+            out[i] = np.nan
+    return out
 
 
 def repeat_events(repeats: list[dict], score, *, piece: str, to_recording, clock) -> pd.DataFrame:
@@ -241,7 +270,8 @@ def merge_events(tables) -> pd.DataFrame:
     })
     order = keys.sort_values(["onset", "rank", "label", "pos"], kind="mergesort").index
     out = df.loc[order].reset_index(drop=True)
-    for c in ("onset", "duration", "measure", "beat", "score_qn", "nominal", "recording", "confidence"):
+    for c in ("onset", "duration", "dynamic_level", "measure", "pass", "beat", "score_qn", "nominal",
+              "recording", "confidence"):
         out[c] = pd.to_numeric(out[c], errors="coerce").astype(np.float64)
     return out
 

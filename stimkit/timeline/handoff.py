@@ -10,10 +10,26 @@ no file): ``<base>_events.tsv/.json`` (BIDS events, :func:`stimkit.export.bids.w
 ``provenance.json``
 (:mod:`stimkit.export.provenance`).
 
+Layout (:func:`output_layout`)
+------------------------------
+- With a BIDS ``subject`` the output folder is a BIDS dataset: ``dataset_description.json`` and
+  ``.bidsignore`` at its top, and every file of the run in ``sub-<s>/[ses-<x>/]beh/`` named
+  ``<base>_...``: the BIDS files ``_events.tsv/.json`` and ``_stim.tsv.gz/.json``, and beside
+  them the files BIDS does not define, ``_beats.tsv/.json``, ``_report.html/.png``,
+  ``_check-by-ear.flac``, ``_provenance.json`` and the physiology results in the folder
+  ``<base>_relate/``, which ``.bidsignore`` hides from validators. Several sessions and runs
+  can share one output folder without overwriting each other.
+- Without a subject the layout is flat: all files in the output folder, with ``report.html``,
+  ``report.png``, ``check-by-ear.flac``, ``provenance.json`` and the folder ``physio/`` under
+  those plain names.
+
 Conventions
 -----------
 - ``<base>`` is the BIDS name from the session's entities (``sub-01_ses-1_task-music_run-1``),
   or the recording's file name when none are given (:func:`output_base`).
+- No output may be, or link to, an input (the recording, a score, the session file, the
+  recorder's sync file): :func:`check_outputs_against_inputs` refuses such a session before
+  the work, and the :class:`~stimkit.export.tables.OutputSet` refuses it again when it writes.
 - The continuous file is on the recorder clock: its rows are at ``StartTime + k /
   SamplingFrequency`` with ``StartTime = onset(t0)`` and ``SamplingFrequency = rate_hz / slope``
   (the feature frames are evenly spaced on the recording clock, so on the recorder clock their
@@ -34,7 +50,8 @@ import pandas as pd
 
 from .clock import ClockFit, detect_sync_marks
 
-__all__ = ["HandoffData", "write_handoff", "output_base", "ALIGNED_TEMPO"]
+__all__ = ["HandoffData", "write_handoff", "output_base", "output_layout", "planned_outputs",
+           "session_inputs", "check_outputs_against_inputs", "ALIGNED_TEMPO", "BIDSIGNORE"]
 
 #: Column added to the continuous features: the tempo from the score alignment.
 ALIGNED_TEMPO = "aligned_tempo_bpm"
@@ -73,6 +90,101 @@ def output_base(session) -> str:
                      task=session.bids.get("task"), run=session.bids.get("run"), fallback=fallback)
 
 
+#: ``.bidsignore`` of a nested output folder: the files stimkit writes that BIDS does not define.
+BIDSIGNORE = ("# files written by stimkit beside the BIDS files; not defined by BIDS\n"
+              "*_beats.tsv\n*_beats.json\n*_report.html\n*_report.png\n*_provenance.json\n"
+              "*_check-by-ear.flac\n*_relate\n")
+
+
+@dataclass(frozen=True)
+class OutputLayout:
+    """Where one run's files go, relative to the output folder (see the module notes)."""
+
+    base: str
+    data_dir: str       # "" (flat) or "sub-01/ses-1/beh"
+    nested: bool
+
+    def data(self, suffix: str) -> str:
+        """Relative name of ``<base><suffix>`` in the data folder."""
+        return f"{self.data_dir}/{self.base}{suffix}" if self.data_dir else f"{self.base}{suffix}"
+
+    @property
+    def report(self) -> str:
+        """Name of the report without its extension (``write_report``'s ``name``)."""
+        return self.data("_report") if self.nested else "report"
+
+    @property
+    def provenance(self) -> str:
+        return self.data("_provenance.json") if self.nested else "provenance.json"
+
+    @property
+    def relate_dir(self) -> str:
+        """Folder prefix (with its slash) of the physiology results (``stimkit.physio``)."""
+        return self.data("_relate/") if self.nested else "physio/"
+
+    @property
+    def check_audio(self) -> str:
+        """Name of the listening file of the report (:mod:`stimkit.report.build`)."""
+        return self.data("_check-by-ear.flac") if self.nested else "check-by-ear.flac"
+
+    def names(self) -> list[str]:
+        """Every file a run writes, relative to the output folder."""
+        out = [self.data(s) for s in ("_events.tsv", "_events.json", "_stim.tsv.gz", "_stim.json",
+                                      "_beats.tsv", "_beats.json")]
+        out += ["dataset_description.json", f"{self.report}.png", f"{self.report}.html", self.provenance,
+                self.check_audio]
+        if self.nested:
+            out.append(".bidsignore")
+        return out
+
+
+def output_layout(session) -> OutputLayout:
+    """The run's :class:`OutputLayout`: nested BIDS folders when a subject is given, else flat."""
+    base = output_base(session)
+    sub, ses = session.bids.get("subject"), session.bids.get("session")
+    if not sub:
+        return OutputLayout(base=base, data_dir="", nested=False)
+    parts = [f"sub-{sub}"] + ([f"ses-{ses}"] if ses else []) + ["beh"]
+    return OutputLayout(base=base, data_dir="/".join(parts), nested=True)
+
+
+def session_inputs(session, *, physio: bool = True) -> dict[str, Path]:
+    """Role -> path of every file the session reads (hashed in the provenance, never overwritten);
+    ``physio=False`` leaves out the physiological files (the chain names those by participant)."""
+    inputs = {"recording": Path(session.recording)}
+    for p in session.pieces:
+        inputs[f"score:{p.name}"] = Path(p.score)
+    if session.source is not None:
+        inputs["session"] = Path(session.source)
+    if session.sync.recorder_file is not None:
+        inputs["recorder_sync"] = Path(session.sync.recorder_file)
+    for i, spec in enumerate((getattr(session, "physio", None) or []) if physio else []):
+        inputs[f"physio:{spec.participant or i + 1}"] = Path(spec.file)
+    return inputs
+
+
+def planned_outputs(session) -> list[Path]:
+    """Every file a run of ``session`` writes (absolute or relative to the current folder)."""
+    lay = output_layout(session)
+    return [Path(session.out_dir) / n for n in lay.names()]
+
+
+def check_outputs_against_inputs(session) -> None:
+    """Refuse (:class:`~stimkit.errors.InputError`, exit 2) a session one of whose outputs is, or
+    links to, one of its inputs -- before any work is done and nothing is written."""
+    from ..errors import InputError
+    from ..export.tables import input_clash
+
+    inputs = session_inputs(session)
+    for target in planned_outputs(session):
+        clash = input_clash(target, inputs.values())
+        if clash is not None:
+            role = next(r for r, q in inputs.items() if q == clash).split(":")[0].replace("_", " ")
+            raise InputError(f"the output {target.name} would overwrite the {role} file {clash}; "
+                             f"choose another output folder (output = ... in the session file, or "
+                             f"-o) or move that file", path=session.source or target)
+
+
 def _defaults(fn, names) -> dict:
     import inspect
 
@@ -98,7 +210,9 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     low_conf, changes, spans, timings = d.low_confidence, d.changes, d.spans, d.timings
     duration_s, beat_df, out_dir = d.duration_s, d.beats, d.out_dir
     names = [p.name for p in pieces_out]
-    base = output_base(session)
+    layout = output_layout(session)
+    base = layout.base
+    shown_events = bids.events_for_writing(events)  # the report shows the rows the TSV holds
     synchronized = clock.method != "none"
     t_frames = np.asarray(frame.index, dtype=np.float64)
     stim_extra = {
@@ -108,6 +222,8 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
         "RecordingSamplingFrequency": float(session.rate_hz),
         "ClockFit": clock.to_dict(),
     }
+    if session.bids.get("task"):
+        stim_extra["TaskName"] = session.bids["task"]
 
     report_pieces = pd.DataFrame({
         "piece": [p.name for p in pieces_out],
@@ -118,7 +234,7 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     on_frame.index = pd.Index(np.asarray(clock(t_frames), dtype=np.float64), name="onset")
     from ..report.build import build_report, write_session_report
 
-    parts = build_report(title=f"{base}: {', '.join(names)}", clock=clock, events=events, beats=beat_df,
+    parts = build_report(title=f"{base}: {', '.join(names)}", clock=clock, events=shown_events, beats=beat_df,
                          features=on_frame, units=units, pieces=report_pieces, regions_recording=low_conf,
                          changes=changes, pieces_info=pieces_out, columns={"tempo": ALIGNED_TEMPO})
     stats_tables = {}
@@ -168,28 +284,29 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                           "method": s.method} for s in spans],
         "clock_fit": clock.to_dict(),
     }
-    inputs = {"recording": session.recording}
-    for p in session.pieces:
-        inputs[f"score:{p.name}"] = p.score
-    if session.source is not None:
-        inputs["session"] = session.source
-    if session.sync.recorder_file is not None:
-        inputs["recorder_sync"] = session.sync.recorder_file
+    inputs = session_inputs(session, physio=False)
     for label, f in d.physio_inputs.items():
         inputs[f"physio:{label}"] = f
+    task = session.bids.get("task")
+    events_extra = {"TaskName": task} if task else {}
+    events_extra["ClockFit"] = clock.to_dict()
 
     stim = frame  # write_stim keeps numeric columns and lists the text ones it leaves out
-    with OutputSet(out_dir) as outs:
+    prefix = layout.data("")
+    with OutputSet(out_dir, inputs=inputs.values()) as outs:
         written = []
-        written += bids.write_events(outs, base, events, synchronized=synchronized,
-                                     extra={"ClockFit": clock.to_dict()})
-        written += bids.write_stim(outs, base, stim,
+        written += bids.write_events(outs, prefix, shown_events, synchronized=synchronized,
+                                     extra=events_extra)
+        written += bids.write_stim(outs, prefix, stim,
                                    sampling_hz=session.rate_hz / clock.slope,
                                    start_time_s=float(clock(t_frames[0])) if t_frames.size else 0.0,
                                    units=units, descriptions=descriptions,
                                    extra=stim_extra)
-        written += bids.write_beats(outs, base, beat_df)
-        written.append(bids.write_dataset_description(outs, name=f"stimkit annotation of {base}"))
+        written += bids.write_beats(outs, prefix, beat_df)
+        written.append(bids.write_dataset_description(
+            outs, name="stimkit stimulus annotation" if layout.nested else f"stimkit annotation of {base}"))
+        if layout.nested:
+            written.append(outs.write_text(".bidsignore", BIDSIGNORE))
         extra_sections = []
         if d.physio:  # relate results: physio/ tables and figures, and their report section
             from ..physio.outputs import write_relate
@@ -198,14 +315,15 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
             figs: dict = {}
             written += write_relate(outs, d.physio, inputs={f"physio:{k}": v for k, v in d.physio_inputs.items()},
                                     paths_base=Path(session.source).parent if session.source else None,
-                                    prefix="physio/", command=command, figures_out=figs)
+                                    prefix=layout.relate_dir, command=command, figures_out=figs)
             extra_sections.append((SECTION_HEADING, physio_section_html(d.physio, figures=figs)))
         written += write_session_report(outs, parts, recording=session.recording,
                                         title=f"stimkit report: {base}", summary=summary,
-                                        piece_table=piece_table, events=events, stats=stats_tables,
+                                        piece_table=piece_table, events=shown_events, stats=stats_tables,
                                         warnings=warnings,
                                         sync=clock.to_dict() if clock.method != "none" else None,
                                         check_audio=getattr(session, "check_audio", True),
+                                        name=layout.report, check_name=layout.check_audio,
                                         extra_sections=extra_sections)
         lap("write")
         prov = provenance.build_provenance(
@@ -213,5 +331,5 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                 list(command) if command else ["stimkit", "annotate", str(session.source or session.recording)],
                 base_dir=base_dir, out_dir=out_dir),
             inputs=inputs, settings=settings, warnings=warnings, timings=timings, base_dir=base_dir)
-        written.append(provenance.write_provenance(outs, prov, with_timings=True))
+        written.append(provenance.write_provenance(outs, prov, name=layout.provenance, with_timings=True))
     return [Path(w) for w in written]

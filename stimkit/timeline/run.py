@@ -34,7 +34,7 @@ from ..errors import InputError, WorkFailed
 from . import events as ev
 from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offset_clock, pair_marks, \
     read_recorder_times
-from .handoff import ALIGNED_TEMPO, HandoffData, output_base, write_handoff
+from .handoff import ALIGNED_TEMPO, HandoffData, check_outputs_against_inputs, output_base, write_handoff
 
 __all__ = ["AnnotateResult", "annotate", "summary_lines", "output_base"]
 
@@ -212,7 +212,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         if progress is not None:  # a stage finished: lets a piped CLI print one line per stage
             progress(name, 1.0)
 
-    out_dir = check_output_dir(session.out_dir)
+    check_outputs_against_inputs(session)  # never write over an input (before any work)
     info = audio_info(session.recording)
     duration_s = info.duration_s
     scores = []
@@ -220,6 +220,11 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         sc = load_score(p.score, expand_repeats=session.expand_repeats)
         scores.append(sc)
         warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
+    if session.sync.mode == "marks" and session.sync.recorder_s is None:
+        read_recorder_times(session.sync.recorder_file, column=session.sync.recorder_column)
+    # the inputs are checked: now the output folder (checked, not yet created: the writing
+    # creates it, so a run refused before then leaves no empty folder behind)
+    out_dir = check_output_dir(session.out_dir, create=False)
     lap("scores")
     physio_in = _read_physio(session)  # bad physiological files stop the run before the work
     lap("physio")
@@ -332,6 +337,13 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
                           physio=physio_results)
 
 
+def _relative(p: Path, folder: Path) -> str:
+    try:
+        return Path(p).relative_to(folder).as_posix()
+    except ValueError:
+        return str(p)
+
+
 def repeats_line(name: str, repeats: list, tempo_ratio: float = 1.0) -> str:
     """One line saying which repeats a piece's performance took (and a tempo far from the marks)."""
     parts = []
@@ -380,8 +392,7 @@ def summary_lines(result: AnnotateResult) -> list[str]:
         for r in result.physio:
             lines.extend(series_lines(r))
     if result.warnings:
-        lines.append(f"{len(result.warnings)} warning(s), listed in report.html and provenance.json")
+        lines.append(f"{len(result.warnings)} warning(s), listed in the report and the provenance file")
     lines.append(f"outputs in {result.out_dir}:")
-    lines.extend(f"  {p.relative_to(result.out_dir).as_posix() if p.is_relative_to(result.out_dir) else p.name}"
-                 for p in sorted(result.written, key=lambda q: q.name))
+    lines.extend(f"  {_relative(p, result.out_dir)}" for p in sorted(result.written, key=lambda q: str(q)))
     return lines

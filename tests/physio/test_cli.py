@@ -129,3 +129,10 @@ def test_session_physio_tables_are_validated(tmp_path):
     assert "line 6" in msg and "kind must be one of" in msg
     assert "line 7" in msg and "unknown key 'colour'" in msg
     assert "line 9" in msg and "surrogates must be" in msg
+
+
+@pytest.mark.parametrize("option", [["--correction", "bonferroni"], ["--penalty", "-3"], ["--jobs", "0"],
+                                    ["--share-null", "random"]])
+def test_bad_options_exit_2(handoff, tmp_path, option):
+    code, _, err = run(["relate", str(handoff), str(handoff / "sub-07_beats.tsv"), "-o", "out"] + option, tmp_path)
+    assert code == 2 and option[0] in err and not (tmp_path / "out").exists()

@@ -191,3 +191,14 @@ def test_corpus_piano_bars_out_of_step_are_named_and_resynchronised(weber):
     last = int(meas.index.max())
     piano = model.notes[(model.notes["part"] == "Piano") & (model.notes["measure"] == last)]
     assert piano["score_qn"].min() == pytest.approx(meas.loc[last, "score_qn"])
+
+
+def test_plan_sidecar_says_which_parts_were_moved(band):
+    from stimkit.score.plan import boundaries_sidecar
+
+    tp = boundaries_sidecar(band, name="band", start_s=0.0)["TransposingParts"]
+    assert tp["Horn in F"] == "sounds a perfect fifth lower than written from bar 1"
+    assert tp["Piccolo"] == "sounds an octave higher than written from bar 1"
+    assert tp["Clarinet (Bb, then A)"] == ("sounds a major second lower than written from bar 1; "
+                                           "sounds a minor third lower than written from bar 3")
+    assert "Flute" not in tp

@@ -196,3 +196,51 @@ def test_stereo_file_at_another_rate(tmp_path):
     marks = detect_sync_marks(path, frequency_hz=1500.0, duration_s=0.03)
     assert len(marks) == 1
     assert abs(marks[0].recording_s - np.ceil(3.21 * sr) / sr) < 1.0 / sr  # within one sample
+
+
+def test_one_recorder_time_and_two_marks_is_refused_not_guessed():
+    # the recorder logged only the second of two bursts: pairing it with the first one found put
+    # every onset 254 s late; now the pairing is refused and the message says how to decide
+    from stimkit.errors import WorkFailed
+    from stimkit.timeline.clock import pair_marks
+    with pytest.raises(WorkFailed, match="search_start_s") as info:
+        pair_marks([1.0, 255.227], [262.487])
+    assert "1.000" in str(info.value) and "255.227" in str(info.value)
+    # equally spaced marks of which the recorder logged two: which two is a guess too
+    with pytest.raises(WorkFailed, match="could go with"):
+        pair_marks([10.0, 70.0, 130.0], [5.0, 65.0])
+    # one mark, one recorder time: nothing to choose
+    got, missing = pair_marks([255.227], [262.487])
+    assert missing == [] and got[0] == 255.227
+
+
+def test_absurd_offset_and_drift_are_refused():
+    # onset counts seconds from the start of the physiological recording (BIDS), so 1e300 s is
+    # not an offset; independent audio clocks differ by ~10-100 ppm (REFERENCES.md, clock sync)
+    from stimkit.errors import WorkFailed
+    with pytest.raises(InputError, match="offset"):
+        offset_clock(1e300)
+    with pytest.raises(InputError, match="offset"):
+        fit_clock([1.0, 200.0], [1e12, 1e12 + 199.0])   # times on another scale (ms)
+    with pytest.raises(WorkFailed, match="drift"):
+        fit_clock([1.0, 3.0], [10.0, 12.5])          # 25 % fast: 250000 ppm
+    assert fit_clock([1.0, 601.0], [10.0, 610.06]).drift_ppm == pytest.approx(100.0, abs=1e-3)
+
+
+@pytest.mark.parametrize("content", [
+    "onset\n12.5\nt\u00e9st\n".encode("latin-1"),          # another encoding (Latin-1)
+    bytes(np.random.default_rng(0).integers(0, 256, 4000, dtype=np.uint8)),  # random bytes
+])
+def test_sync_file_not_utf8_is_one_line_input_error(tmp_path, content):
+    p = tmp_path / "recorder-sync.tsv"
+    p.write_bytes(content)
+    with pytest.raises(InputError, match="UTF-8") as info:
+        read_recorder_times(p, column="onset")
+    assert "recorder-sync.tsv" in str(info.value) and "\n" not in str(info.value)
+
+
+def test_sync_file_in_utf16_with_bom_is_read(tmp_path):
+    # spreadsheet programs save "Unicode text" as UTF-16 with a byte-order mark
+    p = tmp_path / "recorder-sync.tsv"
+    p.write_bytes("onset\n12.5\n620.25\n".encode("utf-16"))
+    np.testing.assert_allclose(read_recorder_times(p, column="onset"), [12.5, 620.25])

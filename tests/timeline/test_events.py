@@ -105,3 +105,42 @@ def test_held_last_note_is_not_cut_short(score):
     # before the last onset the alignment map is used as it is
     hp = ev[ev.trial_type == "hairpin"].iloc[0]
     assert hp.recording == pytest.approx(10.0 + 3 * 0.7)
+
+
+def test_pass_dynamic_level_and_end_of_bar_markings(score):
+    # a final bar line at the end of bar 2 (qn 9) is written by the score at "beat 5" of the 4/4
+    # bar, a beat no player counts: the events table keeps bar 2 and gives no beat, while its time
+    # is the bar's end. The dynamic keeps its number (p = 4 on the pppp = 1 ... ffff = 10 scale)
+    extra = pd.DataFrame({
+        "trial_type": ["section", "dynamic"], "label": ["final bar", "f"], "score_qn": [9.0, 5.0],
+        "measure": [2, 2], "pass": [1, 2], "beat": [5.0, 1.0], "part": ["all", "P1"],
+        "value": [np.nan, 7.0], "detail": ["", ""], "end_qn": [np.nan, np.nan],
+    })
+    score.boundaries.loc[score.boundaries.trial_type == "dynamic", "value"] = 4.0
+    score.boundaries = pd.concat([score.boundaries, extra], ignore_index=True)
+    align = TimeMap([0, 9], [2.0, 11.0], src="score_qn", dst="recording")
+    ev = piece_events(score, piece="s", to_recording=align, clock=identity_clock())
+    fin = ev[ev.label == "final bar"].iloc[0]
+    assert fin.measure == 2 and np.isnan(fin.beat) and fin.recording == pytest.approx(11.0)
+    dyn = ev[ev.trial_type == "dynamic"].sort_values("score_qn")
+    assert dyn.dynamic_level.tolist() == [4.0, 7.0] and dyn["pass"].tolist() == [1, 2]
+    assert ev[ev.trial_type == "key"].dynamic_level.isna().all()
+
+
+def test_report_and_tsv_show_the_same_merged_rows(tmp_path):
+    # two parts marked differently at one moment: one row (HED), each label with its part, the
+    # dynamic level n/a (they disagree), confidence with three decimals
+    from stimkit.export.bids import events_for_writing, write_events
+    from stimkit.export.tables import OutputSet
+    ev = pd.DataFrame({"onset": [1.0, 1.0, 2.0], "duration": [0.0] * 3,
+                       "trial_type": ["dynamic", "dynamic", "dynamic"], "label": ["p", "mf", "f"],
+                       "dynamic_level": [4.0, 6.0, 7.0], "part": ["Violin", "Cello", "all"],
+                       "confidence": [0.91234, 1.0, 0.5]})
+    shown = events_for_writing(ev)
+    assert shown.label.tolist() == ["mf (Cello) + p (Violin)", "f"]   # rows sorted by label
+    assert pd.isna(shown.dynamic_level.iloc[0]) and shown.dynamic_level.iloc[1] == 7
+    with OutputSet(tmp_path) as outs:
+        write_events(outs, "x", ev)
+    tsv = pd.read_csv(tmp_path / "x_events.tsv", sep="\t", na_values="n/a", keep_default_na=False, dtype=str)
+    assert tsv.label.tolist() == shown.label.tolist()
+    assert tsv.confidence.tolist() == ["0.912", "0.500"]   # one format: three decimals
