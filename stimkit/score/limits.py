@@ -9,8 +9,9 @@ one note of a million quarter notes, a 44-byte MIDI file with one note of 2**28 
 - :func:`read_bounded` reads a file or a zip member as a stream and stops at ``MAX_XML_BYTES``
   or at ``MAX_MARKUP`` tags (``<`` characters), whichever comes first -- the member's declared
   size is never trusted;
-- :func:`check_xml_tree` counts ``<note>`` and ``<measure>`` elements of the checked XML tree
-  before music21 builds its (much larger) objects;
+- :func:`check_xml_tree` counts ``<note>``, ``<measure>`` and ``<direction>`` elements of the
+  checked XML tree and estimates the memory music21 would need for them before it builds its
+  (much larger) objects;
 - :func:`read_midi` reads a Standard MIDI File with music21's low-level reader, then bounds its
   length (ticks / ticks per quarter) and its note count before music21 makes bars of it;
 - :func:`check_length` refuses a score longer than ``MAX_TOTAL_QN`` quarter notes;
@@ -18,11 +19,13 @@ one note of a million quarter notes, a 44-byte MIDI file with one note of 2**28 
 
 Conventions (project limits, sized from measurements; raise them here if a real score needs it)
 ----------------------------------------------------------------------------------------------
-- music21 10.5 holds about 3.7 KB per note of a parsed MusicXML score and ElementTree about
-  240 bytes per element (*measured* on ``beethoven/opus18no1/movement1.mxl``: 4,720 notes,
-  52,291 elements); ``MAX_NOTES`` = 300,000 keeps music21 near 1 GB, ``MAX_MARKUP`` = 5 million
-  tags keeps the XML tree near 1 GB even for empty elements. The largest scores we know
-  (full orchestral movements) have a small fraction of these counts.
+- music21 10.5 holds about 4.7 KB per note, 7.5 KB per bar (even an empty one: a 25-byte
+  ``<measure/>``) and 4 KB per ``<direction>`` (:data:`KB_PER_ELEMENT`, *measured* with 20,000 of
+  each in a one-part score; 3.7 KB per note on ``beethoven/opus18no1/movement1.mxl``), and
+  ElementTree about 240 bytes per element. A score whose estimate exceeds ``MAX_MODEL_MB`` =
+  2,000 MB is refused, as are more than ``MAX_NOTES`` = 300,000 notes; ``MAX_MARKUP`` = 5 million
+  tags keeps the XML tree near 1 GB even for empty elements. The largest scores we know (full
+  orchestral movements: tens of thousands of notes and bars) have a small fraction of these.
 - ``MAX_TOTAL_QN`` = 100,000 quarter notes is more than eight hours even at quarter = 208, the
   top of a metronome's scale (common knowledge): no performance is that long, so a longer score
   is a damaged file (typically one absurd ``<duration>``).
@@ -37,13 +40,16 @@ from pathlib import Path
 
 from ..errors import InputError
 
-__all__ = ["MAX_XML_BYTES", "MAX_MARKUP", "MAX_NOTES", "MAX_TOTAL_QN", "MAX_MEASURE_NUMBER",
+__all__ = ["MAX_XML_BYTES", "MAX_MARKUP", "MAX_NOTES", "MAX_MODEL_MB", "KB_PER_ELEMENT", "MAX_TOTAL_QN", "MAX_MEASURE_NUMBER",
            "MAX_MIDI_BYTES", "read_bounded", "check_xml_tree", "read_midi", "check_length",
            "check_measure_number"]
 
 MAX_XML_BYTES = 100_000_000
 MAX_MARKUP = 5_000_000
 MAX_NOTES = 300_000
+MAX_MODEL_MB = 2_000.0
+#: music21 memory per element, KB (measured on music21 10.5.1; see the module notes)
+KB_PER_ELEMENT = {"note": 4.7, "measure": 7.5, "direction": 4.0}
 MAX_TOTAL_QN = 100_000.0
 MAX_MEASURE_NUMBER = 1_000_000
 MAX_MIDI_BYTES = 4_000_000
@@ -72,13 +78,19 @@ def read_bounded(fh, *, path: Path, what: str = "score") -> bytes:
 
 
 def check_xml_tree(root, *, path: Path) -> None:
-    """Refuse a checked MusicXML tree with more than ``MAX_NOTES`` notes."""
-    n = 0
-    for _ in root.iter("note"):
-        n += 1
+    """Refuse a checked MusicXML tree with more than ``MAX_NOTES`` notes, or whose music21 objects
+    would take more than ``MAX_MODEL_MB`` (estimated from its notes, bars and directions)."""
+    counts = {tag: sum(1 for _ in root.iter(tag)) for tag in KB_PER_ELEMENT}
+    n = counts["note"]
     if n > MAX_NOTES:
         raise InputError(f"the score holds {n:,} notes, more than the {MAX_NOTES:,} this tool reads "
                          "(a damaged file?); split the score into movements", path=path)
+    mb = sum(KB_PER_ELEMENT[t] * c for t, c in counts.items()) / 1024.0
+    if mb > MAX_MODEL_MB:
+        raise InputError(f"the score would need about {mb:,.0f} MB to read ({counts['note']:,} notes, "
+                         f"{counts['measure']:,} bars, {counts['direction']:,} directions), more than the "
+                         f"{MAX_MODEL_MB:,.0f} MB this tool allows (a damaged file?); split the score",
+                         path=path)
 
 
 def check_length(total_qn: float, *, path: Path, where: str = "") -> None:

@@ -12,20 +12,30 @@ Conventions
 -----------
 - ``score_qn`` counts quarter notes from the start of the score as performed; printed bar
   numbers are kept (``measure``) with the ``pass`` through the bar (1, 2, ...).
-- Notes: one row per sounding note; tied notes are merged *in performed order* (a tie into a
-  first ending and its repeat both resolve); grace notes get ``GRACE_QN`` quarter notes; chords
-  give one row per pitch; unpitched notes are left out.
+- Notes: one row per sounding note at **sounding pitch** (transposing parts moved by their
+  MusicXML ``<transpose>``, :mod:`stimkit.score.transpose`); tied notes are merged *in performed
+  order* (a tie into a first ending and its repeat both resolve); grace notes get ``GRACE_QN``
+  quarter notes; chords give one row per pitch; unpitched notes and chord symbols are left out.
+- Bars: one length for all parts, every part re-synchronised at every barline
+  (:mod:`stimkit.score.barsync`: the notated length when a part fills it, else the longest
+  part); parts with another number of bars are matched by number or running time; each
+  disagreement is a warning in plain words naming bars and parts.
 - Velocity: the dynamic in force in the note's part (:data:`stimkit.score.markings.VELOCITY`,
   default ``mf`` before the first dynamic), ramped through hairpins, raised on accents; a MIDI
   file's own note velocities are kept. MIDI files carry tempo, meter and key markings only.
 - Safety: XML is parsed with :mod:`defusedxml` (DOCTYPE entity declarations are refused) and the
-  checked tree is handed to music21's MusicXML importer, so the file is read once.
+  checked tree is handed to music21's MusicXML importer, so the file is read once. Sizes,
+  element counts and notated length are bounded before the expensive steps
+  (:mod:`stimkit.score.limits`); music21's import warnings reach the model in plain words only
+  (:mod:`stimkit.score.notices`).
 - Known music21 pitfalls handled here (measured on music21 10.5.1): ``<other-dynamics>`` loses its
   text (the tag is renamed before import); ``getContextByClass(TimeSignature)`` returns the
   previous meter on a bar that changes meter (the bar's own elements are read first); wedges are
   bound to the note after their start and end at the last note's *start*, so their written
   positions are read from the XML tree (:func:`xml_wedges`; music21's wedges, with the last
-  note's duration added, are the fallback); ``expandRepeats`` is not used.
+  note's duration added, are the fallback); ``expandRepeats`` is not used; the playback tempo
+  (``<sound tempo>``) of a direction that also prints a ``<metronome>`` is dropped by music21, so
+  it is read from the tree too (a disagreement with the printed mark is reported).
 
 References
 ----------
@@ -329,7 +339,7 @@ def _transposers(score, parts, warnings: list[str]) -> list:
     warnings.extend(warns)
     bases = [str(getattr(p, "id", "")).split("-Staff")[0] for p in parts]
     by_id = any(t.part_id in bases for t in raw)
-    return [transpose.Transposer([(t.bar, t.interval, t.semitones) for t in raw
+    return [transpose.Transposer([(t.bar, t.interval, t.semitones, t.double) for t in raw
                                   if (t.part_id == base if by_id else t.part == k)])
             for k, base in enumerate(bases)]
 
@@ -464,6 +474,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
         for j, (i, delta, m) in enumerate(pm):
             shift = tr.semitones_at(j) if tr else 0
             iv = tr.interval_at(j) if tr else None
+            doubled = tr.double_at(j) if tr else 0
             # barlines and repeats
             for side, bl in (("left", m.leftBarline), ("right", m.rightBarline)):
                 if bl is None:
@@ -528,14 +539,17 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
                             v = getattr(el.volume, "velocity", None)
                             vel = float(v) if v is not None else np.nan
                         if isinstance(el, chord.Chord):
-                            for cn in el.notes:
-                                t = cn.tie if cn.tie is not None else el.tie
-                                note_rows.append((k, i, off, dur, int(cn.pitch.midi) + shift,
-                                                  t.type if t is not None else "", acc, vel))
+                            heads = [(cn.pitch, cn.tie if cn.tie is not None else el.tie) for cn in el.notes]
                         elif isinstance(el, note.Note):
-                            t = el.tie
-                            note_rows.append((k, i, off, dur, int(el.pitch.midi) + shift,
-                                              t.type if t is not None else "", acc, vel))
+                            heads = [(el.pitch, el.tie)]
+                        else:
+                            heads = []
+                        for pitch, t in heads:
+                            row = (k, i, off, dur, int(pitch.midi) + shift, t.type if t is not None else "",
+                                   acc, vel)
+                            note_rows.append(row)
+                            if doubled:  # <transpose><double/>: the same line an octave away
+                                note_rows.append(row[:4] + (row[4] + doubled,) + row[5:])
                         continue
                     if isinstance(el, dynamics.Dynamic):
                         add("dynamic", k, i, off, text=str(el.value))
@@ -658,8 +672,8 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
     for k, tr in enumerate(transposers):
         if tr and names[k] not in sounding:
             sounding[names[k]] = "; ".join(
-                f"{transpose.describe(iv)} from bar {part_measures[k][j][2].measureNumberWithSuffix()}"
-                for j, iv in tr.intervals() if j < len(part_measures[k]))
+                f"{transpose.describe(iv, dbl)} from bar {part_measures[k][j][2].measureNumberWithSuffix()}"
+                for j, iv, dbl in tr.intervals() if j < len(part_measures[k]))
     return PrintedScore(bars=bars, marks=marks, notes=notes, events=events, parts=names,
                         warnings=warnings, transpositions=sounding)
 
@@ -771,7 +785,8 @@ def load_score(path: str | Path, *, expand_repeats: bool = True, repeats="all") 
     ------
     InputError
         Missing or unreadable file, wrong extension, non-XML / malformed XML, entity
-        declarations, no notes, a zero or negative tempo.
+        declarations, no notes, a zero or negative tempo, a file beyond the limits of
+        :mod:`stimkit.score.limits` (size, tags, notes, length, bar numbers).
     """
     import warnings as _warnings
 

@@ -30,7 +30,9 @@ Conventions and measured music21 behaviour (music21 10.5.1)
   the semitones into the tree before music21 reads it.
 - A score marked ``<concert-score/>`` (MusicXML 4.0) is written at concert pitch; only whole-octave
   transpositions (piccolo, double bass, guitar) still apply there, as the specification says.
-- ``<double/>`` (a part doubled an octave below or above) is not sounded: the written line only.
+- ``<double/>`` (MusicXML 4.0: the part is doubled an octave below, or above with
+  ``above="yes"``, as in a shared cello/bass or flute/piccolo staff) adds the doubling as notes
+  of the same part; music21 ignores the element (a TODO in its importer).
 - A transposition of more than ``MAX_SEMITONES`` is taken as damage and ignored (a warning says so).
 
 References
@@ -57,6 +59,7 @@ class XmlTransposition:
     bar: int
     interval: object  # music21.interval.Interval, written -> sounding
     semitones: int
+    double: int = 0  # semitones of a doubling (-12 below, +12 above, 0 none)
 
 
 def _int(text, default=None):
@@ -87,7 +90,7 @@ def xml_transpositions(root, *, concert_score: bool) -> tuple[list[XmlTransposit
                 tr = att.find("transpose")
                 if tr is None:
                     continue
-                chrom = _int(tr.findtext("chromatic"))
+                chrom = _int(tr.findtext("chromatic"), 0 if tr.find("double") is not None else None)
                 octv = _int(tr.findtext("octave-change"), 0)
                 dia = _int(tr.findtext("diatonic"))
                 if chrom is None:
@@ -118,7 +121,10 @@ def xml_transpositions(root, *, concert_score: bool) -> tuple[list[XmlTransposit
                     iv = interval.Interval(semis)
                 if concert_score:
                     iv = interval.Interval(semis) if semis else interval.Interval("P1")
-                out.append(XmlTransposition(part=pk, part_id=pid, bar=bi, interval=iv, semitones=semis))
+                dbl = tr.find("double")
+                double = 0 if dbl is None else (12 if dbl.get("above") == "yes" else -12)
+                out.append(XmlTransposition(part=pk, part_id=pid, bar=bi, interval=iv, semitones=semis,
+                                            double=double))
     return out, warns
 
 
@@ -126,12 +132,14 @@ class Transposer:
     """Interval in force at (bar index, offset in bar) of one part: ``semitones_at`` and
     ``interval_at`` (None where the part is not transposed)."""
 
-    def __init__(self, changes: list[tuple[int, object, int]]):
+    def __init__(self, changes: list[tuple]):
+        """``changes``: (bar index, interval, semitones[, doubling semitones]) per ``<transpose>``."""
         changes = sorted(changes, key=lambda c: c[0])
         self._bars = [c[0] for c in changes]
         self._iv = [c[1] for c in changes]
         self._semi = [c[2] for c in changes]
-        self._any = any(self._semi)
+        self._double = [c[3] if len(c) > 3 else 0 for c in changes]
+        self._any = any(self._semi) or any(self._double)
 
     def __bool__(self) -> bool:
         return self._any
@@ -143,6 +151,11 @@ class Transposer:
         k = self._k(bar)
         return self._semi[k] if k >= 0 else 0
 
+    def double_at(self, bar: int) -> int:
+        """Semitones of the octave doubling in force (0 when the part is not doubled)."""
+        k = self._k(bar)
+        return self._double[k] if k >= 0 else 0
+
     def interval_at(self, bar: int):
         k = self._k(bar)
         return self._iv[k] if k >= 0 and self._semi[k] else None
@@ -152,17 +165,21 @@ class Transposer:
         k = bisect.bisect_left(self._bars, bar)
         return bar > 0 and k < len(self._bars) and self._bars[k] == bar
 
-    def intervals(self) -> list[tuple[int, object]]:
-        """(first bar index, interval) of every change, the untransposed stretches included."""
-        return list(zip(self._bars, self._iv))
+    def intervals(self) -> list[tuple[int, object, int]]:
+        """(first bar index, interval, doubling semitones) of every change, the untransposed
+        stretches included."""
+        return list(zip(self._bars, self._iv, self._double))
 
 
 _SIZES = {1: "unison", 2: "second", 3: "third", 4: "fourth", 5: "fifth", 6: "sixth", 7: "seventh",
           8: "octave"}
 
 
-def describe(iv) -> str:
-    """Plain words for a written -> sounding interval: 'sounds a major second lower than written'."""
+def describe(iv, double: int = 0) -> str:
+    """Plain words for a written -> sounding interval: 'sounds a major second lower than written'
+    (and ', doubled an octave below' for a ``<double/>``)."""
+    if double:
+        return describe(iv) + f", doubled an octave {'below' if double < 0 else 'above'}"
     if iv is None or iv.semitones == 0:
         return "sounds as written"
     direction = "lower" if iv.semitones < 0 else "higher"

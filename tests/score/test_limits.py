@@ -163,3 +163,16 @@ def test_unreadable_bar_is_named_in_plain_words(tmp_path, capsys):
     with pytest.raises(InputError, match="could not be read at bar 2 of Violin II"):
         load_score(p)
     refused_by_cli(p, tmp_path, capsys, "at bar 2 of Violin II")
+
+
+def test_flood_of_empty_bars_refused_before_music21(tmp_path):
+    # 300,000 empty <measure/> elements: 8 MB of XML, 1.4 MB zipped, but music21 would hold
+    # about 2.2 GB for them (7.5 KB per bar, stimkit.score.limits)
+    p = tmp_path / "empty bars.mxl"
+    bars = "".join(f'<measure number="{i}"/>' for i in range(2, 300_002))
+    text = score([("P", [measure(1, A44 + note() * 4) + bars])])
+    with zipfile.ZipFile(p, "w", zipfile.ZIP_DEFLATED) as zf:
+        _container(zf)
+        zf.writestr("score.musicxml", text)
+    with pytest.raises(InputError, match=r"would need about 2,\d{3} MB to read .*300,001 bars"):
+        load_score(p)

@@ -202,3 +202,18 @@ def test_plan_sidecar_says_which_parts_were_moved(band):
     assert tp["Clarinet (Bb, then A)"] == ("sounds a major second lower than written from bar 1; "
                                            "sounds a minor third lower than written from bar 3")
     assert "Flute" not in tp
+
+
+def test_double_adds_the_octave_doubling(tmp_path):
+    # MusicXML 4.0 <double/>: the part sounds as written and an octave below (above="yes": above)
+    below = part_bars("<transpose><diatonic>0</diatonic><chromatic>0</chromatic><double/></transpose>",
+                      step="A", octave=3)
+    above = part_bars(transpose(0, 0, 1)[: -len("</transpose>")] + '<double above="yes"/></transpose>',
+                      step="C", octave=6)
+    m = load_score(write(tmp_path, "dbl.musicxml", score([("Vc e Cb", below), ("Fl e Picc", above)])))
+    assert sorted(pitches(m, "Vc e Cb")) == [45] * 3 + [57] * 3     # A3 and A2
+    assert sorted(pitches(m, "Fl e Picc")) == [96] * 3 + [108] * 3  # C7 (octave up) and C8 above it
+    from stimkit.score.plan import boundaries_sidecar
+
+    tp = boundaries_sidecar(m, name="dbl", start_s=0.0)["TransposingParts"]
+    assert tp["Vc e Cb"] == "sounds as written, doubled an octave below from bar 1"
