@@ -133,3 +133,23 @@ def test_feature_sets_and_unions():
     np.testing.assert_allclose(sets["a+b"], [1.0, 5.0])   # 1.3 merged into 1.0 (< 0.5 s)
     np.testing.assert_allclose(sets["all"], [1.0, 5.0, 9.0])
     np.testing.assert_allclose(merge_close([0, 0.4, 0.8, 2], within_s=0.5), [0, 0.8, 2])
+
+
+def test_music_change_points_detected_from_the_features():
+    # music_source "detect": a loudness column with level steps at known times (and silent frames
+    # flagged) gives change points at those times, within the 2 Hz grid's half-second
+    import pandas as pd
+
+    from stimkit.physio.changepoints import music_trains
+
+    rng = np.random.default_rng(1)
+    t = np.arange(0, 200, 0.1)
+    loud = -30 + np.where((t > 60) & (t < 120), 8.0, 0.0) + np.where(t > 160, -6.0, 0.0) + rng.normal(0, 0.5, t.size)
+    silent = ((t > 95) & (t < 97)).astype(float)
+    loud[silent > 0] = -120.0  # undefined in silence: must be ignored, not seen as a change
+    feats = pd.DataFrame({"short_term_lufs": loud, "silent": silent}, index=pd.Index(t, name="onset"))
+    span = Span(np.array([5.0]), np.array([195.0]))
+    tr = music_trains(pd.DataFrame({"trial_type": [], "onset": []}), feats, span, source="detect")
+    got = tr.loc[tr.feature == "short_term_lufs", "time"].to_numpy()
+    assert got.size == 3
+    np.testing.assert_allclose(got, [60.0, 120.0, 160.0], atol=0.6)
