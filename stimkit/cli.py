@@ -18,7 +18,7 @@ from typing import List, Optional
 import typer
 
 from . import __version__
-from .errors import InputError, StimkitError
+from .errors import InputError, StimkitError, WorkFailed
 from .session import DEFAULT_FEATURE_RATE_HZ
 
 app = typer.Typer(
@@ -373,6 +373,46 @@ def demo(
     con = _console()
     for line in lines:
         con.print(line)
+
+
+@app.command()
+def study(
+    study_file: Optional[Path] = typer.Argument(None, help="Study file (TOML)."),
+    out: Optional[Path] = typer.Option(None, "-o", "--out", help="Output folder (overrides the study file)."),
+    scheduler: Optional[str] = typer.Option(None, "--scheduler",
+                                            help="Run on an existing Dask cluster at ADDRESS (e.g. tcp://10.0.0.5:8786)."),
+    workers: Optional[int] = typer.Option(None, "--workers", min=1,
+                                          help="Local worker processes (default: one per core; 1 runs in this process)."),
+    rerun_all: bool = typer.Option(False, "--rerun-all", help="Recompute every session, even the current ones."),
+    template: bool = typer.Option(False, "--template", help="Print a commented starter study file."),
+    demo: bool = typer.Option(False, "--demo", help="Write the bundled demo study into the output folder and run it."),
+):
+    """Many participants and sessions: every session's hand-off and physiology, group results, a BIDS dataset."""
+    from .study import load_study, run_study, summary_lines, template_text
+
+    if template:
+        typer.echo(template_text(), nl=False)
+        return
+    if demo:
+        if study_file is not None:
+            raise InputError("give either a study file or --demo, not both")
+        from .demo.study import write_demo_study
+
+        target = out or Path("demo-study")
+        study_file = write_demo_study(target / "sourcedata" / "demo-study")
+        out = target
+    if study_file is None:
+        raise InputError("give a study file (stimkit study --template prints a starter file), or --demo")
+    st = load_study(study_file, out_dir=out)
+    command = ["stimkit", "study", st.show(study_file)] + (["--demo"] if demo else [])
+    result = _with_progress(run_study, st, scheduler=scheduler, workers=workers, force=rerun_all, command=command)
+    con = _console()
+    for line in summary_lines(result):
+        con.print(line)
+    if result.failed:
+        names = ", ".join(o.name for o in result.failed)
+        raise WorkFailed(f"{len(result.failed)} of {len(result.sessions)} session(s) failed: {names} "
+                         "(reasons above; the other sessions and the group results are written)")
 
 
 class Stopped(BaseException):

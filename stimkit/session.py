@@ -32,7 +32,7 @@ from .errors import InputError
 
 __all__ = [
     "Session", "PieceSpec", "SyncSpec", "SessionFileError",
-    "load_session", "parse_session_text", "session_from_files", "template_text",
+    "load_session", "parse_session_text", "parse_sync_table", "session_from_files", "template_text",
     "annotate_session", "summary_lines", "key_lines", "DEFAULT_FEATURE_RATE_HZ",
 ]
 
@@ -62,10 +62,13 @@ _MAX_CLOCK_S = 1e6
 class SessionFileError(InputError):
     """Several problems in one session file: the message keeps one line per problem."""
 
+    #: What the file is called in the message.
+    what = "session file"
+
     def __init__(self, path: Path | None, problems: list[tuple[int | None, str]]):
         where = f"{path}: " if path is not None else ""
-        head = (f"{where}{len(problems)} problem{'s' if len(problems) != 1 else ''} in the session "
-                f"file; fix {'them' if len(problems) != 1 else 'it'} and rerun:")
+        head = (f"{where}{len(problems)} problem{'s' if len(problems) != 1 else ''} in the {self.what}; "
+                f"fix {'them' if len(problems) != 1 else 'it'} and rerun:")
         problems = sorted(problems, key=lambda p: (p[0] is None, p[0] or 0))
         body = [f"  line {ln}: {msg}" if ln else f"  {msg}" for ln, msg in problems]
         Exception.__init__(self, "\n".join([head] + body))
@@ -290,76 +293,7 @@ def parse_session_text(text: str, *, base_dir: Path, source: Path | None = None,
         bad("'sync' must be a table: [sync]", key="sync")
         sy = None
     if sy is not None:
-        for k in sorted(set(sy) - _SYNC_KEYS):
-            bad(f"unknown key '{k}' in [sync] (known: {', '.join(sorted(_SYNC_KEYS))})", "sync", 0, k)
-        has_times = "recorder_times_s" in sy
-        has_file = "recorder_file" in sy
-        has_offset = "offset_s" in sy
-        if sum([has_times, has_file, has_offset]) > 1:
-            bad("[sync] give only one of recorder_times_s, recorder_file, offset_s", "sync")
-        elif has_offset:
-            if not _is_number(sy["offset_s"]):
-                bad("[sync] offset_s must be a number of seconds (onset = recording + offset_s)",
-                    "sync", 0, "offset_s")
-            elif abs(float(sy["offset_s"])) > _MAX_CLOCK_S:
-                bad(f"[sync] offset_s = {float(sy['offset_s']):.6g} is beyond +-{_MAX_CLOCK_S:.0e} s; onset "
-                    f"counts seconds from the start of the physiological recording", "sync", 0, "offset_s")
-            else:
-                sync = SyncSpec(mode="offset", offset_s=float(sy["offset_s"]))
-        elif has_times or has_file:
-            sync = SyncSpec(mode="marks")
-            if has_times:
-                v = sy["recorder_times_s"]
-                if not isinstance(v, list) or not v or not all(_is_number(t) for t in v):
-                    bad("[sync] recorder_times_s must be a list of numbers (seconds on the recorder "
-                        "clock, one per mark, in order)", "sync", 0, "recorder_times_s")
-                elif any(b2 <= a2 for a2, b2 in zip(v, v[1:])):
-                    bad("[sync] recorder_times_s must increase", "sync", 0, "recorder_times_s")
-                elif any(abs(float(t)) > _MAX_CLOCK_S for t in v):
-                    bad(f"[sync] recorder_times_s must be seconds from the start of the physiological "
-                        f"recording (within +-{_MAX_CLOCK_S:.0e} s)", "sync", 0, "recorder_times_s")
-                else:
-                    sync.recorder_s = [float(t) for t in v]
-            if has_file:
-                v = sy["recorder_file"]
-                if not isinstance(v, str) or not v.strip():
-                    bad("[sync] recorder_file must be a file name in quotes", "sync", 0, "recorder_file")
-                else:
-                    f = rel(v)
-                    if not f.is_file():
-                        bad(f"[sync] recorder_file '{v}' not found (looked for {f})", "sync", 0, "recorder_file")
-                    sync.recorder_file = f
-                col = sy.get("recorder_column", "onset")
-                if not isinstance(col, str) or not col:
-                    bad("[sync] recorder_column must be a column name in quotes", "sync", 0, "recorder_column")
-                else:
-                    sync.recorder_column = col
-            elif "recorder_column" in sy:
-                bad("[sync] recorder_column needs recorder_file", "sync", 0, "recorder_column")
-            for k, lo, hi in (("frequency_hz", 20.0, 48000.0), ("duration_s", 0.001, 1.0)):
-                if k in sy:
-                    if not _is_number(sy[k]) or not lo <= float(sy[k]) <= hi:
-                        bad(f"[sync] {k} must be a number in [{lo:g}, {hi:g}]", "sync", 0, k)
-                    else:
-                        setattr(sync, k, float(sy[k]))
-                else:
-                    bad(f"[sync] missing {k} (the sync marks' tone {'frequency' if k == 'frequency_hz' else 'length'})",
-                        "sync")
-            if "kind" in sy:
-                if sy["kind"] not in ("burst", "click"):
-                    bad("[sync] kind must be \"burst\" (a steady tone) or \"click\" (a short decaying tone)",
-                        "sync", 0, "kind")
-                else:
-                    sync.kind = sy["kind"]
-            for k in ("search_start_s", "search_end_s"):
-                if k in sy:
-                    if not _is_number(sy[k]) or float(sy[k]) < 0:
-                        bad(f"[sync] {k} must be a number of seconds >= 0", "sync", 0, k)
-                    else:
-                        setattr(sync, k, float(sy[k]))
-        else:
-            bad("[sync] needs recorder_times_s, recorder_file or offset_s (or leave [sync] out: "
-                "onset = recording time)", "sync")
+        sync = parse_sync_table(sy, rel=rel, bad=lambda msg, key=None: bad(msg, "sync", 0, key))
 
     # pieces
     pieces: list[PieceSpec] = []
@@ -498,6 +432,86 @@ def _physio_tables(data: dict, bad, rel) -> tuple[list, dict]:
     if "guard_s" in opts and (not _is_number(opts["guard_s"]) or opts["guard_s"] < 0):
         bad("[relate] guard_s must be a number of seconds >= 0", "relate", 0, "guard_s")
     return out, dict(opts)
+
+
+def parse_sync_table(sy: dict, *, rel, bad, where: str = "[sync]") -> SyncSpec:
+    """Validate one ``[sync]`` table (already read from TOML) into a :class:`SyncSpec`.
+
+    ``rel(text) -> Path`` resolves a file name; ``bad(message, key=None)`` records a problem
+    (``key`` = the offending key, ``None`` = the table itself); ``where`` names the table in the
+    messages. Every problem is reported, none raised; the returned spec is then incomplete.
+    """
+    sync = SyncSpec()
+    for k in sorted(set(sy) - _SYNC_KEYS):
+        bad(f"unknown key '{k}' in {where} (known: {', '.join(sorted(_SYNC_KEYS))})", k)
+    has_times = "recorder_times_s" in sy
+    has_file = "recorder_file" in sy
+    has_offset = "offset_s" in sy
+    if sum([has_times, has_file, has_offset]) > 1:
+        bad(f"{where} give only one of recorder_times_s, recorder_file, offset_s")
+    elif has_offset:
+        if not _is_number(sy["offset_s"]):
+            bad(f"{where} offset_s must be a number of seconds (onset = recording + offset_s)", "offset_s")
+        elif abs(float(sy["offset_s"])) > _MAX_CLOCK_S:
+            bad(f"{where} offset_s = {float(sy['offset_s']):.6g} is beyond +-{_MAX_CLOCK_S:.0e} s; onset "
+                f"counts seconds from the start of the physiological recording", "offset_s")
+        else:
+            sync = SyncSpec(mode="offset", offset_s=float(sy["offset_s"]))
+    elif has_times or has_file:
+        sync = SyncSpec(mode="marks")
+        if has_times:
+            v = sy["recorder_times_s"]
+            if not isinstance(v, list) or not v or not all(_is_number(t) for t in v):
+                bad(f"{where} recorder_times_s must be a list of numbers (seconds on the recorder "
+                    "clock, one per mark, in order)", "recorder_times_s")
+            elif any(b2 <= a2 for a2, b2 in zip(v, v[1:])):
+                bad(f"{where} recorder_times_s must increase", "recorder_times_s")
+            elif any(abs(float(t)) > _MAX_CLOCK_S for t in v):
+                bad(f"{where} recorder_times_s must be seconds from the start of the physiological "
+                    f"recording (within +-{_MAX_CLOCK_S:.0e} s)", "recorder_times_s")
+            else:
+                sync.recorder_s = [float(t) for t in v]
+        if has_file:
+            v = sy["recorder_file"]
+            if not isinstance(v, str) or not v.strip():
+                bad(f"{where} recorder_file must be a file name in quotes", "recorder_file")
+            else:
+                f = rel(v)
+                if not f.is_file():
+                    bad(f"{where} recorder_file '{v}' not found (looked for {f})", "recorder_file")
+                sync.recorder_file = f
+            col = sy.get("recorder_column", "onset")
+            if not isinstance(col, str) or not col:
+                bad(f"{where} recorder_column must be a column name in quotes", "recorder_column")
+            else:
+                sync.recorder_column = col
+        elif "recorder_column" in sy:
+            bad(f"{where} recorder_column needs recorder_file", "recorder_column")
+        for k, lo, hi in (("frequency_hz", 20.0, 48000.0), ("duration_s", 0.001, 1.0)):
+            if k in sy:
+                if not _is_number(sy[k]) or not lo <= float(sy[k]) <= hi:
+                    bad(f"{where} {k} must be a number in [{lo:g}, {hi:g}]", k)
+                else:
+                    setattr(sync, k, float(sy[k]))
+            else:
+                bad(f"{where} missing {k} (the sync marks' tone "
+                    f"{'frequency' if k == 'frequency_hz' else 'length'})")
+        if "kind" in sy:
+            if sy["kind"] not in ("burst", "click"):
+                bad(f"{where} kind must be \"burst\" (a steady tone) or \"click\" (a short decaying tone)",
+                    "kind")
+            else:
+                sync.kind = sy["kind"]
+        for k in ("search_start_s", "search_end_s"):
+            if k in sy:
+                if not _is_number(sy[k]) or float(sy[k]) < 0:
+                    bad(f"{where} {k} must be a number of seconds >= 0", k)
+                else:
+                    setattr(sync, k, float(sy[k]))
+    else:
+        bad(f"{where} needs recorder_times_s, recorder_file or offset_s (or leave {where} out: "
+            "onset = recording time)")
+    return sync
 
 
 def _stem(p: Path) -> str:

@@ -78,6 +78,9 @@ class HandoffData:
     warnings: list[str]
     timings: dict
     settings: dict = field(default_factory=dict)  # extra settings of the chain
+    base_dir: Path | None = None        # paths in the outputs are relative to it (default: the
+                                        # session file's folder, else the current folder)
+    keep_timings: bool = True           # step timings in provenance.json (the one varying part)
     physio: list = field(default_factory=list)         # stimkit.physio.RelateResult per [[physio]]
     physio_inputs: dict = field(default_factory=dict)  # participant label -> physiological file
 
@@ -245,7 +248,7 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
     except Exception as exc:  # summary numbers are a convenience; the report says why they are missing
         warnings.append(f"piece summary skipped: {type(exc).__name__}: {exc}")
         piece_table = report_pieces
-    base_dir = Path(session.source).parent if session.source is not None else Path.cwd()
+    base_dir = d.base_dir or (Path(session.source).parent if session.source is not None else Path.cwd())
 
     def portable(path):
         return None if path is None else provenance.portable_path(path, base_dir)
@@ -331,5 +334,6 @@ def write_handoff(d: HandoffData, *, command: list[str] | None = None, lap=None)
                 list(command) if command else ["stimkit", "annotate", str(session.source or session.recording)],
                 base_dir=base_dir, out_dir=out_dir),
             inputs=inputs, settings=settings, warnings=warnings, timings=timings, base_dir=base_dir)
-        written.append(provenance.write_provenance(outs, prov, name=layout.provenance, with_timings=True))
+        written.append(provenance.write_provenance(outs, prov, name=layout.provenance,
+                                                   with_timings=d.keep_timings))
     return [Path(w) for w in written]

@@ -13,6 +13,12 @@ What it does, in order
    features, and hands everything to :func:`.handoff.write_handoff`, which writes all files
    or none.
 
+Steps 1, 3 and 4 depend only on the recording and the scores: :func:`analyse_recording` does
+them alone, so sessions that share one recording (several participants hearing one
+performance, each on their own recorder clock) compute them once and pass the result to
+:func:`annotate` (``analysis=``), which then runs steps 2 and 5 only. The clock is fitted first
+either way, so a sync problem is reported before the long steps.
+
 Conventions
 -----------
 Kinds of time as in DESIGN.md. Step timings go to ``provenance.json`` (the only part of the
@@ -36,7 +42,8 @@ from .clock import ClockFit, detect_sync_marks, fit_clock, identity_clock, offse
     read_recorder_times
 from .handoff import ALIGNED_TEMPO, HandoffData, check_outputs_against_inputs, output_base, write_handoff
 
-__all__ = ["AnnotateResult", "annotate", "summary_lines", "output_base"]
+__all__ = ["AnnotateResult", "RecordingAnalysis", "analyse_recording", "annotate", "summary_lines",
+           "output_base"]
 
 #: Seconds of recording kept on each side of a located piece for its alignment.
 SPAN_PAD_S = 8.0
@@ -110,6 +117,22 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
                         f"recorder's spacing and were ignored")
     fit = fit_clock(got, recorder)
     return fit, got, warnings + list(fit.warnings)
+
+
+def _stopwatch(timings: dict, progress=None):
+    """``lap(name)``: add the seconds since the previous lap to ``timings[name]`` (``None``: skip)
+    and tell ``progress(name, 1.0)`` that the stage finished (a piped CLI prints one line each)."""
+    last = [time.perf_counter()]
+
+    def lap(name):
+        now = time.perf_counter()
+        if name is not None:
+            timings[name] = timings.get(name, 0.0) + now - last[0]
+            if progress is not None:
+                progress(name, 1.0)
+        last[0] = now
+
+    return lap
 
 
 def _timemap_call(tm):
@@ -188,55 +211,52 @@ def _relate_physio(session, events, physio_in, *, progress=None) -> list:
             for (spec, label, series), kid in zip(physio_in, kids)]
 
 
-def annotate(session, *, progress=None, command: list[str] | None = None) -> AnnotateResult:
-    """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
+@dataclass
+class RecordingAnalysis:
+    """What the chain learns from the recording and the scores alone, before any clock: the
+    parsed scores, where each piece is, its alignment, the features and their change points (all
+    in ``recording`` seconds). Several sessions that share one recording (participants who heard
+    the same performance) can share one analysis (:func:`analyse_recording`)."""
+
+    duration_s: float
+    scores: list
+    spans: list
+    aligned: list
+    features: object                 # stimkit.audio.pipeline.FeatureResult
+    changes: pd.DataFrame | None
+    score_warnings: list[str] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+    timings_s: dict = field(default_factory=dict)
+
+
+def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
+    """Steps 1, 3 and 4 of the chain (see module notes): scores, pieces, alignment, features
+    and change points of ``session.recording``; the session's sync is not used.
 
     Raises
     ------
     InputError
         A score or the recording cannot be read (exit 2).
     WorkFailed
-        A sync mark or a piece cannot be found, or an alignment is refused (exit 1).
+        A piece cannot be found or an alignment is refused (exit 1).
     """
     from ..audio.read import audio_info
-    from ..export.tables import check_output_dir
     from ..score.parse import load_score
 
     timings: dict[str, float] = {}
-    warnings: list[str] = []
-    clock0 = time.perf_counter()
+    lap = _stopwatch(timings, progress)
 
-    def lap(name):
-        nonlocal clock0
-        now = time.perf_counter()
-        timings[name] = timings.get(name, 0.0) + now - clock0
-        clock0 = now
-        if progress is not None:  # a stage finished: lets a piped CLI print one line per stage
-            progress(name, 1.0)
-
-    check_outputs_against_inputs(session)  # never write over an input (before any work)
     info = audio_info(session.recording)
     duration_s = info.duration_s
-    scores = []
+    scores, score_warnings, warnings = [], [], []
     for p in session.pieces:
         sc = load_score(p.score, expand_repeats=session.expand_repeats)
         scores.append(sc)
-        warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
-    if session.sync.mode == "marks" and session.sync.recorder_s is None:
-        read_recorder_times(session.sync.recorder_file, column=session.sync.recorder_column)
-    # the inputs are checked: now the output folder (checked, not yet created: the writing
-    # creates it, so a run refused before then leaves no empty folder behind)
-    out_dir = check_output_dir(session.out_dir, create=False)
+        score_warnings.extend(f"{p.name}: {w}" for w in sc.warnings)
     lap("scores")
-    physio_in = _read_physio(session)  # bad physiological files stop the run before the work
-    lap("physio")
-
-    clock, mark_times, w = _clock(session, duration_s=duration_s, progress=progress)
-    warnings.extend(w)
-    lap("sync")
 
     # pieces
-    from .segment import MAX_RATIO, find_pieces
+    from .segment import find_pieces
 
     names = [p.name for p in session.pieces]
     spans = find_pieces(scores, names, session.recording, rough_starts=[p.start_s for p in session.pieces],
@@ -263,18 +283,65 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
     from ..audio.pipeline import compute_features
 
     feats = compute_features(session.recording, rate_hz=session.rate_hz, progress=progress)
-    frame = feats.frame
     lap("features")
 
     from ..stats.changes import change_points
 
     piece_spans = pd.DataFrame({"start": [s.start_s for s in spans], "end": [s.end_s for s in spans]})
     try:
-        changes = change_points(frame.select_dtypes("number"), spans=piece_spans)
+        changes = change_points(feats.frame.select_dtypes("number"), spans=piece_spans)
     except WorkFailed as exc:
         warnings.append(f"feature change points skipped: {exc}")
         changes = None
     lap("change points")
+    return RecordingAnalysis(duration_s=duration_s, scores=scores, spans=spans, aligned=aligned,
+                             features=feats, changes=changes, score_warnings=score_warnings,
+                             warnings=warnings, timings_s=timings)
+
+
+def annotate(session, *, progress=None, command: list[str] | None = None,
+             analysis: RecordingAnalysis | None = None, paths_relative_to=None,
+             keep_timings: bool = True) -> AnnotateResult:
+    """Run the main job on a validated :class:`~stimkit.session.Session` (see module notes).
+
+    ``analysis``, when given, is :func:`analyse_recording`'s result for this session's recording
+    and pieces (computed once for several sessions that share the recording); the chain then
+    only fits the clock and writes the hand-off. ``paths_relative_to`` is the folder the paths in
+    ``provenance.json`` and the report are written relative to (default: the session file's
+    folder, else the current folder); ``keep_timings=False``
+    leaves the step timings out of ``provenance.json``, so reruns give identical bytes.
+
+    Raises
+    ------
+    InputError
+        A score or the recording cannot be read (exit 2).
+    WorkFailed
+        A sync mark or a piece cannot be found, or an alignment is refused (exit 1).
+    """
+    from ..audio.read import audio_info
+    from ..export.tables import check_output_dir
+    from .segment import MAX_RATIO
+
+    check_outputs_against_inputs(session)  # never write over an input (before any work)
+    # the output folder is checked, not yet created: the writing creates it, so a run refused
+    # before then leaves no empty folder behind
+    out_dir = check_output_dir(session.out_dir, create=False)
+    timings: dict[str, float] = {}
+    lap = _stopwatch(timings, progress)
+
+    # the clock first: a sync problem is found before the long steps
+    duration_s = audio_info(session.recording).duration_s if analysis is None else analysis.duration_s
+    clock, mark_times, sync_warnings = _clock(session, duration_s=duration_s, progress=progress)
+    lap("sync")
+    physio_in = _read_physio(session)  # bad physiological files stop the run before the work
+    lap("physio")
+    if analysis is None:
+        analysis = analyse_recording(session, progress=progress)
+        lap(None)  # restart the watch: the analysis timed its own steps
+    timings.update(analysis.timings_s)
+    warnings: list[str] = list(analysis.score_warnings) + sync_warnings + list(analysis.warnings)
+    spans, aligned, feats, changes = analysis.spans, analysis.aligned, analysis.features, analysis.changes
+    frame = feats.frame
 
     # events
     tables = []
@@ -328,6 +395,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None) -> Ann
         spans=spans, low_confidence=low_conf, changes=changes, warnings=warnings, timings=timings,
         settings={"span_pad_s": SPAN_PAD_S, "piece_search_max_ratio": MAX_RATIO,
                   "low_confidence_below": LOW_CONFIDENCE},
+        base_dir=paths_relative_to, keep_timings=keep_timings,
         physio=physio_results, physio_inputs={label: spec.file for spec, label, _ in physio_in}),
         command=command, lap=lap)
     base = output_base(session)
