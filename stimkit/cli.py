@@ -196,13 +196,16 @@ def align(
     force: bool = typer.Option(False, "--force", help="Write the alignment even when it looks like a wrong piece."),
     repeats: str = typer.Option("auto", "--repeats", metavar="auto|all|none",
                                 help="Which repeats were played: decide from the recording (auto), all as written, or none."),
+    strict: bool = typer.Option(False, "--strict", help="Fail (exit 1, nothing written) when any part of the alignment is unreliable."),
 ):
     """Align the score to the recording: the recording time of every note-onset position."""
-    from .align.run import align_files, summary_lines, write_alignment
+    from .align.run import align_files, check_strict, summary_lines, write_alignment
     from .export.tables import protect_inputs
 
     result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
                             repeats=_repeats_option(repeats))
+    if strict:
+        check_strict(result)
     with protect_inputs([score, audio]):
         written = write_alignment(result, out_dir=out)
     con = _console()
@@ -230,6 +233,7 @@ def annotate(
     template: bool = typer.Option(False, "--template", help="Print a commented starter session file."),
     repeats: Optional[str] = typer.Option(None, "--repeats", metavar="auto|all|none",
                                           help="Which repeats were played (overrides the session file; default auto)."),
+    strict: bool = typer.Option(False, "--strict", help="Fail (exit 1, nothing written) when a piece's alignment is unreliable."),
 ):
     """The main job: events on the recorder clock, continuous features, beat grid, report."""
     from .session import annotate_session, load_session, session_from_files, summary_lines, template_text
@@ -262,6 +266,9 @@ def annotate(
         for p in sess.pieces:
             p.repeats = None
         command += ["--repeats", sess.repeats]
+    if strict:
+        sess.strict = True
+        command += ["--strict"]
     result = _with_progress(annotate_session, sess, command=command)
     con = _console()
     for line in summary_lines(result):

@@ -118,6 +118,7 @@ class Session:
     check_audio: bool = True   # write check-by-ear.flac beside the report
     source: Path | None = None  # the session file, when there is one
     repeats: str = "auto"      # "auto" (decide from the recording), "all", "none"
+    strict: bool = False       # fail when an alignment is doubtful (unreliable spans, doubtful repeats)
     physio: list = field(default_factory=list)   # stimkit.physio.inputs.PhysioSpec, one per [[physio]]
     relate: dict = field(default_factory=dict)   # [relate] options (seed, surrogates, ...)
 

@@ -59,6 +59,7 @@ __all__ = [
     "path_costs",
     "multiscale_dtw",
     "key_shift_costs",
+    "band_margins",
 ]
 
 
@@ -87,8 +88,12 @@ def _cell_cost(cs, cr, os_, or_, w_on, i, j):
 
 
 @njit(cache=True, fastmath=True)
-def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, open_end):
-    """Accumulate over the band; return (steps uint8 per band cell, end column, total cost)."""
+def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, open_end, acc):
+    """Accumulate over the band; return (steps uint8 per band cell, end column, total cost).
+
+    ``acc``: float32 array of one value per band cell to receive the accumulated costs, or an
+    empty array (not stored)."""
+    keep = acc.shape[0] > 0
     n = lo.shape[0]
     total = offs[n]
     steps = np.full(total, 255, dtype=np.uint8)  # 0 diag, 1 score step, 2 rec step, 3 start
@@ -114,6 +119,8 @@ def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, o
                 code = 2
         cur[k] = best
         steps[offs[0] + k] = code
+        if keep:
+            acc[offs[0] + k] = best
     rowc = np.empty(width)
     d_on = os_.shape[1] if w_on > 0.0 else 0
     for i in range(1, n):
@@ -158,6 +165,8 @@ def _dtw_band(cs, cr, os_, or_, w_on, lo, hi, offs, w_d, w_s, w_r, open_start, o
             cur[k] = best
             left = best
             steps[base + k] = code
+            if keep:
+                acc[base + k] = best
         for k in range(m, width):
             cur[k] = inf
     last = n - 1
@@ -249,13 +258,87 @@ def banded_dtw(
     offs = np.zeros(lo.size + 1, dtype=np.int64)
     np.cumsum(hi - lo + 1, out=offs[1:])
     steps, end, cost = _dtw_band(cs, cr, os_, or_, float(onset_weight), lo, hi, offs,
-                                 weights.diag, weights.score, weights.rec, open_start, open_end)
+                                 weights.diag, weights.score, weights.rec, open_start, open_end,
+                                 np.zeros(0, dtype=np.float32))
     if end < 0 or not np.isfinite(cost):
         raise ValueError("no warping path fits the band")
     pi, pj = _backtrack(steps, lo, hi, offs, end)
     if pi.size == 0 or pi[0] != 0:
         raise ValueError("no warping path fits the band")
     return np.stack([pi, pj], axis=1), float(cost)
+
+
+@njit(cache=True)
+def _row_margins(tot, lo, hi, offs, dists):
+    """Per row: the smallest total and, per distance d, the smallest total at least d columns away
+    from the column of the smallest (inf when the band holds no such cell)."""
+    n = lo.shape[0]
+    out = np.full((n, dists.shape[0] + 1), np.inf)
+    for i in range(n):
+        b = offs[i]
+        m = hi[i] - lo[i] + 1
+        best = np.inf
+        kb = 0
+        for k in range(m):
+            v = tot[b + k]
+            if v < best:
+                best = v
+                kb = k
+        out[i, 0] = best
+        for q in range(dists.shape[0]):
+            d = dists[q]
+            v2 = np.inf
+            for k in range(m):
+                if abs(k - kb) >= d and tot[b + k] < v2:
+                    v2 = tot[b + k]
+            out[i, q + 1] = v2 - best
+    return out
+
+
+def band_margins(chroma_s, chroma_r, lo, hi, *, onset_s=None, onset_r=None, onset_weight: float = 0.0,
+                 weights: StepWeights = StepWeights(), distances=(5,)):
+    """How much dearer the best path through each row becomes when it is moved by ``distances``.
+
+    Forward accumulated costs ``F`` and backward ones ``B`` (the same recursion run on both
+    sequences reversed) over the band give ``T = F + B``, the cost of the best path through each
+    cell (up to the weight of the cell itself, counted on both sides). Per row ``i``:
+    ``margins[i, q]`` = min over cells at least ``distances[q]`` columns from the row's best cell
+    of ``T`` minus the row's best ``T`` (``inf`` where the band holds no such cell). A small
+    margin means another placement of that score frame, ``distances[q]`` frames away, costs
+    nearly as little: the alignment is unsure there (the min-sum analogue of a posterior).
+    Returns an ``(N, len(distances))`` array.
+    """
+    cs = np.ascontiguousarray(chroma_s, dtype=np.float64)
+    cr = np.ascontiguousarray(chroma_r, dtype=np.float64)
+    os_ = _as2d(onset_s, cs.shape[0])
+    or_ = _as2d(onset_r, cr.shape[0])
+    if os_.shape[1] != or_.shape[1]:
+        os_, or_ = os_[:, :0], or_[:, :0]
+    lo = np.ascontiguousarray(lo, dtype=np.int64)
+    hi = np.ascontiguousarray(hi, dtype=np.int64)
+    n, m = cs.shape[0], cr.shape[0]
+    offs = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(hi - lo + 1, out=offs[1:])
+    fwd = np.empty(int(offs[-1]), dtype=np.float32)
+    _dtw_band(cs, cr, os_, or_, float(onset_weight), lo, hi, offs, weights.diag, weights.score,
+              weights.rec, True, True, fwd)
+    # reversed problem: row n-1-i, column m-1-j; its band rows are the reversed rows' bands
+    rlo = (m - 1 - hi[::-1]).copy()
+    rhi = (m - 1 - lo[::-1]).copy()
+    roffs = np.zeros(n + 1, dtype=np.int64)
+    np.cumsum(rhi - rlo + 1, out=roffs[1:])
+    bwd_r = np.empty(int(roffs[-1]), dtype=np.float32)
+    _dtw_band(cs[::-1].copy(), cr[::-1].copy(), os_[::-1].copy(), or_[::-1].copy(), float(onset_weight),
+              rlo, rhi, roffs, weights.diag, weights.score, weights.rec, True, True, bwd_r)
+    # cell (i, j) of the forward band is cell (n-1-i, m-1-j) of the reversed band; within a row
+    # the reversed band runs backwards, so row i of the forward band is row n-1-i reversed
+    tot = np.empty_like(fwd)
+    for i in range(n):
+        a, b = offs[i], offs[i + 1]
+        ri = n - 1 - i
+        tot[a:b] = fwd[a:b] + bwd_r[roffs[ri]:roffs[ri + 1]][::-1]
+    res = _row_margins(tot.astype(np.float64), lo, hi, offs, np.asarray(distances, dtype=np.int64))
+    return res[:, 1:], res[:, 0]
 
 
 def path_costs(path, chroma_s, chroma_r, *, onset_s=None, onset_r=None, onset_weight: float = 0.0):
@@ -388,7 +471,7 @@ def multiscale_dtw(
     Returns
     -------
     dict with ``path`` (L, 2) fine cells, ``levels`` (per level: factor, rows, cols, band cells,
-    path), ``coarse_cost_ratio`` (mean path cost ÷ mean matrix cost at the coarsest level,
+    path, band ``lo``/``hi``), ``coarse_cost_ratio`` (mean path cost ÷ mean matrix cost at the coarsest level,
     Raffel & Ellis 2016) and ``band_cells`` (largest band stored).
     """
     levels = []
@@ -422,7 +505,7 @@ def multiscale_dtw(
             coarse_ratio = float(pc.mean() / max(mean_matrix, 1e-9))
         levels.append({"factor": int(f), "rows": int(nr), "cols": int(nc),
                        "band_cells": int((hi - lo + 1).sum()), "path_length": int(len(path)),
-                       "path": path})
+                       "path": path, "lo": lo, "hi": hi})
         prev_factor = f
     return {
         "path": path,

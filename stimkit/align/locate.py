@@ -1,11 +1,12 @@
 """Find where a piece sounds inside a long recording (a concert, a session), coarsely.
 
-:func:`locate_piece` aligns the score's chroma template to the recording's chroma at about
-2 Hz by subsequence DTW (open start and end in the recording, Müller 2015, ch. 7.2) with the
-banded kernel of :mod:`stimkit.align.dtw` over the whole matrix (one byte per cell; the rate is
-lowered for very long inputs so that the matrix stays under :data:`MAX_CELLS`). It returns the
-recording times where ``score_qn = 0`` and the end of the score fall, and the Raffel--Ellis cost
-ratio of the match (low is good; a different piece gives about 0.7 or more).
+:func:`locate_piece` runs the structure fit of :mod:`stimkit.align.structure` over the recording
+(or a search span of it): jump-aware subsequence DTW of the score's chroma template against the
+recording's chroma at a few frames per second, over a grid of global tempo scales, with open start
+and end in the recording (Müller 2015, ch. 7.2; Fremerey, Müller & Clausen 2010). So a piece is
+found also when it is played far from its notated tempo or with repeats left out. It returns the
+recording times of the first and last note of the match and its Raffel--Ellis cost ratio (low is
+good; a different piece gives about 0.7 or more).
 
 Typical use (one piece of a concert)::
 
@@ -26,6 +27,8 @@ References
 .. [1] M. Müller. *Fundamentals of Music Processing*, Springer 2015, ch. 7.2 (subsequence DTW).
 .. [2] C. Raffel, D. P. W. Ellis. "Optimizing DTW-based audio-to-MIDI alignment and matching",
    ICASSP 2016.
+.. [3] C. Fremerey, M. Müller, M. Clausen. "Handling repeats and jumps in score-performance
+   synchronization", ISMIR 2010.
 """
 
 from __future__ import annotations
@@ -34,18 +37,13 @@ import numpy as np
 
 from ..errors import InputError
 from .chroma import AlignFeatures, audio_features
-from .dtw import StepWeights, _unit, banded_dtw, downsample, full_band, path_costs
-from .template import score_features
-from .warp import monotone_knots
+from .structure import fit_structure
 
-__all__ = ["locate_piece", "LOCATE_FACTOR", "MAX_CELLS"]
-
-LOCATE_FACTOR = 25            # 49.2 Hz / 25 = 1.97 Hz
-MAX_CELLS = 50_000_000        # one byte each
+__all__ = ["locate_piece"]
 
 
 def locate_piece(score, audio_path=None, *, search_span_s: tuple[float, float] | None = None,
-                 features: AlignFeatures | None = None, progress=None):
+                 features: AlignFeatures | None = None, repeats="auto", progress=None):
     """Coarse position of ``score`` in a recording: ``(start_s, end_s, cost_ratio)``.
 
     Parameters
@@ -57,6 +55,8 @@ def locate_piece(score, audio_path=None, *, search_span_s: tuple[float, float] |
         Search only there (recording seconds).
     features : AlignFeatures, optional
         Precomputed :func:`~stimkit.align.chroma.audio_features` of the whole recording.
+    repeats : str
+        ``"auto"`` lets the match leave repeats out; anything else matches ``score`` as it is.
 
     Raises
     ------
@@ -77,20 +77,5 @@ def locate_piece(score, audio_path=None, *, search_span_s: tuple[float, float] |
         j1 = min(int(np.ceil((search_span_s[1] - A.start_s) * rate)) + 1, A.n_frames)
     if (j1 - j0) / rate < 1.0:
         raise InputError("search span is shorter than 1 s; widen it")
-    S = score_features(score, rate_hz=rate)
-    f = max(LOCATE_FACTOR, int(np.ceil(np.sqrt(S.n_frames * (j1 - j0) / MAX_CELLS))))
-    cs = _unit(downsample(S.chroma, f))
-    cr = _unit(downsample(A.chroma[j0:j1], f))
-    lo, hi = full_band(len(cs), len(cr))
-    path, _ = banded_dtw(cs, cr, lo, hi, weights=StepWeights())
-    cost = float(path_costs(path, cs, cr).mean() / max(1.0 - float(cs.mean(0) @ cr.mean(0)), 1e-9))
-    x, y = monotone_knots(path)
-    # coarse cell centres, in nominal seconds (score side) and recording seconds
-    nom = S.start_s + (x * f + (f - 1) / 2.0) / rate
-    rec = A.start_s + (j0 + y * f + (f - 1) / 2.0) / rate
-    if len(nom) < 2:
-        nom = np.array([nom[0], nom[0] + f / rate])
-        rec = np.array([rec[0], rec[0] + f / rate])
-    start = float(np.interp(0.0, nom, rec))
-    end = float(np.interp(float(score.nominal_duration_s), nom, rec))
-    return start, end, cost
+    st = fit_structure(score, A, j0=j0, j1=j1, decide_repeats=repeats == "auto")
+    return float(st.start_s), float(st.end_s), float(st.cost_ratio)

@@ -80,7 +80,9 @@ import pandas as pd
 from ..errors import InputError, WorkFailed
 from ..timemap import TimeMap
 from . import chroma as _chroma
-from .dtw import StepWeights, key_shift_costs, multiscale_dtw, path_costs
+from .dtw import StepWeights, _unit, band_margins, downsample, key_shift_costs, multiscale_dtw, path_costs
+from .confidence import bridge_unsure, local_confidence, neighbourhood_min, unreliable_spans
+from .refine import refine
 from .structure import DOUBTFUL_MARGIN, fit_structure
 from .template import HEAD_S, score_features
 from .warp import (
@@ -99,6 +101,8 @@ from .warp import (
 __all__ = [
     "AlignResult",
     "align_score",
+    "doubts",
+    "check_strict",
     "align_files",
     "parse_anchor",
     "confidence_at",
@@ -139,8 +143,14 @@ MISMATCH_RATIO = 0.8
 #: the first sample -14 to -1 dB, a -60 dBFS noise floor before the music below -37 dB). Such a
 #: recording gets a virtual second of silence before it.
 SOUNDING_START_DB = -20.0
-FACTORS = (50, 5, 1)
-RADII = (0, 10, 25)
+#: The first alignment is redone once when the tempo it finds differs from the structure fit's by
+#: more than this factor.
+RESCALE_ABOVE = 1.1
+#: Levels of the multiscale DTW (decimation of the 49.2 Hz frames) and their band radii: the
+#: first level covers the whole matrix at about 5 Hz when it has at most FULL_MAX_CELLS cells
+#: (a 1 Hz first level misplaced held chords by seconds), else at 2 or 1 Hz with a middle level.
+LEVELS = (((10, 1), (0, 25)), ((25, 5, 1), (0, 10, 25)), ((50, 5, 1), (0, 10, 25)))
+FULL_MAX_CELLS = 40_000_000
 ONSET_WEIGHT = 1.0
 FLAG_MIN_S = 2.0
 TEMPO_WINDOW_BEATS = 6
@@ -168,6 +178,7 @@ class AlignResult:
     local: pd.DataFrame | None = None   # score_qn, confidence along the path
     audio_path: Path | None = None
     repeats: list = field(default_factory=list)   # one dict per repeat option (see _repeat_rows)
+    unreliable: list = field(default_factory=list)  # spans of low local confidence (confidence.unreliable_spans)
 
 
 def parse_anchor(text: str, score=None):
@@ -268,6 +279,64 @@ def _repeat_rows(score, st, *, decided_by: str) -> list[dict]:
             "score_qn_start": q0, "score_qn_end": q1,
         })
     return rows
+
+
+#: Local confidence inside a flagged region (insertion, cut, mismatch) is at most this.
+FLAGGED_CONFIDENCE = 0.2
+
+
+def _span_text(sp: dict) -> str:
+    bars = (f"bar {sp['first_measure']}" if sp["first_measure"] == sp["last_measure"]
+            else f"bars {sp['first_measure']}–{sp['last_measure']}")
+    return f"{bars} ({sp['start']:.1f}–{sp['end']:.1f} s)"
+
+
+#: Distances (s) at which the fine-level margins are measured, and the coarse-level one.
+MARGIN_DISTANCES_S = (0.1, 0.3)
+COARSE_MARGIN_S = 2.0
+
+
+def _margin_features(*, fine_S, fine_lo, fine_hi, fine_rows, coarse_res, coarse_S, coarse_rows, A, ref: float,
+                     weights) -> dict:
+    """Margins of the best path (see :func:`stimkit.align.dtw.band_margins`), in units of the mean
+    local cost ``ref`` (about one mismatching frame each): at template rows ``fine_rows`` of the
+    final pass, moved by 0.1 s and 0.3 s within its band; at rows ``coarse_rows`` (finest-rate
+    rows of the first pass) moved by two frames (about 2 s) at the first pass's coarsest level."""
+    rate = A.rate_hz
+    d = tuple(max(int(round(x * rate)), 1) for x in MARGIN_DISTANCES_S)
+    mf, _ = band_margins(fine_S.chroma, A.chroma, fine_lo, fine_hi, onset_s=fine_S.onset, onset_r=A.onset,
+                         onset_weight=ONSET_WEIGHT, weights=weights, distances=d)
+    top = coarse_res["levels"][0]
+    f0 = top["factor"]
+    if f0 > 1:
+        mc, _ = band_margins(_unit(downsample(coarse_S.chroma, f0)), _unit(downsample(A.chroma, f0)), top["lo"],
+                             top["hi"], weights=weights,
+                             distances=(max(int(round(COARSE_MARGIN_S * rate / f0)), 1),))
+    else:
+        mc = np.full((coarse_S.n_frames, 1), np.inf)
+    rows = np.clip(np.asarray(fine_rows, dtype=np.int64), 0, fine_S.n_frames - 1)
+    crow = np.clip(np.asarray(coarse_rows, dtype=np.int64) // f0, 0, len(mc) - 1)
+    scale = max(ref, 1e-9)
+    return {"margin_100ms": mf[rows, 0] / scale, "margin_300ms": mf[rows, 1] / scale,
+            "margin_coarse": mc[crow, 0] * f0 / scale}
+
+
+def _tempo_deviation(tm, qn, nominal, *, window_qn: float = 4.0, context_qn: float = 32.0):
+    """|log| of the performed / notated tempo ratio over ``window_qn`` around each position,
+    relative to the median of that ratio over ``context_qn``: a path that rushes or stalls where
+    the music does not."""
+    q = np.asarray(qn, dtype=np.float64)
+    if q.size == 0:
+        return np.zeros(0)
+    h = window_qn / 2
+    rec = np.asarray(tm(q + h)) - np.asarray(tm(q - h))
+    nom = np.asarray(nominal(q + h)) - np.asarray(nominal(q - h))
+    r = np.log(np.maximum(rec, 1e-6) / np.maximum(nom, 1e-6))
+    from scipy.ndimage import median_filter
+
+    step = max(float(np.median(np.diff(q))) if q.size > 1 else 1.0, 1e-3)
+    size = max(int(round(context_qn / step)) | 1, 1)
+    return np.abs(r - median_filter(r, size=size, mode="nearest"))
 
 
 def _beat_qn_of(score, qn):
@@ -399,10 +468,7 @@ def align_score(
                             f"choice fits almost as well, margin {100 * r['margin']:.1f} %); check by ear or "
                             "set repeats for this piece")
     pts = _anchor_points(score, anchors)
-    scale = float(st.time_scale)
-    tmk = TimeMap(score.tempo_map.x, scale * score.tempo_map.y, src="score_qn", dst="nominal")
-    S = score_features(score, rate_hz=A.rate_hz, time_scale=scale)
-    nominal = float(score.nominal_duration_s) * scale
+    nominal = float(score.nominal_duration_s) * float(st.time_scale)
     if span_len > LONG_FACTOR * max(nominal, 1e-9):
         warnings.append(f"the recording{' span' if span_s else ''} ({span_len:.1f} s) is "
                         f"{span_len / nominal:.1f} times the score's nominal length ({nominal:.1f} s); "
@@ -411,24 +477,46 @@ def align_score(
         warnings.append(f"the recording ({span_len:.1f} s) is less than a third of the score's nominal "
                         f"length ({nominal:.1f} s); the alignment is likely to be poor")
     report("alignment", 0.0)
-
     rate = A.rate_hz
-    cells = []
     for qn, sec, label in pts:
         if not (span_start <= sec <= A.meta["end_s"]):
             raise InputError(f"anchor {label!r}: {sec:g} s is outside the recording"
                              f"{' span' if span_s else ''} ({span_start:.2f}-{A.meta['end_s']:.2f} s)",
                              path=audio_path)
-        i = int(round((float(tmk(qn)) - S.start_s) * rate))
-        j = int(round((sec - A.start_s) * rate))
-        cells.append((min(max(i, 0), S.n_frames - 1), min(max(j, 0), A.n_frames - 1)))
     weights = StepWeights()
-    try:
-        res = multiscale_dtw(S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset,
-                             onset_weight=ONSET_WEIGHT, factors=FACTORS, radii=RADII,
-                             anchors=cells, weights=weights)
-    except ValueError as exc:
-        raise WorkFailed(f"alignment found no path ({exc}); check the anchors", path=audio_path) from None
+
+    def first_pass(scale):
+        tmk = TimeMap(score.tempo_map.x, scale * score.tempo_map.y, src="score_qn", dst="nominal")
+        S = score_features(score, rate_hz=rate, time_scale=scale)
+        cells = []
+        for qn, sec, _ in pts:
+            i = int(round((float(tmk(qn)) - S.start_s) * rate))
+            j = int(round((sec - A.start_s) * rate))
+            cells.append((min(max(i, 0), S.n_frames - 1), min(max(j, 0), A.n_frames - 1)))
+        factors, radii = next(((f, r) for f, r in LEVELS
+                               if (S.n_frames / f[0]) * (A.n_frames / f[0]) <= FULL_MAX_CELLS), LEVELS[-1])
+        try:
+            res = multiscale_dtw(S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset,
+                                 onset_weight=ONSET_WEIGHT, factors=factors, radii=radii,
+                                 anchors=cells, weights=weights)
+        except ValueError as exc:
+            raise WorkFailed(f"alignment found no path ({exc}); check the anchors", path=audio_path) from None
+        tm1 = path_to_timemap(res["path"], rate_hz=rate, rec_start_s=A.start_s, tempo_map=tmk,
+                              score_start_s=S.start_s)
+        return tmk, S, res, factors, radii, tm1
+
+    scale = float(st.time_scale)
+    tmk, S, res, factors, radii, tm1 = first_pass(scale)
+    # the scale again from the first alignment (middle 80 % of the notes): a scale far off makes the
+    # path lean on the cheaper one-axis steps, so realign once with the scale found
+    q_all = np.unique(score.notes["score_qn"].to_numpy(np.float64))
+    if q_all.size > 4:
+        qa, qb = np.quantile(q_all, [0.1, 0.9])
+        nom_span = float(score.tempo_map(qb) - score.tempo_map(qa))
+        rec_span = float(tm1(qb) - tm1(qa))
+        if nom_span > 0 and rec_span > 0 and abs(np.log(rec_span / nom_span / scale)) > np.log(RESCALE_ABOVE):
+            scale = rec_span / nom_span
+            tmk, S, res, factors, radii, tm1 = first_pass(scale)
     report("alignment", 0.8)
     path = res["path"]
     costs = path_costs(path, S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset, onset_weight=ONSET_WEIGHT)
@@ -457,16 +545,37 @@ def align_score(
             raise WorkFailed(msg + "; use --force to write the alignment anyway", path=audio_path)
         warnings.append(msg + "; written anyway (force)")
 
-    tm = path_to_timemap(path, rate_hz=rate, rec_start_s=A.start_s, tempo_map=tmk,
-                         score_start_s=S.start_s)
     inv_tempo = tmk.inverse()
+    # second pass on a template warped to the first one, attack and release fitted (refine)
+    report("alignment", 0.85)
+    try:
+        fin = refine(score, A, tm1, anchors=[(q, sec) for q, sec, _ in pts], onset_weight=ONSET_WEIGHT,
+                     weights=weights)
+    except ValueError:
+        fin = None
+    if fin is not None:
+        S2, path2, place = fin.S, fin.path, fin.place
+        tm = path_to_timemap(path2, rate_hz=rate, rec_start_s=A.start_s, tempo_map=place,
+                             score_start_s=S2.start_s)
+        costs2 = path_costs(path2, S2.chroma, A.chroma, onset_s=S2.onset, onset_r=A.onset,
+                            onset_weight=ONSET_WEIGHT)
+        ref2 = _ref_cost(S2, A, ONSET_WEIGHT)
+        band2 = (fin.lo, fin.hi)
+    else:
+        S2, path2, place, tm, costs2, ref2 = S, path, tmk, tm1, costs, ref
+        band2 = (res["levels"][-1]["lo"], res["levels"][-1]["hi"])
     for r in repeat_rows:
         r["recording_start"] = float(tm(r["score_qn_start"]))
         r["recording_end"] = float(tm(r["score_qn_end"]))
     # local confidence along the score
-    ui, lr = local_ratio(path, costs, ref_cost=ref, rate_hz=rate, window_s=LOCAL_WINDOW_S)
-    local_qn = np.asarray(inv_tempo(S.start_s + ui / rate), dtype=np.float64)
+    ui, lr = local_ratio(path2, costs2, ref_cost=ref2, rate_hz=rate, window_s=LOCAL_WINDOW_S)
+    local_qn = np.asarray(place.inverse()(S2.start_s + ui / rate), dtype=np.float64)
     local = pd.DataFrame({"score_qn": local_qn, "ratio": lr, "confidence": ratio_to_confidence(lr)})
+    rows1 = (np.asarray(tmk(local_qn), dtype=np.float64) - S.start_s) * rate
+    for key, val in _margin_features(fine_S=S2, fine_lo=band2[0], fine_hi=band2[1], fine_rows=ui,
+                                     coarse_res=res, coarse_S=S, coarse_rows=np.round(rows1), A=A,
+                                     ref=ref2, weights=weights).items():
+        local[key] = val
 
     # flagged regions: one-axis runs with a high local cost, and stretches of high cost
     found = []
@@ -509,8 +618,30 @@ def align_score(
         regions.append(reg)
         warnings.append(reg["reason"])
 
-    # tables
+    # how far the two passes disagree, and how far the local tempo strays from its surroundings
+    local["pass_gap_s"] = np.abs(np.asarray(tm(local_qn)) - np.asarray(tm1(local_qn)))
+    local["tempo_dev"] = _tempo_deviation(tm, local_qn, score.tempo_map)
+
+    # the calibrated local confidence (stimkit.align.confidence); nothing inside a flagged region
+    # is trusted
+    conf_local = local_confidence(local)
+    lq = local["score_qn"].to_numpy(np.float64)
+    for reg in regions:
+        inside = (lq >= reg["score_qn_start"]) & (lq <= reg["score_qn_end"])
+        conf_local[inside] = np.minimum(conf_local[inside], FLAGGED_CONFIDENCE)
+    local["confidence"] = conf_local
+
+    # where the path is unsure between two sure places, keep the tempo instead of the path
     qn = np.unique(score.notes["score_qn"].to_numpy(np.float64))
+    tm, bridged = bridge_unsure(tm, qn, np.interp(qn, local_qn, local["confidence"].to_numpy()),
+                                nominal=score.tempo_map, avoid=[(r["score_qn_start"], r["score_qn_end"])
+                                                                for r in regions if r["kind"] != "mismatch"])
+    if bridged:
+        for r in repeat_rows:
+            r["recording_start"] = float(tm(r["score_qn_start"]))
+            r["recording_end"] = float(tm(r["score_qn_end"]))
+
+    # tables
     loc = score.locate(qn)
     notes = pd.DataFrame({
         "score_qn": qn,
@@ -521,6 +652,17 @@ def align_score(
         "recording": np.asarray(tm(qn), dtype=np.float64),
         "confidence": np.interp(qn, local_qn, local["confidence"].to_numpy()),
     })
+    notes["confidence"] = neighbourhood_min(notes["recording"].to_numpy(), notes["confidence"].to_numpy())
+    unreliable = []
+    for sp in unreliable_spans(notes["recording"].to_numpy(), notes["confidence"].to_numpy(), qn):
+        where = score.locate([sp["score_qn_start"], sp["score_qn_end"]])
+        sp.update({"first_measure": int(where["measure"].iloc[0]), "last_measure": int(where["measure"].iloc[1]),
+                   "first_pass": int(where["pass"].iloc[0]), "last_pass": int(where["pass"].iloc[1])})
+        unreliable.append(sp)
+    if unreliable:
+        listed = ", ".join(_span_text(sp) for sp in unreliable[:8]) + (" ..." if len(unreliable) > 8 else "")
+        warnings.append(f"the alignment is unreliable in {len(unreliable)} span(s): {listed}; check them by ear "
+                        "or give anchors there")
     beats = score.beat_grid()
     beats["recording"] = np.asarray(tm(beats["score_qn"].to_numpy(np.float64)), dtype=np.float64)
     bq = pd.DataFrame({"score_qn": beats["score_qn"], "beat_qn": _beat_qn_of(score, beats["score_qn"])})
@@ -536,8 +678,8 @@ def align_score(
         "sample_rate_hz": _chroma.SR,
         "hop_samples": _chroma.HOP,
         "tuning_semitones": float(A.meta.get("tuning_semitones", 0.0)),
-        "levels_hz": [rate / f for f in FACTORS],
-        "band_radius_frames": list(RADII),
+        "levels_hz": [rate / f for f in factors],
+        "band_radius_frames": list(radii),
         "step_weights": {"diagonal": weights.diag, "score_only": weights.score,
                          "recording_only": weights.rec},
         "onset_weight": ONSET_WEIGHT,
@@ -560,9 +702,19 @@ def align_score(
         "time_scale": scale,
         "structure_scan": [[round(a, 4), round(b, 4)] for a, b in st.scan],
         "recording_lead_in_s": HEAD_S if sounding_start else 0.0,
+        "bridged_spans": bridged,
+        "second_pass": None if fin is None else {
+            "template": "warped to the first pass", "band_s": 0.5,
+            "attack": fin.attack, "room_wet_decay_s": list(fin.room)},
     }
+    # the performed / notated tempo over the middle 80 % of the piece (the ends hold a final
+    # ritardando and held chords)
+    qa, qb = np.quantile(qn, [0.1, 0.9]) if qn.size > 2 else (qn[0], qn[-1])
+    rec_span = float(tm(qb) - tm(qa))
+    tempo_ratio = (float(score.tempo_map(qb) - score.tempo_map(qa)) / rec_span if rec_span > 0 and qb > qa
+                   else 1.0 / scale)
     confidence = {"overall": overall, "raffel_ellis_ratio": ratio, "key_ratio": key_ratio,
-                  "tempo_ratio": 1.0 / scale,
+                  "tempo_ratio": tempo_ratio,
                   "best_key_shift": best_shift,
                   "coarse_ratio": float(res["coarse_cost_ratio"]),
                   "recording_start": rec_start, "recording_end": rec_end}
@@ -570,7 +722,8 @@ def align_score(
     return AlignResult(name=audio_path.stem, score=score, timemap=tm, notes=notes, beats=beats,
                        tempo=tempo, confidence=confidence, regions=regions,
                        warnings=warnings,
-                       settings=settings, local=local, audio_path=audio_path, repeats=repeat_rows)
+                       settings=settings, local=local, audio_path=audio_path, repeats=repeat_rows,
+                       unreliable=unreliable)
 
 
 def align_files(score_path, audio_path, *, anchors=(), force: bool = False, repeats="auto",
@@ -584,10 +737,11 @@ def align_files(score_path, audio_path, *, anchors=(), force: bool = False, repe
 
 
 def confidence_at(result: AlignResult, score_qn) -> np.ndarray:
-    """Local alignment confidence (0..1) at ``score_qn`` positions (linear interpolation)."""
+    """Alignment confidence (0..1, the probability of being within 100 ms) at ``score_qn``
+    positions: the note positions' values (:mod:`stimkit.align.confidence`), interpolated."""
     q = np.asarray(score_qn, dtype=np.float64)
-    loc = result.local
-    return np.interp(q, loc["score_qn"].to_numpy(), loc["confidence"].to_numpy())
+    n = result.notes
+    return np.interp(q, n["score_qn"].to_numpy(np.float64), n["confidence"].to_numpy(np.float64))
 
 
 def _json_payload(result: AlignResult) -> dict:
@@ -603,6 +757,7 @@ def _json_payload(result: AlignResult) -> dict:
         },
         "confidence": result.confidence,
         "repeats": result.repeats,
+        "unreliable_spans": result.unreliable,
         "flagged_regions": result.regions,
         "tempo": {"score_qn": t["score_qn"].to_numpy(), "recording": t["recording"].to_numpy(),
                   "bpm": t["bpm"].to_numpy(), "quarter_bpm": t["quarter_bpm"].to_numpy(),
@@ -634,6 +789,24 @@ def write_alignment(result: AlignResult, *, out_dir) -> list[Path]:
                        column_formats={"beat": "%.4f", "confidence": "%.3f"})
         outs.write_json(f"{result.name}.alignment.json", _json_payload(result))
     return list(outs.committed)
+
+
+def doubts(result: AlignResult) -> list[str]:
+    """What makes an alignment doubtful, one short text each: unreliable spans and repeat
+    decisions that could go either way (empty when nothing is doubtful)."""
+    out = [f"unreliable at {_span_text(sp)}" for sp in result.unreliable]
+    out += [f"{r['label']}: {'taken' if r['taken'] else 'left out'} is doubtful" for r in result.repeats
+            if r.get("doubtful")]
+    return out
+
+
+def check_strict(result: AlignResult, *, piece: str | None = None) -> None:
+    """Raise :class:`WorkFailed` naming what is doubtful (``--strict``)."""
+    d = doubts(result)
+    if d:
+        who = f"piece '{piece}'" if piece else result.name
+        raise WorkFailed(f"{who}: the alignment is doubtful ({'; '.join(d)}); nothing was written "
+                         "(--strict). Check by ear, add anchors or set the repeats, or run without --strict")
 
 
 def summary_lines(result: AlignResult) -> list[str]:

@@ -39,17 +39,22 @@ from .template import HEAD_S, score_features
 __all__ = ["Structure", "fit_structure", "SCALE_MIN", "SCALE_MAX", "N_SCALES"]
 
 #: Range of global time scales searched (recording s per nominal s) and the number of grid points.
-SCALE_MIN, SCALE_MAX, N_SCALES = 0.33, 3.0, 12
+SCALE_MIN, SCALE_MAX = 0.33, 3.0
+#: Starting scales of the fixed-point search and its largest number of steps.
+STARTS = (0.4, 0.63, 1.0, 1.6, 2.5)
+MAX_ITER = 6
+
 #: Frame period of the scale search (s) and of the repeat decision (s); raised for long inputs so
 #: that a matrix stays under MAX_CELLS cells (one byte each).
-SCAN_PERIOD_S = 1.0
+SCAN_PERIOD_S = 0.5
 DECIDE_PERIOD_S = 0.2
 MAX_CELLS = 40_000_000
 #: Cost of a recording frame left out before or after the piece, as a fraction of the mean local
 #: cost of the whole matrix (times the recording-only step weight).
 SKIP_FRACTION = 0.5
-#: A decision whose reversal raises the path cost by less than this fraction is called doubtful.
-DOUBTFUL_MARGIN = 0.02
+#: A decision whose reversal raises the path cost by less than this (per frame of the span, in units
+#: of the mean local cost) is called doubtful.
+DOUBTFUL_MARGIN = 0.01
 
 
 @dataclass
@@ -61,7 +66,7 @@ class Structure:
     decided: dict                # option id -> True when the recording decided it
     margins: dict                # option id -> relative cost increase when reversed (nan: not tested)
     scan: list = field(default_factory=list)     # (scale, mean path cost) of the grid
-    cost: float = float("nan")                   # mean local cost of the decision path
+    cost_ratio: float = float("nan")             # mean path cost / mean cost of the matrix (Raffel & Ellis)
     start_s: float = float("nan")                # recording time of the template's first note row
     end_s: float = float("nan")
 
@@ -167,38 +172,58 @@ def fit_structure(score, A, *, j0: int = 0, j1: int | None = None, weights: Step
         cr = _unit(downsample(cr_fine, f))
         bar_rows = _bar_rows(max_score, scale, period)
         jumps, owner = _edges(plan, bar_rows) if (has_options and with_jumps) else ([], [])
-        skip = SKIP_FRACTION * weights.rec * _background(cs, cr)
+        bg = max(_background(cs, cr), 1e-9)
+        skip = SKIP_FRACTION * weights.rec * bg
         path, _ = jump_dtw(cs, cr, jumps=jumps, weights=weights, skip_cost=skip)
-        cost = float(path_costs(path, cs, cr).mean())
+        # how well the frames the path puts together match, at full rate, times (1 + the share of
+        # one-axis steps): a path that bends to and fro picks its frames and looks better than
+        # it is; at the right scale and repeats it runs nearly diagonal
+        steps = np.diff(path, axis=0)
+        bent = float(np.mean((steps[:, 0] == 0) | (steps[:, 1] == 0))) if len(steps) else 0.0
+        cost = _fine_cost(path, fine_s, cr_fine, rate=rate, scale=scale, period=period, f=f) * (1.0 + bent)
         return dict(scale=scale, period=period, f=f, cs=cs, cr=cr, path=path, cost=cost, skip=skip,
                     bar_rows=bar_rows, jumps=jumps, owner=owner)
 
-    grid = np.exp(np.linspace(np.log(SCALE_MIN), np.log(SCALE_MAX), N_SCALES))
-    scan = []
-    best = None
-    for k, scale in enumerate(grid):
-        r = run(float(scale), SCAN_PERIOD_S)
-        scan.append((float(scale), r["cost"]))
-        if best is None or r["cost"] < best["cost"]:
-            best = r
+    # the scale: from several starting scales, decide the repeats and set the scale to the
+    # recording time the music spans over the nominal length of the order decided, until it
+    # settles (a fixed point: the template then spans what the recording spans). Tempo and
+    # repeats trade off -- leaving repeats out also fits a slower tempo -- so there may be
+    # several fixed points; they are compared at the decision rate, where the right one matches
+    # the recording frame for frame and a wrong one does not.
+    bar_nom = np.diff(np.asarray(max_score.tempo_map(np.append(max_score.measures["score_qn"].to_numpy(np.float64),
+                                                               max_score.total_qn)), dtype=np.float64))
+    scan, found = [], []
+    for n, k0 in enumerate(STARTS):
+        k = float(k0)
+        r = run(k, SCAN_PERIOD_S)
+        scan.append((round(k, 4), round(r["cost"], 4)))
+        for _ in range(MAX_ITER):
+            k_new = _span_scale(r, plan, bar_nom, rate, has_options, max_score)
+            if not np.isfinite(k_new):
+                break
+            k_new = float(np.clip(k_new, SCALE_MIN, SCALE_MAX))
+            if abs(np.log(k_new / k)) < 0.02:
+                break
+            r2 = run(k_new, SCAN_PERIOD_S)
+            scan.append((round(k_new, 4), round(r2["cost"], 4)))
+            if r2["cost"] > r["cost"]:
+                break          # a step that matches worse is not taken
+            k, r = k_new, r2
+        if not any(abs(np.log(k / q)) < 0.03 for q in found):
+            found.append(k)
         if progress is not None:
-            progress("structure", 0.6 * (k + 1) / len(grid))
-    # refine the scale from the slope of the best path (rows of music only, head/tail excluded)
-    scale = best["scale"]
-    for _ in range(2):
-        slope = _path_slope(best, scale, rate)
-        if not np.isfinite(slope):
-            break
-        new = float(np.clip(scale * slope, SCALE_MIN * 0.8, SCALE_MAX * 1.25))
-        if abs(np.log(new / scale)) < 0.01:
-            break
-        scale = new
-        best = run(scale, SCAN_PERIOD_S)
-    fine = run(scale, DECIDE_PERIOD_S)
-    slope = _path_slope(fine, scale, rate)
-    if np.isfinite(slope) and abs(np.log(slope)) > 0.03:
-        scale = float(np.clip(scale * slope, SCALE_MIN * 0.8, SCALE_MAX * 1.25))
-        fine = run(scale, DECIDE_PERIOD_S)
+            progress("structure", 0.6 * (n + 1) / len(STARTS))
+    fine = None
+    for q in found:
+        r = run(q, DECIDE_PERIOD_S)
+        k2 = _span_scale(r, plan, bar_nom, rate, has_options, max_score)
+        if np.isfinite(k2) and abs(np.log(k2 / q)) > 0.03:
+            r2 = run(float(np.clip(k2, SCALE_MIN, SCALE_MAX)), DECIDE_PERIOD_S)
+            if r2["cost"] < r["cost"]:
+                r = r2
+        if fine is None or r["cost"] < fine["cost"]:
+            fine = r
+    scale = fine["scale"]
     if progress is not None:
         progress("structure", 0.9)
     choice, decided = (_decide(plan, fine["bar_rows"], fine["jumps"], fine["owner"], fine["path"])
@@ -215,35 +240,75 @@ def fit_structure(score, A, *, j0: int = 0, j1: int | None = None, weights: Step
     if progress is not None:
         progress("structure", 1.0)
     return Structure(time_scale=float(scale), choice=choice, decided=decided, margins=margins,
-                     scan=scan, cost=fine["cost"], start_s=float(t0), end_s=float(t1))
+                     scan=scan, cost_ratio=fine["cost"],
+                     start_s=float(t0), end_s=float(t1))
 
 
-def _path_slope(r, scale, rate) -> float:
-    """Recording frames per template row along the music part of a path (1 = scale is right)."""
+def _fine_cost(path, fine_s, fine_r, *, rate, scale, period, f, samples: int = 4) -> float:
+    """Mean cosine distance along a coarse path, measured between the full-rate frames the path
+    puts together (a few per cell, along the cell's diagonal): unlike the coarse frames' own
+    distances it does not favour a scale by averaging more music into each template row."""
+    p = np.asarray(path, dtype=np.float64)
+    w = (np.arange(samples) + 0.5) / samples
+    u = ((p[:, 0:1] + w[None, :]) * period / scale * rate).ravel()
+    v = ((p[:, 1:2] + w[None, :]) * f).ravel()
+    u = np.clip(u.astype(np.int64), 0, len(fine_s) - 1)
+    v = np.clip(v.astype(np.int64), 0, len(fine_r) - 1)
+    return float(1.0 - np.einsum("ij,ij->i", fine_s[u], fine_r[v]).mean())
+
+
+def _span_scale(r, plan, bar_nom, rate, has_options, max_score) -> float:
+    """Recording seconds the path's music rows span over the nominal seconds of the bars the path
+    plays (the repeats it decided); NaN for a path with too little music."""
     p = r["path"]
     rows = r["bar_rows"]
     music = (p[:, 0] >= rows[0]) & (p[:, 0] < rows[-1])
     if music.sum() < 4:
         return float("nan")
     q = p[music]
-    # rows actually played (jumps removed): count distinct rows; recording frames spanned
-    n_rows = len(np.unique(q[:, 0]))
-    n_cols = q[-1, 1] - q[0, 1] + 1
-    if n_rows < 4 or n_cols < 2:
+    span = (q[-1, 1] - q[0, 1] + 1) * r["period"]
+    if has_options:
+        choice, _ = _decide(plan, rows, r["jumps"], r["owner"], p)
+        nom = float(bar_nom[plan.kept_positions(choice)].sum())
+    else:
+        nom = float(bar_nom.sum())
+    return span / nom if nom > 0 else float("nan")
+
+
+def _path_slope(r, scale, rate) -> float:
+    """Recording frames per played template row along the middle 80 % of the music part of a path
+    (1 = the scale is right). The ends are left out: applause, a final ritardando or a held last
+    chord must not set the tempo of the whole piece."""
+    p = r["path"]
+    rows = r["bar_rows"]
+    music = (p[:, 0] >= rows[0]) & (p[:, 0] < rows[-1])
+    if music.sum() < 8:
         return float("nan")
-    return float(n_cols / n_rows)
+    q = p[music]
+    ur, start = np.unique(q[:, 0], return_index=True)
+    cols = np.add.reduceat(q[:, 1].astype(np.float64), start) / np.diff(np.append(start, len(q)))
+    a, b = int(0.1 * len(ur)), int(0.9 * len(ur))
+    if b - a < 4:
+        return float("nan")
+    return float((cols[b] - cols[a]) / (b - a))
 
 
 def _margins(fine, plan, choice, decided, weights) -> dict:
-    """Relative increase of the best path cost when one decision is reversed."""
+    """How much dearer the best path gets when one decision is reversed, per frame of the span
+    that decision plays or leaves out, in units of the matrix's mean local cost: about the share
+    of that span's frames that would then match no better than chance."""
     cs, cr = fine["cs"], fine["cr"]
+    rows = fine["bar_rows"]
+    unit = max(_background(cs, cr), 1e-9)
     base = _cost_of(plan, choice, fine, weights)
     out = {}
     for oid in decided:
+        o = plan.options[oid]
         flipped = dict(choice)
         flipped[oid] = not choice[oid]
         c = _cost_of(plan, flipped, fine, weights)
-        out[oid] = float((c - base) / max(base, 1e-9)) if np.isfinite(c) and np.isfinite(base) else float("nan")
+        span = max(int(rows[o.stop] - rows[o.start]), 1)
+        out[oid] = float((c - base) / (unit * span)) if np.isfinite(c) and np.isfinite(base) else float("nan")
     return out
 
 

@@ -63,6 +63,7 @@ class PieceResult:
     median_confidence: float
     locate_cost: float
     repeats: list = field(default_factory=list)     # AlignResult.repeats
+    doubts: list = field(default_factory=list)      # align.run.doubts: unreliable spans, doubtful repeats
     tempo_ratio: float = 1.0                         # performed / notated tempo, whole piece
 
 
@@ -150,14 +151,11 @@ def _regions(result) -> list[tuple[float, float, str]]:
     flagged regions and the stretches where its local confidence is below :data:`LOW_CONFIDENCE`."""
     out = [(float(r["start"]), float(r["end"]), str(r.get("reason") or r.get("kind") or ""))
            for r in result.regions]
-    loc = result.local
-    if len(loc):
-        q = loc["score_qn"].to_numpy(dtype=np.float64)
-        low = loc["confidence"].to_numpy(dtype=np.float64) < LOW_CONFIDENCE
-        edges = np.diff(np.r_[0, low.astype(int), 0])
-        for a, b in zip(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1) - 1):
-            r = np.atleast_1d(result.timemap(np.array([q[a], q[b]])))
-            out.append((float(r[0]), float(max(r[1], r[0] + 0.1)), "low local confidence"))
+    for sp in getattr(result, "unreliable", []) or []:
+        bars = (f"bar {sp['first_measure']}" if sp["first_measure"] == sp["last_measure"]
+                else f"bars {sp['first_measure']}-{sp['last_measure']}")
+        out.append((float(sp["start"]), float(max(sp["end"], sp["start"] + 0.1)),
+                    f"alignment unsure at {bars} (confidence down to {sp['min_confidence']:.2f})"))
     out = [(s, e, why) for s, e, why in out if math.isfinite(s) and math.isfinite(e) and e > s]
     return sorted(out)
 
@@ -263,7 +261,7 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
                         duration_s=duration_s, progress=progress)
     lap("pieces")
 
-    from ..align.run import align_score
+    from ..align.run import align_score, check_strict, doubts
 
     aligned = []
     for k, (p, sc, sp) in enumerate(zip(session.pieces, scores, spans)):
@@ -276,6 +274,8 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
                               span_s=(lo, hi), repeats=session.repeats_of(p), progress=progress)
         except WorkFailed as exc:
             raise WorkFailed(f"piece '{p.name}' ({lo:.1f}-{hi:.1f} s of the recording): {exc}") from None
+        if getattr(session, "strict", False):
+            check_strict(res, piece=p.name)
         aligned.append(res)
         warnings.extend(f"{p.name}: {w}" for w in res.warnings)
     lap("alignment")
@@ -364,7 +364,8 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
             end_recording_s=float(row["recording"]) + float(row["duration"]) / clock.slope,
             start_onset_s=float(row["onset"]), end_onset_s=float(row["onset"] + row["duration"]),
             n_boundaries=int(len(t) - 1), median_confidence=med, locate_cost=sp.cost,
-            repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0))))
+            repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0)),
+            doubts=doubts(res)))
     tables.append(ev.silence_events(_silences(feats), clock=clock, min_duration_s=0.0))
     tables.append(ev.sync_events(mark_times, clock=clock))
     if changes is not None and len(changes):
@@ -438,6 +439,8 @@ def summary_lines(result: AnnotateResult) -> list[str]:
         line = repeats_line(p.name, p.repeats, p.tempo_ratio)
         if line:
             lines.append(line)
+        if p.doubts:
+            lines.append(f"  {p.name}: CHECK BY EAR: " + "; ".join(p.doubts))
     n_b = sum(p.n_boundaries for p in result.pieces)
     med = float(np.nanmedian([p.median_confidence for p in result.pieces])) if result.pieces else float("nan")
     lines.append(f"{len(result.pieces)} piece(s) found, {n_b} boundaries placed, median confidence {med:.2f}")
