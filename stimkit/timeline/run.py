@@ -140,6 +140,12 @@ def _timemap_call(tm):
     return lambda q: tm(np.asarray(q, dtype=np.float64))
 
 
+def _doubts(result) -> list[str]:
+    from ..align.run import doubts
+
+    return doubts(result)
+
+
 def _confidence_fn(result):
     from ..align.run import confidence_at
 
@@ -261,7 +267,7 @@ def analyse_recording(session, *, progress=None) -> RecordingAnalysis:
                         duration_s=duration_s, progress=progress)
     lap("pieces")
 
-    from ..align.run import align_score, check_strict, doubts
+    from ..align.run import align_score, check_strict
 
     aligned = []
     for k, (p, sc, sp) in enumerate(zip(session.pieces, scores, spans)):
@@ -365,7 +371,7 @@ def annotate(session, *, progress=None, command: list[str] | None = None,
             start_onset_s=float(row["onset"]), end_onset_s=float(row["onset"] + row["duration"]),
             n_boundaries=int(len(t) - 1), median_confidence=med, locate_cost=sp.cost,
             repeats=list(res.repeats), tempo_ratio=float(res.confidence.get("tempo_ratio", 1.0)),
-            doubts=doubts(res)))
+            doubts=_doubts(res)))
     tables.append(ev.silence_events(_silences(feats), clock=clock, min_duration_s=0.0))
     tables.append(ev.sync_events(mark_times, clock=clock))
     if changes is not None and len(changes):
