@@ -412,6 +412,7 @@ def collect_printed(score, *, path: Path, keep_velocity: bool = False) -> Printe
         in_step.append(False)
         if not ms:
             part_measures.append([])
+            warnings.append(f"{names[k]} has no bars in the file; it is left out")
             continue
         matched, how = barsync.match_bars(ref_labels, raw_offsets,
                                           [str(m.measureNumberWithSuffix()) for m in ms],

@@ -98,6 +98,16 @@ def test_polonaise_tempi_and_expansion(polonaise):
     assert kind(m, "meter")["label"].tolist() == ["3/4"]
 
 
+def test_polonaise_printed_mark_and_playback_tempo_disagree(polonaise):
+    # the file itself prints "Moderato. (q = 92)" at bar 1 and "Trio. Vivace. (q = 120)" at bar 17
+    # with <sound tempo="112"/> and <sound tempo="144"/> in the same <direction> elements (read
+    # from the corpus file's XML): music21 drops the sound tempo, the loader reads and reports it
+    said = [w for w in polonaise.warnings if "tempo marks disagree" in w]
+    assert any(w.startswith("bar 1:") and "quarter = 92 printed" in w and "quarter = 112 played" in w
+               and "quarter = 92 is used" in w for w in said)
+    assert any(w.startswith("bar 17:") and "quarter = 144 played" in w for w in said)
+
+
 def test_polonaise_printed_order(polonaise):
     m = _load("schumann_clara/polonaise_op1n4.mxl", expand_repeats=False)
     assert len(m.measures) == 40 and (m.measures["pass"] == 1).all()

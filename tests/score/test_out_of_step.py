@@ -136,6 +136,9 @@ def test_odd_bar_numbers_and_an_empty_part(tmp_path):
     assert onsets(m, "B") == [float(q) for q in range(16)]
     assert m.measures["score_qn"].tolist() == [0, 4, 8, 12]
     assert m.parts == ["A", "B", "Empty"]
+    none = load_score(write(tmp_path, "none.musicxml", score([("Nothing", []), ("A", bars_of(3, first_attrs=A44))])))
+    assert onsets(none, "A") == [float(q) for q in range(12)]
+    assert "Nothing has no bars in the file; it is left out" in none.warnings
     assert m.measures["label"].tolist() == ["1", "2", "3", "4"]   # the first part's numbers
 
 
