@@ -4,8 +4,12 @@
 ``derivatives/stimkit/sub-*/ses-*/``), computes the group statistics (:mod:`.group`), and writes
 in one transaction the dataset-level BIDS files (:mod:`.layout`), the group tables, the study
 report (:mod:`.report`) and ``derivatives/stimkit/study.json`` (the study's provenance: the study
-file's hash, the settings, and each session's key, performance and files). It runs on every
-study run; its outputs depend only on the sessions' files, so a rerun gives identical bytes.
+file's hash, the settings, and each session's key, performance and files). Its outputs depend
+only on the sessions' files and the study's settings, so a rerun gives identical bytes; when none
+of those changed since the last run (its key, over the provenance and every finished session's
+file hashes, is the one in ``.stimkit-study/finish.json``) and its files are intact, the files are
+left as they are: the group statistics are still computed for the summary, the figures are not
+drawn again.
 """
 
 from __future__ import annotations
@@ -92,9 +96,31 @@ def finish_study(study, plan, outcomes, *, out_root: Path, command=None):
         "sessions_failed": [{"name": n, "reason": r} for n, r in failed],
         "warnings": list(group.warnings),
     }
+    key = _finish_key(study, plan, outcomes, prov, out_root=out_root)
+    record = state.finish_record_file(out_root)
+    if state.is_current_record(out_root, record, key):
+        done = state.read_session_record(record) or {"files": {}}
+        return [Path(out_root) / rel for rel in done["files"]], group, list(group.warnings)
     with OutputSet(out_root) as outs:
         write_dataset_files(outs, study)
         write_group(outs, group, folder=g_rel)
         write_study_report(outs, study, plan, group, tables, failed=failed, folder=g_rel)
         outs.write_json((DERIVATIVES / "study.json").as_posix(), prov)
+    state.write_session_record(record, key=key, out_root=out_root, files=outs.committed)
     return list(outs.committed), group, list(group.warnings)
+
+
+def _finish_key(study, plan, outcomes, prov: dict, *, out_root: Path) -> str:
+    """The key of the study's last step: its provenance (settings, study file hash, every job's key,
+    failures, command, version), the dataset-level facts and the files every finished session wrote."""
+    from .plan import _key
+
+    ok = {o.name for o in outcomes if o.status != "failed"}
+    files = {}
+    for job in plan.sessions:
+        if job.name in ok:
+            rec = state.read_session_record(state.session_record_file(out_root, job.base)) or {"files": {}}
+            files[job.name] = rec["files"]
+    facts = {"name": study.name, "task": study.task, "authors": list(study.authors or []),
+             "license": study.license, "participants": study.participants}
+    return _key({"provenance": prov, "dataset": facts, "session_files": files})

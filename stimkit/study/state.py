@@ -7,6 +7,8 @@
   session that heard it and by later runs (pruned when no session of the study needs it).
 - ``hashes.json`` -- the file-hash memory of :class:`~stimkit.study.plan.HashCache`, by path
   relative to the study file's folder.
+- ``finish.json`` -- the record of the study's last step (:mod:`.finish`): its key and the SHA-256 of
+  every dataset-level, group and report file it wrote.
 - ``staging/`` -- a session job's scratch folder, removed when the job ends.
 
 A session is **current** when its record exists, holds the same key, and every file it lists is
@@ -23,7 +25,7 @@ from pathlib import Path
 from ..export.provenance import sha256_file
 from ..export.tables import atomic_write_bytes, to_json_text
 
-__all__ = ["STATE_DIR", "session_record_file", "performance_cache_file", "staging_dir", "write_session_record",
+__all__ = ["STATE_DIR", "session_record_file", "finish_record_file", "is_current_record", "performance_cache_file", "staging_dir", "write_session_record",
            "read_session_record", "is_current", "load_hashes", "save_hashes", "remove_stale_files"]
 
 STATE_DIR = ".stimkit-study"
@@ -31,6 +33,10 @@ STATE_DIR = ".stimkit-study"
 
 def session_record_file(out_root: Path, base: str) -> Path:
     return Path(out_root) / STATE_DIR / "sessions" / f"{base}.json"
+
+
+def finish_record_file(out_root: Path) -> Path:
+    return Path(out_root) / STATE_DIR / "finish.json"
 
 
 def performance_cache_file(out_root: Path, key: str) -> Path:
@@ -58,7 +64,12 @@ def read_session_record(path: Path) -> dict | None:
 
 def is_current(out_root: Path, base: str, key: str) -> bool:
     """True when the session's record matches ``key`` and all its files are intact."""
-    rec = read_session_record(session_record_file(out_root, base))
+    return is_current_record(out_root, session_record_file(out_root, base), key)
+
+
+def is_current_record(out_root: Path, record: Path, key: str) -> bool:
+    """True when the record at ``record`` holds ``key`` and every file it lists is intact."""
+    rec = read_session_record(record)
     if rec is None or rec.get("key") != key:
         return False
     for rel, digest in rec["files"].items():

@@ -1,29 +1,35 @@
-"""Running a study: a real Dask LocalCluster and local processes give byte-identical outputs;
-reruns skip current sessions, a changed input recomputes only its session, a failing session
-does not sink the others, an interrupted study resumes; the BIDS raw part passes the official
-validator and bidsschematools.
+"""Running a study: the demo study (``stimkit study --demo``) on a real Dask LocalCluster and on
+local processes gives byte-identical outputs; reruns skip current sessions, a changed input
+recomputes only its session, a failing session does not sink the others, an interrupted study
+resumes; the BIDS raw part passes the official validator and bidsschematools.
 
 External references: ``dask.distributed.LocalCluster`` (2 worker processes), the official BIDS
 validator (``bids-validator-deno``, a declared test dependency from PyPI), ``bidsschematools``'
 file-name rules (BIDS schema), the exit codes of DESIGN.md (1: work failed). Counts of
-recomputed sessions come from the run's result (``StudyResult.computed``).
+recomputed sessions come from the run's result (``StudyResult.computed``). The demo's recorder
+clocks are those stated in :mod:`stimkit.demo.study`.
 """
 
+import gzip
 import json
 import logging
 import os
 import shutil
 import subprocess
+import sys
 from pathlib import Path
 
 import pandas as pd
 import pytest
 
 from stimkit.cli import main
+from stimkit.demo import study as demo
 from stimkit.study import load_study, run_study
-from stimkit.study.state import STATE_DIR, session_record_file
+from stimkit.study.runner import SerialExecutor
+from stimkit.study.state import STATE_DIR, is_current, session_record_file
 
-from studyfix import CLOCKS, write_tiny_study
+TASK = "listening"
+NAMES = [f"sub-{p['id']}_ses-{s}_task-{TASK}" for p in demo.PARTICIPANTS for s in demo.SESSIONS]
 
 
 def _tree(root: Path) -> dict[str, bytes]:
@@ -35,119 +41,167 @@ def _tree(root: Path) -> dict[str, bytes]:
 
 
 @pytest.fixture(scope="module")
-def runs(tiny_study, tmp_path_factory):
+def cluster():
     from distributed import LocalCluster
 
-    a = tmp_path_factory.mktemp("on-dask") / "out"
-    b = tmp_path_factory.mktemp("on-processes") / "out"
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
-                      silence_logs=logging.ERROR) as cluster:
-        ra = run_study(load_study(tiny_study, out_dir=a), scheduler=cluster.scheduler_address)
-    rb = run_study(load_study(tiny_study, out_dir=b), workers=2)
-    return a, ra, b, rb
+                      silence_logs=logging.ERROR) as c:
+        yield c
 
 
-def test_dask_cluster_and_local_processes_give_identical_bytes(runs):
-    a, ra, b, rb = runs
-    assert ra.where.startswith("Dask cluster at tcp://") and rb.where == "2 local processes"
-    assert ra.computed == rb.computed == ["sub-a1_ses-1_task-listening", "sub-b2_ses-1_task-listening"]
-    assert ra.performances_computed == rb.performances_computed == 1      # one recording, aligned once
+@pytest.fixture(scope="module")
+def runs(cluster, tmp_path_factory):
+    # the documented command, from a fresh folder, on the cluster ...
+    fresh = tmp_path_factory.mktemp("fresh")
+    proc = subprocess.run([sys.executable, "-m", "stimkit", "study", "--demo", "-o", "demo-study",
+                           "--scheduler", cluster.scheduler_address],
+                          cwd=fresh, capture_output=True, text=True, timeout=1800)
+    a = fresh / "demo-study"
+    # ... and in this process on two local processes
+    b = tmp_path_factory.mktemp("on-processes") / "demo-study"
+    code_b = main(["study", "--demo", "-o", str(b), "--workers", "2"])
+    return a, proc, b, code_b
+
+
+def _study(b: Path):
+    return b / "sourcedata" / "demo-study" / "study.toml"
+
+
+def test_dask_cluster_and_local_processes_give_identical_bytes(runs, cluster):
+    a, proc, b, code_b = runs
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert code_b == 0
+    said = proc.stdout + proc.stderr
+    assert f"6 computed, 0 already current, 0 failed (Dask cluster at {cluster.scheduler_address})" in said
+    assert "performances: 1, analysed in this run: 1" in said         # one recording, aligned once
+    for name in NAMES:                                                 # progress per session
+        assert f"stimkit: {name} done" in said, name
     ta, tb = _tree(a), _tree(b)
     assert set(ta) == set(tb)
     assert [k for k in ta if ta[k] != tb[k]] == []
-    assert "sub-a1/ses-1/beh/sub-a1_ses-1_task-listening_events.tsv" in ta
+    assert f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv" in ta
     assert "derivatives/stimkit/group/study-report.html" in ta
     for name, data in ta.items():   # no absolute path of either run in any output
         assert str(a).encode() not in data and str(b).encode() not in data, name
 
 
-def test_each_participant_is_on_their_own_clock(runs, tiny_study):
+def test_each_participant_is_on_their_own_clock(runs):
     _, _, b, _ = runs
     pieces = {}
-    for pid in CLOCKS:
-        ev = pd.read_csv(b / f"sub-{pid}/ses-1/beh/sub-{pid}_ses-1_task-listening_events.tsv", sep="\t",
-                         na_values="n/a", keep_default_na=False)
-        pieces[pid] = ev[ev["trial_type"] == "piece"].iloc[0]
-    # the same recording time, mapped through each participant's clock (offset + slope x recording)
-    rec = pieces["a1"]["recording"]
-    assert pieces["b2"]["recording"] == pytest.approx(rec, abs=1e-6)
-    for pid, (off, ppm) in CLOCKS.items():
-        assert pieces[pid]["onset"] == pytest.approx(off + (1 + ppm * 1e-6) * rec, abs=2e-3)
+    for p in demo.PARTICIPANTS:
+        for s in demo.SESSIONS:
+            ev = pd.read_csv(b / f"sub-{p['id']}/ses-{s}/beh/sub-{p['id']}_ses-{s}_task-{TASK}_events.tsv",
+                             sep="\t", na_values="n/a", keep_default_na=False)
+            pieces[(p["id"], s)] = ev[ev["trial_type"] == "piece"].iloc[0]
+    # the same recording time, mapped through each clock of stimkit.demo.study.CLOCKS
+    rec = pieces[("p01", "1")]["recording"]
+    for key, (off, ppm) in demo.CLOCKS.items():
+        assert pieces[key]["recording"] == pytest.approx(rec, abs=1e-6)
+        assert pieces[key]["onset"] == pytest.approx(off + (1 + ppm * 1e-6) * rec, abs=2e-3), key
 
 
-def test_rerun_skips_and_a_changed_input_recomputes_only_its_session(runs, tiny_study):
-    _, _, b, rb = runs
-    before = _tree(b)
-    r1 = run_study(load_study(tiny_study, out_dir=b), workers=2)
-    assert r1.computed == [] and len(r1.skipped) == 2 and r1.performances_computed == 0
+def test_rerun_skips_and_a_changed_input_recomputes_only_its_session(runs, cluster):
+    _, _, b, _ = runs
+    r1 = run_study(load_study(_study(b)), workers=2)
+    assert r1.computed == [] and r1.skipped == NAMES and r1.performances_computed == 0
+    assert r1.where == "nothing to run"
+    before = _tree(b)   # (study.json now names this run's command)
     # touching without changing the content: content hashes say nothing changed
-    for f in tiny_study.parent.glob("*"):
+    for f in _study(b).parent.rglob("*"):
         os.utime(f)
-    r2 = run_study(load_study(tiny_study, out_dir=b), workers=2)
-    assert r2.computed == []
-    # one participant's recorder file changes (a blank cell more, same times): only that session
-    sync = tiny_study.parent / "sync-a1.tsv"
-    sync.write_text(sync.read_text() + "n/a\n")
-    r3 = run_study(load_study(tiny_study, out_dir=b), workers=1)
-    assert r3.computed == ["sub-a1_ses-1_task-listening"] and r3.performances_computed == 0
+    r2 = run_study(load_study(_study(b)), workers=2)
+    assert r2.computed == [] and _tree(b) == before
+    # one participant's physiological file changes its bytes, not its values (compressed anew):
+    # only that session runs again, on the cluster named in the study file
+    phys = _study(b).parent / "physio" / "sub-p01_ses-1_recording-heart_physio.tsv.gz"
+    phys.write_bytes(gzip.compress(gzip.decompress(phys.read_bytes()), compresslevel=1, mtime=0))
+    text = _study(b).read_text()
+    _study(b).write_text(f'scheduler = "{cluster.scheduler_address}"\n' + text)
+    try:
+        r3 = run_study(load_study(_study(b)))
+    finally:
+        _study(b).write_text(text)
+    assert r3.where == f"Dask cluster at {cluster.scheduler_address}"
+    assert r3.computed == [NAMES[0]] and r3.performances_computed == 0
     after = _tree(b)
     changed = sorted(k for k in before if before[k] != after.get(k))
-    # same clock, same events: only the provenance (the recorder file's hash) and the study
-    # record (the session's key) differ
-    assert changed == ["derivatives/stimkit/study.json",
-                       "derivatives/stimkit/sub-a1/ses-1/beh/provenance.json"] or all(
-        "sub-a1" in k or k.endswith("study.json") for k in changed)
+    # same clock, same values: the events are the same bytes; what differs records the input's hash
+    assert f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv" not in changed
+    assert f"sub-p01/ses-1/beh/{NAMES[0]}_recording-heart_physio.tsv.gz" in changed
+    assert all("sub-p01/ses-1/" in k or k == "derivatives/stimkit/study.json" or k.startswith("sourcedata/")
+               for k in changed), changed
 
 
-def test_an_interrupted_study_resumes_with_the_unfinished_session(runs, tiny_study):
+class _StopAtSubmit(SerialExecutor):
+    """Runs ``n`` jobs in this process, then stops as Ctrl-C would."""
+
+    def __init__(self, n: int):
+        self.n = n
+
+    def submit(self, fn, /, *args, **kwargs):
+        if self.n == 0:
+            raise KeyboardInterrupt
+        self.n -= 1
+        return super().submit(fn, *args, **kwargs)
+
+
+def test_an_interrupted_study_resumes_with_the_unfinished_session(runs):
     _, _, b, _ = runs
-    # a session stopped before its record was written is unfinished: only it runs again
-    session_record_file(b, "sub-b2_ses-1_task-listening").unlink()
-    r = run_study(load_study(tiny_study, out_dir=b), workers=1)
-    assert r.computed == ["sub-b2_ses-1_task-listening"]
-    # a damaged output counts as unfinished too
-    victim = b / "sub-a1/ses-1/beh/sub-a1_ses-1_task-listening_events.tsv"
+    # a damaged output and a session whose record was never written are both unfinished
+    victim = b / f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv"
+    good = victim.read_bytes()
     victim.write_text("broken")
-    r = run_study(load_study(tiny_study, out_dir=b), workers=1)
-    assert r.computed == ["sub-a1_ses-1_task-listening"]
-    assert victim.read_text().startswith("onset\tduration")
+    session_record_file(b, NAMES[-1]).unlink()
+    with pytest.raises(KeyboardInterrupt):   # stopped after the first of the two sessions
+        run_study(load_study(_study(b)), executor=_StopAtSubmit(1))
+    assert victim.read_bytes() == good
+    st = load_study(_study(b))
+    from stimkit.study.plan import plan_study
+
+    keys = {j.name: j.key for j in plan_study(st).sessions}
+    assert is_current(b, NAMES[0], keys[NAMES[0]]) and not is_current(b, NAMES[-1], keys[NAMES[-1]])
+    r = run_study(st, workers=1)
+    assert r.computed == [NAMES[-1]]
 
 
-def test_one_failing_session_does_not_sink_the_others(runs, tiny_study, tmp_path, capsys):
+def test_one_failing_session_does_not_sink_the_others(runs, tmp_path, capsys):
     _, _, b, _ = runs
-    folder = tmp_path / "with-bad"
-    shutil.copytree(tiny_study.parent, folder)
-    bad = ('[[participant]]\nid = "c3"\n[[session]]\nparticipant = "c3"\nsession = "1"\nperformance = "kites"\n'
-           '[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\nrecorder_times_s = [10.0, 11.0, 500.0]\n')
-    study = write_tiny_study(folder, extra_sessions=bad)
-    out = tmp_path / "out"
-    shutil.copytree(b, out)  # the two good sessions are current there; only the new one runs
-    code = main(["study", str(study), "-o", str(out), "--workers", "2"])
+    out = tmp_path / "with-bad"
+    shutil.copytree(b, out)  # the six sessions are current there; only the new one runs
+    bad = ('\n[[participant]]\nid = "p04"\n[[session]]\nparticipant = "p04"\nsession = "1"\n'
+           'performance = "evening"\n[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\n'
+           'recorder_times_s = [10.0, 11.0, 500.0]\n')
+    study = _study(out)
+    study.write_text(study.read_text() + bad)
+    code = main(["study", str(study), "--workers", "2"])
     captured = capsys.readouterr()
+    bad_name = f"sub-p04_ses-1_task-{TASK}"
     assert code == 1                                   # DESIGN.md: 1 = the work failed
-    assert "1 of 3 session(s) failed: sub-c3_ses-1_task-listening" in captured.err
-    assert "FAILED sub-c3_ses-1_task-listening:" in captured.out and "sync" in captured.out  # the reason
-    assert "0 computed, 2 already current, 1 failed" in captured.out
-    for pid in ("a1", "b2"):
-        assert (out / f"sub-{pid}/ses-1/beh/sub-{pid}_ses-1_task-listening_events.tsv").is_file()
-    assert not (out / "sub-c3").exists()
+    assert f"1 of 7 session(s) failed: {bad_name}" in captured.err
+    assert f"FAILED {bad_name}:" in captured.out and "sync" in captured.out  # the reason
+    assert "0 computed, 6 already current, 1 failed" in captured.out
+    for name in NAMES:
+        sub, ses = name.split("_")[:2]
+        assert (out / sub / ses / "beh" / f"{name}_events.tsv").is_file()
+    assert not (out / "sub-p04").exists()
     prov = json.loads((out / "derivatives/stimkit/study.json").read_text())
-    assert [f["name"] for f in prov["sessions_failed"]] == ["sub-c3_ses-1_task-listening"]
+    assert [f["name"] for f in prov["sessions_failed"]] == [bad_name]
     # the failure is not remembered as done: the next run tries it again, and only it
-    assert main(["study", str(study), "-o", str(out), "--workers", "1"]) == 1
-    assert "0 computed, 2 already current, 1 failed" in capsys.readouterr().out
+    assert main(["study", str(study), "--workers", "1"]) == 1
+    assert "0 computed, 6 already current, 1 failed" in capsys.readouterr().out
 
 
 def test_bids_raw_part_passes_the_official_validator(runs):
     _, _, b, _ = runs
-    exe = shutil.which("bids-validator-deno") or str(Path(os.sys.executable).with_name("bids-validator-deno"))
+    exe = shutil.which("bids-validator-deno") or str(Path(sys.executable).with_name("bids-validator-deno"))
     if not Path(exe).exists():
         pytest.skip("bids-validator-deno is not installed (pip install bids-validator-deno; it is in the test extra)")
     res = subprocess.run([exe, str(b), "--format", "json"], capture_output=True, text=True, timeout=600)
     report = json.loads(res.stdout)
     errors = [(i["code"], i.get("location")) for i in report["issues"]["issues"] if i["severity"] == "error"]
     assert errors == []                                # the official BIDS validator: no error
-    assert sorted(report["summary"]["subjects"]) == ["a1", "b2"]
+    assert sorted(report["summary"]["subjects"]) == ["p01", "p02", "p03"]
+    assert sorted(report["summary"]["sessions"]) == ["1", "2"]
 
 
 def test_bids_raw_part_read_back_with_bidsschematools(runs):
@@ -157,9 +211,11 @@ def test_bids_raw_part_read_back_with_bidsschematools(runs):
     r = validate_bids(str(b))
     assert r["path_tracking"] == []                    # every raw file matches a BIDS schema rule
     matched = {Path(p).name for p in (m["path"] for m in r["match_listing"])}
-    assert "sub-a1_ses-1_task-listening_events.tsv" in matched
-    assert "participants.tsv" in matched
+    assert f"{NAMES[0]}_events.tsv" in matched
+    assert f"{NAMES[0]}_recording-heart_physio.tsv.gz" in matched
+    assert "participants.tsv" in matched and "participants.json" in matched
     part = pd.read_csv(b / "participants.tsv", sep="\t")
-    assert list(part["participant_id"]) == ["sub-a1", "sub-b2"] and list(part["age"]) == [40, 41]
+    assert list(part["participant_id"]) == ["sub-p01", "sub-p02", "sub-p03"]
+    assert list(part["age"]) == [p["age"] for p in demo.PARTICIPANTS]
     desc = json.loads((b / "derivatives/stimkit/dataset_description.json").read_text())
     assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "stimkit"
