@@ -3,7 +3,8 @@
 The demo study scaled up: ``--participants`` (default 6) invented participants x 2 sessions, every
 session hearing its own performance (the bundled recording at a slightly different gain per
 performance, so each is a distinct recording that must be analysed: no sharing), each participant
-on their own recorder clock. The same study runs three times into fresh folders:
+on their own recorder clock with a simulated beat-interval series analysed as in the demo
+(``stimkit.demo.study.simulate_beats``: slower, faster or no response after the rehearsal marks). The same study runs three times into fresh folders:
 
 1. serial: every job in this process (``workers = 1``), the naive approach;
 2. local processes: ``ProcessPoolExecutor`` with ``--workers`` (default 2) processes;
@@ -95,8 +96,12 @@ def build(folder: Path, participants: int) -> Path:
                         + "".join(f'[[performance.piece]]\nscore = "{s}"\n' for s in scores))
             off, ppm = float(rng.uniform(0, 60)), float(rng.uniform(-50, 50))
             times = ", ".join(f"{t:.4f}" for t in demo._recorder_times(off, ppm))
+            t, rr = demo.simulate_beats(pid, ses, clock=(off, ppm), sign=(1, -1, 0)[i % 3])
+            beats = f"beats-{pid}-{ses}.tsv"
+            (folder / beats).write_text("beat_time\trr\n" + "".join(f"{a:.4f}\t{b:.1f}\n" for a, b in zip(t, rr)))
             sessions.append(f'[[session]]\nparticipant = "{pid}"\nsession = "{ses}"\nperformance = "perf{k:02d}"\n'
-                            f"[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\nrecorder_times_s = [{times}]\n")
+                            f"[session.sync]\nfrequency_hz = 1000\nduration_s = 0.05\nrecorder_times_s = [{times}]\n"
+                            f'[[session.physio]]\nfile = "{beats}"\nkind = "rr"\nlabel = "heart"\n')
     text = ('name = "bench study"\ntask = "listening"\nseed = 3\n'
             "[analysis]\npseudo_boundaries = 199\nshare_sets = 199\nsurrogates = 99\n"
             + "".join(perf) + "".join(people) + "".join(sessions))

@@ -67,19 +67,20 @@ BASE_MS, RESPONSE_MS, RESPONSE_S, PHI, SD_MS = 820.0, 60.0, 15.0, 0.5, 25.0
 PHYSIO_RATE_HZ = 500.0
 
 
-def simulate_beats(participant: str, session: str, *, seed: int = 20261203):
+def simulate_beats(participant: str, session: str, *, seed: int = 20261203, clock=None, sign=None):
     """Beat times (s, on the participant's recorder clock) and intervals (ms) of one session.
 
     The interval is ``BASE_MS`` plus AR(1) noise (phi ``PHI``, marginal SD ``SD_MS``; a common first
     model of beat-to-beat fluctuation) plus a response of ``RESPONSE_MS`` for ``RESPONSE_S``
     seconds after each planted time, times the participant's sign in :data:`RESPONSES` (+1: the
-    heart slows, -1: it speeds up, 0: no response).
+    heart slows, -1: it speeds up, 0: no response). ``clock`` (offset_s, drift_ppm) and ``sign``
+    replace :data:`CLOCKS` and :data:`RESPONSES` for participants of other studies (the bench's).
     """
     import numpy as np
 
-    rng = np.random.default_rng([seed, int(participant[1:]), int(session)])
-    sign = RESPONSES[participant]
-    off, ppm = CLOCKS[(participant, session)]
+    rng = np.random.default_rng([seed, int("".join(c for c in participant if c.isdigit()) or 0), int(session)])
+    sign = RESPONSES[participant] if sign is None else sign
+    off, ppm = CLOCKS[(participant, session)] if clock is None else clock
     steps = np.asarray(PLANTED_RECORDING_S)
     sd_innov = SD_MS * np.sqrt(1.0 - PHI ** 2)
     rec, rr = [], []

@@ -122,7 +122,8 @@ def run_study(study, *, scheduler: str | None = None, workers: int | None = None
               progress=None, force: bool = False, command: list[str] | None = None) -> StudyResult:
     """Run every session of ``study`` that is not current, then the group stage (module notes).
 
-    ``scheduler`` / ``workers`` override the study file's settings; ``executor`` (any
+    ``scheduler`` / ``workers`` override the study file's settings (``workers`` alone runs on local
+    processes even when the study file names a scheduler); ``executor`` (any
     ``concurrent.futures.Executor``) overrides both. ``force`` recomputes every session.
 
     Raises
@@ -166,7 +167,8 @@ def run_study(study, *, scheduler: str | None = None, workers: int | None = None
                            state_file=state.session_record_file(out_root, job.base))
 
     if todo:
-        sched = scheduler if scheduler is not None else study.scheduler
+        # a command-line choice beats the study file's: --workers runs here even when the file names a cluster
+        sched = scheduler if scheduler is not None else (None if workers is not None else study.scheduler)
         wk = workers if workers is not None else study.workers
         with (_given(executor) if executor is not None else open_executor(scheduler=sched, workers=wk)) as (ex, where):
             running: dict = {}

@@ -100,38 +100,6 @@ def test_each_participant_is_on_their_own_clock(runs):
         assert pieces[key]["onset"] == pytest.approx(off + (1 + ppm * 1e-6) * rec, abs=2e-3), key
 
 
-def test_rerun_skips_and_a_changed_input_recomputes_only_its_session(runs, cluster):
-    _, _, b, _ = runs
-    r1 = run_study(load_study(_study(b)), workers=2)
-    assert r1.computed == [] and r1.skipped == NAMES and r1.performances_computed == 0
-    assert r1.where == "nothing to run"
-    before = _tree(b)   # (study.json now names this run's command)
-    # touching without changing the content: content hashes say nothing changed
-    for f in _study(b).parent.rglob("*"):
-        os.utime(f)
-    r2 = run_study(load_study(_study(b)), workers=2)
-    assert r2.computed == [] and _tree(b) == before
-    # one participant's physiological file changes its bytes, not its values (compressed anew):
-    # only that session runs again, on the cluster named in the study file
-    phys = _study(b).parent / "physio" / "sub-p01_ses-1_recording-heart_physio.tsv.gz"
-    phys.write_bytes(gzip.compress(gzip.decompress(phys.read_bytes()), compresslevel=1, mtime=0))
-    text = _study(b).read_text()
-    _study(b).write_text(f'scheduler = "{cluster.scheduler_address}"\n' + text)
-    try:
-        r3 = run_study(load_study(_study(b)))
-    finally:
-        _study(b).write_text(text)
-    assert r3.where == f"Dask cluster at {cluster.scheduler_address}"
-    assert r3.computed == [NAMES[0]] and r3.performances_computed == 0
-    after = _tree(b)
-    changed = sorted(k for k in before if before[k] != after.get(k))
-    # same clock, same values: the events are the same bytes; what differs records the input's hash
-    assert f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv" not in changed
-    assert f"sub-p01/ses-1/beh/{NAMES[0]}_recording-heart_physio.tsv.gz" in changed
-    assert all("sub-p01/ses-1/" in k or k == "derivatives/stimkit/study.json" or k.startswith("sourcedata/")
-               for k in changed), changed
-
-
 class _StopAtSubmit(SerialExecutor):
     """Runs ``n`` jobs in this process, then stops as Ctrl-C would."""
 
@@ -145,23 +113,47 @@ class _StopAtSubmit(SerialExecutor):
         return super().submit(fn, *args, **kwargs)
 
 
-def test_an_interrupted_study_resumes_with_the_unfinished_session(runs):
-    _, _, b, _ = runs
-    # a damaged output and a session whose record was never written are both unfinished
-    victim = b / f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv"
-    good = victim.read_bytes()
-    victim.write_text("broken")
-    session_record_file(b, NAMES[-1]).unlink()
-    with pytest.raises(KeyboardInterrupt):   # stopped after the first of the two sessions
-        run_study(load_study(_study(b)), executor=_StopAtSubmit(1))
-    assert victim.read_bytes() == good
-    st = load_study(_study(b))
+def test_rerun_skips_a_changed_input_recomputes_its_session_and_an_interrupted_study_resumes(runs, cluster):
     from stimkit.study.plan import plan_study
 
-    keys = {j.name: j.key for j in plan_study(st).sessions}
-    assert is_current(b, NAMES[0], keys[NAMES[0]]) and not is_current(b, NAMES[-1], keys[NAMES[-1]])
-    r = run_study(st, workers=1)
-    assert r.computed == [NAMES[-1]]
+    _, _, b, _ = runs
+    r1 = run_study(load_study(_study(b)), workers=2)
+    assert r1.computed == [] and r1.skipped == NAMES and r1.performances_computed == 0
+    assert r1.where == "nothing to run"
+    before = _tree(b)   # (study.json now names this run's command)
+    # touching without changing the content: content hashes say nothing changed
+    for f in _study(b).parent.rglob("*"):
+        os.utime(f)
+    r2 = run_study(load_study(_study(b)), workers=2)
+    assert r2.computed == [] and _tree(b) == before
+    # one participant's physiological file changes its bytes, not its values (compressed anew), and
+    # another session's output is damaged: a session whose files are not as recorded is unfinished
+    phys = _study(b).parent / "physio" / "sub-p01_ses-1_recording-heart_physio.tsv.gz"
+    phys.write_bytes(gzip.compress(gzip.decompress(phys.read_bytes()), compresslevel=1, mtime=0))
+    victim = b / f"sub-p03/ses-2/beh/{NAMES[-1]}_events.tsv"
+    victim.write_text("broken")
+    # a run stopped (Ctrl-C) after the changed session, before the unfinished one
+    with pytest.raises(KeyboardInterrupt):
+        run_study(load_study(_study(b)), executor=_StopAtSubmit(1))
+    keys = {j.name: j.key for j in plan_study(load_study(_study(b))).sessions}
+    assert [n for n in NAMES if is_current(b, n, keys[n])] == NAMES[:-1]
+    # it resumes with the unfinished session only, on the cluster named in the study file
+    text = _study(b).read_text()
+    _study(b).write_text(f'scheduler = "{cluster.scheduler_address}"\n' + text)
+    try:
+        r3 = run_study(load_study(_study(b)))
+    finally:
+        _study(b).write_text(text)
+    assert r3.where == f"Dask cluster at {cluster.scheduler_address}"
+    assert r3.computed == [NAMES[-1]] and r3.performances_computed == 0
+    after = _tree(b)
+    changed = sorted(k for k in before if before[k] != after.get(k))
+    # same clock, same values: the events are the same bytes; what differs records the input's hash
+    assert f"sub-p01/ses-1/beh/{NAMES[0]}_events.tsv" not in changed
+    assert f"sub-p01/ses-1/beh/{NAMES[0]}_recording-heart_physio.tsv.gz" in changed
+    assert all("sub-p01/ses-1/" in k or k == "derivatives/stimkit/study.json" or k.startswith("sourcedata/")
+               for k in changed), changed
+    assert victim.read_bytes() == before[f"sub-p03/ses-2/beh/{NAMES[-1]}_events.tsv"]
 
 
 def test_one_failing_session_does_not_sink_the_others(runs, tmp_path, capsys):
@@ -219,3 +211,32 @@ def test_bids_raw_part_read_back_with_bidsschematools(runs):
     assert list(part["age"]) == [p["age"] for p in demo.PARTICIPANTS]
     desc = json.loads((b / "derivatives/stimkit/dataset_description.json").read_text())
     assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "stimkit"
+
+
+def test_study_report_has_one_panel_per_participant_and_the_group_figures(runs):
+    import base64
+    import io
+    import re
+
+    from PIL import Image
+
+    _, _, b, _ = runs
+    page = (b / "derivatives/stimkit/group/study-report.html").read_text(encoding="utf-8")
+    participants = page[page.index("<h2>Participants</h2>"):]
+    panels = re.findall(r'<h3>sub-(p\d\d)</h3><figure><img alt="[^"]*" src="data:image/png;base64,([^"]+)"',
+                        participants)
+    assert [p for p, _ in panels] == [p["id"] for p in demo.PARTICIPANTS]
+    group = page[page.index("<h2>Group results</h2>"):page.index("<h2>Participants</h2>")]
+    captions = re.findall(r"<figcaption>([^<]*)</figcaption>", group)
+    assert [c.split()[0] for c in captions] == ["Prevalence", "Direction", "Mixed"]
+    for data in [d for _, d in panels] + re.findall(r'src="data:image/png;base64,([^"]+)"', group):
+        png = base64.b64decode(data)
+        assert png[:8] == b"\x89PNG\r\n\x1a\n"          # the PNG signature (ISO/IEC 15948)
+        assert min(Image.open(io.BytesIO(png)).size) > 100
+    # the group tables the page shows are on disk too, one row per participant x family
+    resp = pd.read_csv(b / "derivatives/stimkit/group/responders.tsv", sep="\t")
+    prev = pd.read_csv(b / "derivatives/stimkit/group/prevalence.tsv", sep="\t")
+    assert set(resp["participant"]) == {"p01", "p02", "p03"}
+    k = resp.groupby(["series", "N", "trial_type"])["responder"].sum()
+    assert (prev.set_index(["series", "N", "trial_type"])["k"] == k.reindex(
+        prev.set_index(["series", "N", "trial_type"]).index)).all()
