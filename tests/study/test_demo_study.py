@@ -4,8 +4,8 @@ clock and simulated physiology as stated in stimkit.demo.study.
 The clocks are checked against the renderer's ground truth of the sync marks
 (example_audio/demo-truth.json); the physiology is read back with stimkit.physio.read_physio and
 the planted responses measured directly from the written intervals (no stimkit statistics).
-The whole demo run (``stimkit study --demo``) is left to the documented command: the runner
-itself is tested on the tiny study in test_runner.py.
+The whole demo run (``stimkit study --demo``, on a LocalCluster and on local processes) is in
+test_runner.py.
 """
 
 import json
