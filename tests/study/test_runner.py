@@ -165,7 +165,7 @@ def test_one_failing_session_does_not_sink_the_others(runs, tmp_path, capsys):
            'recorder_times_s = [10.0, 11.0, 500.0]\n')
     study = _study(out)
     study.write_text(study.read_text() + bad)
-    code = main(["study", str(study), "--workers", "2"])
+    code = main(["study", str(study), "--workers", "1"])  # in this process: no worker to start
     captured = capsys.readouterr()
     bad_name = f"sub-p04_ses-1_task-{TASK}"
     assert code == 1                                   # DESIGN.md: 1 = the work failed
