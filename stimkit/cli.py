@@ -332,6 +332,10 @@ def relate(
         raise InputError(f"give one --participant per physiological file ({len(physio)}), or none")
     if not 1 <= jobs <= 64 or surrogates < 19 or pseudo_boundaries < 19:
         raise InputError("--jobs must be 1-64; --surrogates and --pseudo-boundaries at least 19")
+    from .timeline.clock import MAX_OFFSET_S
+
+    if not abs(offset_s) <= MAX_OFFSET_S:
+        raise InputError(f"--offset-s must be seconds within +-{MAX_OFFSET_S:.0e}, got {offset_s:.6g}")
     if not 0.5 <= max_radius_s <= 60:
         raise InputError("--max-radius-s must be between 0.5 and 60 s")
     h = tuple(round(0.5 * k, 1) for k in range(1, int(round(max_radius_s / 0.5)) + 1))

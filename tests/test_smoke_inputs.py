@@ -224,3 +224,20 @@ def test_absurd_offset_in_a_session_file_names_its_line(tmp_path, capsys):
     sess.write_text(f'recording = "take.wav"\n[sync]\noffset_s = 1e300\n[[piece]]\nscore = "{CHORALE}"\n')
     assert main(["annotate", str(sess)]) == 2
     assert "line 3:" in capsys.readouterr().err
+
+
+def test_absurd_physiology_offsets_are_refused_in_one_line(tmp_path, capsys):
+    # the clock limit (stimkit.timeline.clock.MAX_OFFSET_S) holds for a physiological file's
+    # stated shift too: 1e300 s was accepted and came back as a 300-digit coverage complaint
+    _tiny_wav(tmp_path / "take.wav")
+    (tmp_path / "beats.tsv").write_text("time\trr\n1.0\t800\n", "utf-8")
+    sess = tmp_path / "s.toml"
+    sess.write_text(f'recording = "take.wav"\n[[piece]]\nscore = "{CHORALE}"\n[[physio]]\n'
+                    f'file = "beats.tsv"\noffset_s = 1e300\n')
+    assert main(["annotate", str(sess)]) == 2
+    err = capsys.readouterr().err
+    assert "line 6:" in err and "offset_s" in err and len(err) < 400
+    assert main(["relate", str(tmp_path / "e_events.tsv"), str(tmp_path / "beats.tsv"),
+                 "--offset-s", "1e300", "-o", str(tmp_path / "rel")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "--offset-s" in err and "\n" not in err and not (tmp_path / "rel").exists()
