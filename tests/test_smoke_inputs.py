@@ -241,3 +241,26 @@ def test_absurd_physiology_offsets_are_refused_in_one_line(tmp_path, capsys):
                  "--offset-s", "1e300", "-o", str(tmp_path / "rel")]) == 2
     err = capsys.readouterr().err.strip()
     assert "--offset-s" in err and "\n" not in err and not (tmp_path / "rel").exists()
+
+
+@pytest.mark.parametrize("case", ["long name", "folder in the way"])
+def test_outputs_that_cannot_be_written_are_refused_before_the_work(tmp_path, capsys, monkeypatch, case):
+    # a recording name that makes "<name>_events.tsv" longer than the 255 bytes a name may have
+    # (POSIX NAME_MAX on common file systems), or a folder named like an output: both were found
+    # only when writing, after the whole analysis
+    import stimkit.timeline.run as chain
+
+    def no_work(*a, **k):
+        raise AssertionError("the analysis ran")
+
+    monkeypatch.setattr(chain, "analyse_recording", no_work)
+    name = ("y" * 245 if case == "long name" else "take") + ".wav"
+    _tiny_wav(tmp_path / name)
+    out = tmp_path / "out"
+    if case == "folder in the way":
+        (out / "take_beats.json").mkdir(parents=True)
+    code = main(["annotate", "--score", str(CHORALE), "--audio", str(tmp_path / name), "-o", str(out)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "\n" not in err                 # DESIGN.md: exit 2, one line
+    assert ("too long" in err) if case == "long name" else ("take_beats.json: a folder is in the way" in err)
+    assert not out.exists() or [p.name for p in out.iterdir()] == ["take_beats.json"]
