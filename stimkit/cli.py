@@ -200,8 +200,9 @@ def align(
 ):
     """Align the score to the recording: the recording time of every note-onset position."""
     from .align.run import align_files, check_strict, summary_lines, write_alignment
-    from .export.tables import protect_inputs
+    from .export.tables import check_output_dir, protect_inputs
 
+    check_output_dir(out, create=False)      # the folder before the work (nothing is made yet)
     result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
                             repeats=_repeats_option(repeats))
     if strict:

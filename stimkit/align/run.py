@@ -782,7 +782,7 @@ def write_alignment(result: AlignResult, *, out_dir) -> list[Path]:
     """
     from ..export.tables import OutputSet, check_output_dir
 
-    out = check_output_dir(out_dir)
+    out = check_output_dir(out_dir, create=False)  # the set makes the folder (none on failure)
     table = result.notes[NOTE_TABLE_COLUMNS]
     with OutputSet(out) as outs:
         outs.write_tsv(f"{result.name}.alignment.tsv", table,

@@ -235,7 +235,7 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
 
     html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s),
                           kinds=cue_kinds)
-    check_output_dir(out)
+    check_output_dir(out, create=False)  # the set makes the folder when it writes (none on failure)
     fmt = {"column_formats": {"beat": "%.3f", "score_qn": "%.4f", "end_qn": "%.4f", "nominal": "%.3f",
                               "nominal_end": "%.3f", "programme": "%.3f", "value": "%.4g"}}
     with OutputSet(out) as outs:
