@@ -168,10 +168,16 @@ def features(
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
     from .audio.read import audio_info
-    from .export.tables import check_output_dir, protect_inputs
+    from .export.tables import check_output_dir, check_targets, input_clash, protect_inputs
 
-    audio_info(audio)                        # the input first, then the folder, then the work
+    info = audio_info(audio)                 # the input first, then the folder, then the work
     check_output_dir(out, create=False)
+    names = [f"{info.path.stem}.features.tsv", f"{info.path.stem}_stim.tsv.gz", f"{info.path.stem}_stim.json"]
+    check_targets(out, names)
+    for name in names:
+        if input_clash(out / name, [audio]) is not None:
+            raise InputError("this output is or links to the recording, which would be overwritten; choose "
+                           "another output folder (-o) or move the recording", path=out / name)
     result = _with_progress(compute_features, audio, rate_hz=rate)
     with protect_inputs([audio]):
         written = write_features(result, out_dir=out)

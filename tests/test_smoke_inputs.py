@@ -264,3 +264,21 @@ def test_outputs_that_cannot_be_written_are_refused_before_the_work(tmp_path, ca
     assert code == 2 and "\n" not in err                 # DESIGN.md: exit 2, one line
     assert ("too long" in err) if case == "long name" else ("take_beats.json: a folder is in the way" in err)
     assert not out.exists() or [p.name for p in out.iterdir()] == ["take_beats.json"]
+
+
+def test_features_refuses_an_output_linked_to_its_recording_before_the_work(tmp_path, capsys, monkeypatch):
+    # inputs are never overwritten; the refusal came after the whole feature computation
+    import stimkit.audio.pipeline as pipeline
+
+    def no_work(*a, **k):
+        raise AssertionError("the features were computed")
+
+    monkeypatch.setattr(pipeline, "compute_features", no_work)
+    wav = _tiny_wav(tmp_path / "take.wav")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "take_stim.tsv.gz").symlink_to(wav)
+    assert main(["features", str(wav), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "take_stim.tsv.gz" in err and "recording" in err and "\n" not in err
+    assert wav.read_bytes()[:4] == b"RIFF" and sorted(p.name for p in out.iterdir()) == ["take_stim.tsv.gz"]
