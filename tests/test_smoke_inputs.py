@@ -6,6 +6,8 @@ them (meter, pickup beat) come from music21's own analysis of the same file. Rec
 WAV files written here.
 """
 
+from pathlib import Path
+
 import music21
 import numpy as np
 import pytest
@@ -282,3 +284,29 @@ def test_features_refuses_an_output_linked_to_its_recording_before_the_work(tmp_
     err = capsys.readouterr().err.strip()
     assert "take_stim.tsv.gz" in err and "recording" in err and "\n" not in err
     assert wav.read_bytes()[:4] == b"RIFF" and sorted(p.name for p in out.iterdir()) == ["take_stim.tsv.gz"]
+
+
+def test_score_far_longer_than_the_recording_is_refused_before_the_fit(tmp_path, capsys, monkeypatch):
+    # one note of 90,000 quarter notes (under the 100,000 limit of stimkit.score.limits): against a
+    # 1 s recording the fit built its templates for 54,000 s (1.9 GB, 90 s) before calling it another
+    # piece; the structure fit tries 0.33-3 times the notated tempo (stimkit.align.structure)
+    import sys as _sys
+
+    import stimkit.align.run as align_run
+
+    _sys.path.insert(0, str(Path(__file__).parent / "score"))
+    from xmlfix import attributes, measure, score, write
+
+    def no_fit(*a, **k):
+        raise AssertionError("the structure fit ran")
+
+    monkeypatch.setattr(align_run, "fit_structure", no_fit)
+    body = attributes(beats=4, beat_type=4, fifths=0) + \
+        "<note><pitch><step>C</step><octave>4</octave></pitch><duration>360000</duration></note>"
+    p = write(tmp_path, "long note.musicxml", score([("P", [measure(1, body)])]))
+    wav = _tiny_wav(tmp_path / "take.wav")
+    out = tmp_path / "out"
+    assert main(["align", str(p), str(wav), "-o", str(out)]) == 1   # DESIGN.md: exit 1, work refused
+    err = capsys.readouterr().err.strip()
+    assert "take.wav" in err and "less than a tenth" in err and "\n" not in err
+    assert not out.exists()
