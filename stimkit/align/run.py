@@ -743,7 +743,7 @@ def _check_room(score, audio_path: Path, span_s) -> None:
     lo, hi = (0.0, total) if span_s is None else (max(float(span_s[0]), 0.0), min(float(span_s[1]), total))
     span_len = max(hi - lo, 0.0)
     nominal = float(score.nominal_duration_s)
-    if span_len < MIN_SHARE_HELD * SCALE_MIN * nominal:
+    if MIN_AUDIO_S <= span_len < MIN_SHARE_HELD * SCALE_MIN * nominal:  # (too short: said below)
         raise WorkFailed(f"the recording{' span' if span_s else ''} lasts {span_len:.1f} s, but the score "
                          f"{score.name} lasts about {nominal:,.0f} s at its notated tempo: even three times "
                          f"as fast the recording could hold less than a tenth of it; check that this is the "
