@@ -373,3 +373,27 @@ def test_unsure_stretch_is_bridged_only_where_the_path_wanders():
     assert spans == [(1.0, 9.0)]
     ends = wander[1] + (q[1:10] - 1) / 8 * (wander[9] - wander[1])   # the notated (even) tempo
     assert np.allclose(tm(q[1:10]), ends, atol=1e-3)
+
+
+@pytest.mark.parametrize("shifts,outcome", [
+    ([0.85] + [1.0] * 11, "doubt"),                      # own key best, ratio 0.85: written, said doubtful
+    ([0.95] + [1.0] * 11, "refused"),                    # own key best but hardly: a different piece
+    ([0.85, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 0.8, 1.0, 1.0, 1.0, 1.0], "refused"),   # another key matches better
+])
+def test_key_test_refuses_or_doubts(scores, recordings, monkeypatch, shifts, outcome):
+    """The key test (path cost in the score's key ÷ best cost in the 11 other keys): above
+    KEY_DOUBT_RATIO, or above KEY_REFUSE_RATIO with another key matching better, the recording is
+    refused as a different piece; between the two with the own key best (a reverberant hall) the
+    alignment is written with a warning and counts as doubtful. Constructed key costs."""
+    import stimkit.align.run as R
+
+    monkeypatch.setattr(R, "key_shift_costs", lambda *a, **k: np.asarray(shifts, dtype=np.float64))
+    if outcome == "refused":
+        with pytest.raises(WorkFailed, match="different piece"):
+            R.align_score(scores["chorale"], recordings["chorale"][0])
+        return
+    res = R.align_score(scores["chorale"], recordings["chorale"][0])
+    assert res.confidence["key_doubt"] and any("check by ear" in w for w in res.warnings)
+    assert any("different piece" in d for d in R.doubts(res))
+    with pytest.raises(WorkFailed, match="doubtful"):
+        R.check_strict(res)
