@@ -83,6 +83,7 @@ from ..timemap import TimeMap
 from . import chroma as _chroma
 from .dtw import StepWeights, _unit, band_margins, downsample, key_shift_costs, multiscale_dtw, path_costs
 from .confidence import bridge_unsure, local_confidence, neighbourhood_min, unreliable_spans
+from .ends import refit_tail
 from .refine import refine
 from .structure import DOUBTFUL_MARGIN, SCALE_MIN, fit_structure
 from .template import HEAD_S, score_features
@@ -534,6 +535,18 @@ def align_score(
         if nom_span > 0 and rec_span > 0 and abs(np.log(rec_span / nom_span / scale)) > np.log(RESCALE_ABOVE):
             scale = rec_span / nom_span
             tmk, S, res, factors, radii, tm1 = first_pass(scale)
+    # the last bars again where the open end squeezed them (ends.refit_tail)
+    n = score.notes
+    last_q = float((n["score_qn"] + n["duration_qn"]).max()) if len(n) else 0.0
+    end_row = int(round((float(tmk(last_q)) - S.start_s) * rate))
+    held = [int(round((float(tmk(q)) - S.start_s) * rate)) for q, _, _ in pts]
+    tail = refit_tail(res["path"], S, A, music_end_row=min(end_row, S.n_frames - 1), onset_weight=ONSET_WEIGHT,
+                      weights=weights, fixed_rows=held)
+    if tail is not None:
+        res["path"] = tail
+        tm1 = path_to_timemap(tail, rate_hz=rate, rec_start_s=A.start_s, tempo_map=tmk, score_start_s=S.start_s)
+        warnings.append("the last bars were squeezed by the first alignment (the performers slowed down or "
+                        "held a pause far longer than notated); they were aligned again")
     report("alignment", 0.8)
     path = res["path"]
     costs = path_costs(path, S.chroma, A.chroma, onset_s=S.onset, onset_r=A.onset, onset_weight=ONSET_WEIGHT)
