@@ -312,6 +312,8 @@ def relate(
                                    "(Benjamini-Hochberg), fdr_by (any dependence) or holm."),
     share_null: str = typer.Option("circular_shift", "--share-null", help="Pseudo boundary sets for the share "
                                    "test: circular_shift or uniform."),
+    ci: str = typer.Option("pseudo", "--ci", help="Interval of each boundary's difference: pseudo (from the "
+                           "pseudo-boundaries), bootstrap (stationary bootstrap) or iid (Welch)."),
     penalty: str = typer.Option("bic_lrv", "--penalty", help="Change-point penalty: bic_lrv (autocorrelation-"
                                 "aware), bic_iid, or a number (in the series' unit squared)."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
@@ -349,6 +351,8 @@ def relate(
         raise InputError("--correction must be fdr_bh, fdr_by or holm")
     if share_null not in ("circular_shift", "uniform"):
         raise InputError("--share-null must be circular_shift or uniform")
+    if ci not in ("pseudo", "bootstrap", "iid"):
+        raise InputError("--ci must be pseudo, bootstrap or iid")
     if penalty not in ("bic_lrv", "bic_iid"):
         try:
             penalty = float(penalty)
@@ -356,7 +360,7 @@ def relate(
             raise InputError("--penalty must be bic_lrv, bic_iid or a positive number") from None
         if not penalty > 0:
             raise InputError("--penalty must be bic_lrv, bic_iid or a positive number")
-    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty)
+    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty, ci_method=ci)
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
                         participant=participant[i] if participant else None) for i, f in enumerate(physio)]
     command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]

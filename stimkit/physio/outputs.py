@@ -77,7 +77,9 @@ COLUMN_INFO = {
     "ci_low": ("Lower end of the 95 % interval of delta (method in ci_method).", "series unit"),
     "ci_high": ("Upper end of the 95 % interval of delta.", "series unit"),
     "ci_method": ("pseudo: from the centred differences at the pseudo-boundaries (assumes stationary "
-                  "noise and an additive shift); iid: Welch's interval.", None),
+                  "noise and an additive shift); iid: Welch's interval; bootstrap: stationary-bootstrap "
+                  "percentile interval (Politis & Romano 1994; block length Politis & White 2004), used only "
+                  "where the block is at most a quarter of the window.", None),
     "hedges_g": ("Hedges' g (Hedges 1981): J x delta / pooled SD, J = 1 - 3/(4(n_a+n_b)-9).", None),
     "t_welch": ("T1: Welch's t (Welch 1947), after vs before; reported, not used for decisions.", None),
     "df_welch": ("Welch-Satterthwaite degrees of freedom of T1.", None),

@@ -26,6 +26,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .artefacts import REASONS, artefact_share, flag_artefacts, gap_free_segments
+from .bootstrap import block_length_constant
 from .series import BeatSeries
 from .span import span_from_events
 from .windows import (BOUNDARY_SUMMARY_COLUMNS, BOUNDARY_TEST_COLUMNS, WindowSetup, boundary_table,
@@ -55,6 +56,7 @@ class RelateSettings:
     n_pseudo: int = 1000
     pseudo_away: bool = True
     ci_method: str = "pseudo"
+    n_bootstrap: int = 1000
     correction: str = "fdr_bh"
     alpha: float = 0.05
     share_null: str = "circular_shift"
@@ -195,10 +197,18 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
         sizes = settings.window_s if fixed else settings.window_beats
         fams = [f for f in settings.families if (bounds["trial_type"] == f).any()]
         a_seeds = kids[0].spawn(max(1, len(sizes) * len(fams)))
+        boot = settings.ci_method == "bootstrap"
+        c_block = block_length_constant([s.x for s in segments]) if boot else float("nan")
+        if boot:
+            meta["bootstrap_block_constant"] = c_block
         k = 0
         for size in sizes:
             for fam in fams:
-                rp, rs = (np.random.default_rng(s) for s in a_seeds[k].spawn(2))
+                # the third child (bootstrap) leaves the first two, and so every other result, as
+                # they are without it
+                kid = a_seeds[k].spawn(3 if boot else 2)
+                rp, rs = (np.random.default_rng(s) for s in kid[:2])
+                rb = np.random.default_rng(kid[2]) if boot else None
                 k += 1
                 tab, summ = family_tests(
                     setup, bounds[bounds["trial_type"] == fam].reset_index(drop=True), size=size,
@@ -206,7 +216,8 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
                     r_share=settings.n_share_null, min_shift_s=settings.min_shift_s,
                     alpha=settings.alpha, correction=settings.correction, ci_method=settings.ci_method,
                     rng_pseudo=rp, rng_share=rs, participant=participant, series=name,
-                    pseudo_away=settings.pseudo_away)
+                    pseudo_away=settings.pseudo_away, rng_boot=rb, block_constant=c_block,
+                    n_boot=settings.n_bootstrap)
                 if verdict == "unreliable":
                     tab["flags"] = tab["flags"].map(lambda f: ",".join([x for x in (f, "unreliable") if x]))
                 bt.append(tab)
@@ -218,6 +229,14 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
     tables["boundary_summary"] = pd.DataFrame(bs, columns=BOUNDARY_SUMMARY_COLUMNS)
     n_tested = int((tables["boundary_tests"]["status"] == "ok").sum())
     meta["boundaries_tested"] = n_tested
+    if "boundaries" in settings.analyses and settings.ci_method == "bootstrap" and n_tested:
+        bt_ok = tables["boundary_tests"][tables["boundary_tests"]["status"] == "ok"]
+        n_fb = int((bt_ok["ci_method"] == "pseudo").sum())
+        meta["bootstrap_fallbacks"] = n_fb
+        if n_fb:
+            warnings.append(f"{where}: {n_fb} of {n_tested} boundary windows are too short for the "
+                            f"stationary bootstrap (block {meta['bootstrap_block_constant']:.2f} N^(1/3) > "
+                            f"N/4): they have the pseudo-boundary interval (ci_method says which)")
 
     # ------------------------------------------------------------------ B
     n_sets = 0
