@@ -315,7 +315,9 @@ def relate(
     ci: str = typer.Option("pseudo", "--ci", help="Interval of each boundary's difference: pseudo (from the "
                            "pseudo-boundaries), bootstrap (stationary bootstrap) or iid (Welch)."),
     penalty: str = typer.Option("bic_lrv", "--penalty", help="Change-point penalty: bic_lrv (autocorrelation-"
-                                "aware), bic_iid, or a number (in the series' unit squared)."),
+                                "aware), mbic (the same scale, Zhang & Siegmund's segment-length term), bic_iid, "
+                                "rate:R (the CROPS solution nearest R changes per minute), or a number (in the "
+                                "series' unit squared)."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
     jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
 ):
@@ -353,13 +355,21 @@ def relate(
         raise InputError("--share-null must be circular_shift or uniform")
     if ci not in ("pseudo", "bootstrap", "iid"):
         raise InputError("--ci must be pseudo, bootstrap or iid")
-    if penalty not in ("bic_lrv", "bic_iid"):
+    bad_penalty = "--penalty must be bic_lrv, mbic, bic_iid, rate:R (R > 0 changes per minute) or a positive number"
+    if penalty.startswith("rate:"):
+        try:
+            ok_rate = float(penalty[5:]) > 0
+        except ValueError:
+            ok_rate = False
+        if not ok_rate:
+            raise InputError(bad_penalty)
+    elif penalty not in ("bic_lrv", "bic_iid", "mbic"):
         try:
             penalty = float(penalty)
         except ValueError:
-            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number") from None
+            raise InputError(bad_penalty) from None
         if not penalty > 0:
-            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number")
+            raise InputError(bad_penalty)
     settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty, ci_method=ci)
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
                         participant=participant[i] if participant else None) for i, f in enumerate(physio)]

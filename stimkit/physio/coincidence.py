@@ -41,7 +41,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .changepoints import detect_times, feature_sets, music_trains, physio_changepoints
+from .changepoints import detect_times, feature_sets, music_trains, penalty_sweep, physio_changepoints
 from .surrogates import iaaft
 from .windows import adjust_pvalues
 
@@ -257,6 +257,9 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
     cps = physio_changepoints(segments, min_size=min_size, rule=s.penalty)
     cps.insert(0, "series", series_name)
     cps.insert(0, "participant", participant)
+    sweep = penalty_sweep(segments, min_size=min_size, rule=s.penalty)
+    sweep.insert(0, "series", series_name)
+    sweep.insert(0, "participant", participant)
     P_all = cps["time"].to_numpy(np.float64)
     P = np.sort(P_all[span.contains(P_all)])
     trains = music_trains(events, features, span, source=s.music_source, score_trains=s.score_trains)
@@ -352,7 +355,7 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
             summary.loc[g.index, "q_bh"] = q
             summary.loc[g.index, "significant"] = [bool(v < s.alpha) if np.isfinite(v) else np.nan for v in q]
     meta["feature_sets_tested"] = int(len(testable)) if infer else 0
-    tables = {"changepoints_physio": cps, "changepoints_music": music,
+    tables = {"changepoints_physio": cps, "penalty_sweep": sweep, "changepoints_music": music,
               "coincidence_curve": pd.DataFrame(curve_rows, columns=CURVE_COLUMNS),
               "coincidence_summary": summary}
     return tables, meta, warnings

@@ -39,6 +39,9 @@ TABLE_INFO = {
     "boundary_summary": "Analysis A: share of significant boundaries per family against its chance band.",
     "changepoints_physio": "Analysis B: change points of the physiological series (ruptures KernelCPD "
                            "linear = PELT l2, jump 1, penalty as stated).",
+    "penalty_sweep": "Analysis B: the detector's penalty sweep (CROPS, Haynes, Eckley & Fearnhead 2017) "
+                     "on each gap-free segment of the series, from 1/4 to 4 times the rule's penalty: "
+                     "every optimal segmentation with its penalty range, count and cost.",
     "changepoints_music": "Analysis B: the music change points used, one row per feature x time (inside "
                           "the pieces).",
     "coincidence_curve": "Analysis B: success rate against the coincidence radius h with its null band, "
@@ -130,9 +133,22 @@ COLUMN_INFO = {
     "correction": ("Multiple-comparison method: fdr_bh, fdr_by or holm.", None),
     "alpha": ("Significance level.", None),
     "cp_index": ("Index of the first value after the change in the series (0-based).", None),
-    "segment": ("Gap-free segment of the series holding the change point (0-based).", None),
-    "penalty": ("Penalty beta of the detector for that segment (bic_lrv: 2 sigma_LR^2 ln n).",
-                "series unit squared"),
+    "segment": ("Gap-free segment of the series (0-based): the one holding the change point, or swept.", None),
+    "penalty": ("Penalty beta per change of the detector for that segment (bic_lrv and mbic: 2 sigma_LR^2 "
+                "ln n; mbic adds sigma_LR^2 ln of each segment's length; rate:R: a penalty inside the "
+                "range of the CROPS solution chosen).", "series unit squared"),
+    "n_values": ("Values in the gap-free segment.", None),
+    "penalty_rule": ("The rule's penalty per change for the segment (the sweep's reference).", "series unit squared"),
+    "penalty_low": ("Smallest penalty at which this segmentation is optimal (within the sweep).",
+                    "series unit squared"),
+    "penalty_high": ("Largest penalty at which this segmentation is optimal (within the sweep).",
+                     "series unit squared"),
+    "factor_low": ("penalty_low / penalty_rule.", None),
+    "factor_high": ("penalty_high / penalty_rule.", None),
+    "n_changepoints": ("Change points of this segmentation in the segment.", None),
+    "cost": ("Unpenalised l2 cost of the segmentation: sum over its pieces of length x variance.",
+             "series unit squared"),
+    "chosen": ("True for the segmentation the rule's penalty gives (none for mbic and rate:R).", None),
     "feature": ("Music feature (a column of the continuous file) or score event kind of the train.", None),
     "source": ("events (feature_change rows), detect (change points of the feature, 2 Hz) or score.",
                None),
@@ -210,7 +226,7 @@ def write_relate(outs, results, *, inputs: dict, paths_base=None, prefix: str = 
     from .. import __version__
 
     written = []
-    names = ["physio_values", "boundary_tests", "boundary_summary", "changepoints_physio",
+    names = ["physio_values", "boundary_tests", "boundary_summary", "changepoints_physio", "penalty_sweep",
              "changepoints_music", "coincidence_curve", "coincidence_summary"]
     key = {"physio_values": "beats"}
     ins = input_records(inputs, paths_base if paths_base is not None else Path.cwd())  # relative paths
