@@ -43,7 +43,7 @@ import pandas as pd
 
 __all__ = ["penalty_value", "detect", "segment", "mbic_partition", "mbic_criterion", "crops", "segment_cost",
            "long_run_variance", "penalty_sweep", "detect_times", "physio_changepoints", "music_trains",
-           "feature_sets", "merge_close", "robust_sd_of_diff", "ar1_from_differences"]
+           "feature_sets", "co_change_times", "merge_close", "robust_sd_of_diff", "ar1_from_differences"]
 
 
 def robust_sd_of_diff(x: np.ndarray) -> float:
@@ -386,9 +386,29 @@ def music_trains(events: pd.DataFrame, features: pd.DataFrame | None, span, *, s
     return out.reset_index(drop=True)
 
 
-def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0.5) -> dict[str, np.ndarray]:
-    """Feature set name -> sorted times: each feature, every pair (``a+b``) and the union
-    (``all``); unions merge events closer than ``merge_s``."""
+def co_change_times(trains: pd.DataFrame, *, k: int, within_s: float = 1.0) -> np.ndarray:
+    """Times where at least ``k`` different features change within ``within_s`` seconds: for
+    every music change point, the change points of the next ``within_s`` seconds; where they
+    name ``k`` or more features, a co-change at the middle of the first and last of them;
+    co-changes closer than ``within_s`` are merged (the first kept)."""
+    if not len(trains):
+        return np.zeros(0)
+    order = np.argsort(trains["time"].to_numpy(np.float64), kind="mergesort")
+    t = trains["time"].to_numpy(np.float64)[order]
+    f = trains["feature"].astype(str).to_numpy()[order]
+    hi = np.searchsorted(t, t + within_s + 1e-9, "right")
+    out = []
+    for i in range(t.size):
+        if len(set(f[i:hi[i]])) >= k:
+            out.append(0.5 * (t[i] + t[hi[i] - 1]))
+    return merge_close(out, within_s=within_s)
+
+
+def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0.5, co_change=(),
+                 co_change_s: float = 1.0) -> dict[str, np.ndarray]:
+    """Feature set name -> sorted times: each feature, every pair (``a+b``), the union
+    (``all``; unions merge events closer than ``merge_s``) and, for each k in ``co_change``, the
+    co-change train ``co-change>=k`` (:func:`co_change_times`)."""
     feats = list(dict.fromkeys(trains["feature"])) if len(trains) else []
     single = {f: np.sort(trains.loc[trains["feature"] == f, "time"].to_numpy(np.float64)) for f in feats}
     out = dict(single)
@@ -397,4 +417,7 @@ def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0
             out[f"{a}+{b}"] = merge_close(np.r_[single[a], single[b]], within_s=merge_s)
     if len(feats) > 1:
         out["all"] = merge_close(np.concatenate(list(single.values())), within_s=merge_s)
+    for k in co_change:
+        if 2 <= int(k) <= len(feats):
+            out[f"co-change>={int(k)}"] = co_change_times(trains, k=int(k), within_s=co_change_s)
     return out

@@ -152,8 +152,8 @@ COLUMN_INFO = {
     "feature": ("Music feature (a column of the continuous file) or score event kind of the train.", None),
     "source": ("events (feature_change rows), detect (change points of the feature, 2 Hz) or score.",
                None),
-    "feature_set": ("The music train: a feature, a pair a+b, or all (union; events < 0.5 s apart merged).",
-                    None),
+    "feature_set": ("The music train: a feature, a pair a+b, all (union; events < 0.5 s apart merged), or "
+                    "co-change>=k (k or more features changing within 1 s).", None),
     "reference": ("physio: S_P, share of physiological CPs with a music CP within h (primary); music: "
                   "S_M, share of music CPs with a physiological CP.", None),
     "window": ("symmetric |p - m| <= h, or music_leads 0 <= p - m - lag <= h.", None),
@@ -164,7 +164,9 @@ COLUMN_INFO = {
     "k_obs": ("Reference events with a coincidence within h.", None),
     "rate_obs": ("k_obs / number of reference events.", None),
     "null_method": ("iaaft (surrogates of the series, re-detected; default), circular_shift (music "
-                    "train rotated), none.", None),
+                    "train rotated), uniform (music times uniform on the pieces), iei_shuffle (music "
+                    "inter-event intervals in random order), value_shuffle (the series' values shuffled and "
+                    "re-detected; a sanity check only), none.", None),
     "q05": ("5th percentile of the null rate.", None),
     "q50": ("Median of the null rate.", None),
     "q95": ("95th percentile of the null rate.", None),

@@ -74,6 +74,8 @@ class RelateSettings:
     score_trains: tuple = ()
     feature_pairs: bool = True
     union_merge_s: float = 0.5
+    co_change: tuple = ()
+    co_change_s: float = 1.0
     coincidence_window: str = "symmetric"
     lag_s: float = 0.0
     h_grid_s: tuple = H_GRID_S
@@ -175,7 +177,7 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
     segments = gap_free_segments(series, reasons, max_run=settings.max_gap_beats, min_length=4 * min_size)
     rho1 = lag1_autocorrelation([s.x for s in segments])
     root = root_seed(seed)
-    kids = root.spawn(3)  # A, B surrogates, B shifts
+    kids = root.spawn(4)  # A, B surrogates, B shifts, B's optional nulls (the first three as before)
     meta = {
         "participant": participant, "series": name, "source": series.source, "column": series.column,
         "kind": series.kind, "unit": series.unit, "rate_hz": series.rate_hz, "clock": series.clock,
@@ -245,7 +247,8 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
 
         b_tables, b_meta, b_warn = coincidence_analysis(
             events, features, series, segments, span, settings=settings, min_size=min_size,
-            seed_surrogates=kids[1], seed_shifts=kids[2], participant=participant, series_name=name,
+            seed_surrogates=kids[1], seed_shifts=kids[2], seed_other=kids[3], participant=participant,
+            series_name=name,
             executor=executor, progress=progress)
         tables.update(b_tables)
         meta.update(b_meta)
