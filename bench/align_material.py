@@ -110,6 +110,18 @@ _CASES: list[tuple[Case, bool]] = [
           variant="out_of_step"), False),
     (Case("parts out of step", "lindenbaum", "schubert/Lindenbaum.xml", 213, bars=24, perform=EXPR,
           variant="out_of_step"), False),
+    # a score file as optical music recognition leaves it (parts unnamed, no tempo marks, misread
+    # pitches, accidentals, rests and ties, a missed key signature, a passage in a wrong clef)
+    (Case("score from OMR", "k458-3-omr", "mozart/k458/movement3.mxl", 221, bars=16, perform=EXPR,
+          variant="misread:1"), True),
+    (Case("score from OMR", "k545-omr", "mozart/k545/movement1_exposition.mxl", 222, bars=16, perform=EXPR,
+          variant="misread:2"), False),
+    (Case("score from OMR", "lindenbaum-omr", "schubert/Lindenbaum.xml", 223, bars=20, perform=EXPR,
+          variant="misread:3"), False),
+    (Case("score from OMR", "bwv10.7-winds-omr", "bach/bwv10.7", 224, perform=EXPR, timbres=WINDS4,
+          variant="misread:4"), False),
+    (Case("score from OMR", "polonaise3-omr", "schumann_clara/polonaise_op1n3.mxl", 981, bars=20,
+          perform=EXPR, variant="misread:5", held_out=True), False),
 ]
 
 CONDITIONS = list(dict.fromkeys(c.condition for c, _ in _CASES))

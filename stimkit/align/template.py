@@ -42,7 +42,7 @@ from numba import njit
 
 from .chroma import RATE_HZ, AlignFeatures, dlnco, finish_chroma
 
-__all__ = ["score_features", "attack_kernel", "attack_of", "ATTACK_BY_NAME", "N_PARTIALS", "PARTIAL_DECAY", "DECAY_S", "RELEASE_S", "HEAD_S", "TAIL_S"]
+__all__ = ["score_features", "attack_kernel", "attack_of", "ATTACK_BY_NAME", "UNNAMED_ATTACK_S", "N_PARTIALS", "PARTIAL_DECAY", "DECAY_S", "RELEASE_S", "HEAD_S", "TAIL_S"]
 
 N_PARTIALS = 6
 PARTIAL_DECAY = 0.55
@@ -133,16 +133,24 @@ ATTACK_BY_NAME = (
 )
 
 
-def attack_of(part_name: str) -> float:
+#: Attack tried for a part whose name says nothing of its instrument ("Part 1", "P2", "Staff"):
+#: that of bowed strings; the second pass multiplies it by 0, 1 or 2 and keeps a longer attack
+#: only where it matches clearly better (:mod:`stimkit.align.refine`), so an unnamed piano keeps
+#: its instant attack.
+UNNAMED_ATTACK_S = 0.10
+
+
+def attack_of(part_name: str, *, unnamed: float = 0.0) -> float:
     """Attack time (s) the template gives the notes of a part called ``part_name``
-    (:data:`ATTACK_BY_NAME`; 0, an instant attack, when the name says nothing)."""
+    (:data:`ATTACK_BY_NAME`; ``unnamed`` -- 0, an instant attack, by default -- when the name
+    says nothing)."""
     import re
 
     name = str(part_name).lower()
     for pattern, attack in ATTACK_BY_NAME:
         if re.search(pattern, name):
             return attack
-    return 0.0
+    return unnamed
 
 
 def score_features(score, *, rate_hz: float = RATE_HZ, time_scale: float = 1.0, place=None,

@@ -28,7 +28,8 @@ import soundfile as sf
 from ..errors import WorkFailed
 from .ensemble import render_ensemble
 from .evaluate import note_truth, score_notes
-from .variants import concert_pitch, excerpt, out_of_step, part_ids, read_musicxml, transposing_part, without_tempo
+from .variants import (concert_pitch, excerpt, misread, out_of_step, part_ids, read_musicxml, transposing_part,
+                       without_tempo)
 
 __all__ = ["Case", "CaseRun", "prepare_case", "run_case", "load_as_performed", "corpus_path", "align_kwargs",
            "wrong_piece_refused", "SR"]
@@ -78,6 +79,7 @@ class Case:
     mains_hz: float = 50.0
     repeats: str = "all"             # what the performers do
     variant: str | None = None       # "clarinet_bb:<part index>", "horn_f:<i>", "out_of_step", "no_tempo",
+    #                                  "misread:<seed>" (as optical music recognition leaves a file),
     #                                  "concert" (the source has transposing parts: play them sounding)
     held_out: bool = False
 
@@ -109,6 +111,9 @@ def _variant_text(text: str, variant: str | None) -> tuple[str, list[str]]:
         return text, []
     if variant == "no_tempo":
         return text, []            # applied to the clean score too (see prepare_case)
+    if variant.startswith("misread"):
+        _, _, seed = variant.partition(":")
+        return misread(text, seed=int(seed or 0))
     if variant == "out_of_step":
         ids = [p for p, _ in part_ids(text)]
         edits = [(ids[-1], 0.35, "drop"), (ids[0], 0.7, "double")] if len(ids) > 1 else [(ids[0], 0.5, "drop")]

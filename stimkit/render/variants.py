@@ -16,6 +16,10 @@ ways real score files differ from what a performance sounds like:
   parts' bars no longer add up to the same lengths.
 - :func:`without_tempo` -- no metronome marks, no ``<sound tempo>``, no words: a score whose
   tempo a reader must assume (stimkit assumes q = 100).
+- :func:`misread` -- the kinds of error optical music recognition leaves in a file: parts
+  called "Part 1", "Part 2" (no instrument names), pitches read a step off, lost accidentals,
+  notes read as rests, ties lost, a key signature missed, a passage read in the wrong clef, and
+  the metronome marks and tempo words lost.
 
 The performance is always rendered from the *clean* score (what the players read correctly); the
 aligner gets the variant.
@@ -32,7 +36,7 @@ from defusedxml.ElementTree import fromstring as _safe_fromstring
 from pathlib import Path
 
 __all__ = ["read_musicxml", "excerpt", "transposing_part", "out_of_step", "without_tempo",
-           "part_ids", "concert_pitch", "TRANSPOSITIONS"]
+           "part_ids", "concert_pitch", "misread", "TRANSPOSITIONS"]
 
 #: instrument -> (name, diatonic, chromatic) of MusicXML ``<transpose>`` (written -> sounding).
 TRANSPOSITIONS = {"clarinet_bb": ("Clarinet in B\u266d", -1, -2), "horn_f": ("Horn in F", -4, -7)}
@@ -264,3 +268,106 @@ def concert_pitch(text: str) -> str:
             for t in at.findall("transpose"):
                 at.remove(t)
     return _dump(root)
+
+
+def _move_head(pitch: ET.Element, diatonic: int, *, keep_alter: bool = False) -> None:
+    """Move a note head ``diatonic`` lines/spaces (a plain head unless ``keep_alter``)."""
+    i = _STEPS.index(pitch.findtext("step")) + diatonic
+    octave = int(pitch.findtext("octave")) + i // 7
+    pitch.find("step").text = _STEPS[i % 7]
+    pitch.find("octave").text = str(octave)
+    al = pitch.find("alter")
+    if al is not None and not keep_alter:
+        pitch.remove(al)
+
+
+def misread(text: str, *, seed: int, rate: float = 0.06, clef_bars: int = 4, names: bool = True,
+            tempo: bool = True) -> tuple[str, list[str]]:
+    """A score as optical music recognition might leave it (the performers read the clean one).
+
+    - every part renamed ``Part <n>`` with its instrument names removed (nothing says what
+      plays it);
+    - metronome marks, ``<sound tempo>`` and words lost (:func:`without_tempo`);
+    - of the pitched notes, a share ``rate`` misread: half a diatonic step off (a head read on
+      the next line or space), a quarter with a lost accidental, a quarter read as a rest of the
+      same length (so bar lengths still add up);
+    - every tie lost with probability ``rate``;
+    - the key signature of the last part missed (its ``fifths`` set to 0, its pitches' written
+      accidentals kept as MusicXML ``<alter>`` -- so only the part's key row changes);
+    - ``clef_bars`` bars of the first part read in the wrong clef (every pitch two diatonic
+      steps too low, as a treble passage read in alto clef).
+
+    ``names`` / ``tempo`` False keep the part names / the tempo marks.
+    Returns the text and one line per kind of change (counts).
+    """
+    import random
+
+    rnd = random.Random(seed)
+    root = _parse(without_tempo(text) if tempo else text)
+    for k, sp in enumerate(root.iter("score-part") if names else (), start=1):
+        pn = sp.find("part-name")
+        if pn is not None:
+            pn.text = f"Part {k}"
+        for tag in ("part-abbreviation", "part-name-display", "part-abbreviation-display"):
+            for e in sp.findall(tag):
+                sp.remove(e)
+        for si in sp.findall("score-instrument"):
+            nm = si.find("instrument-name")
+            if nm is not None:
+                nm.text = f"Instrument {k}"
+        for mi in sp.findall("midi-instrument"):
+            sp.remove(mi)
+    counts = {"step": 0, "accidental": 0, "rest": 0, "tie": 0}
+    parts = root.findall("part")
+    heads_of_chords = set()
+    for bar in root.iter("measure"):
+        ns = bar.findall("note")
+        heads_of_chords.update(id(n) for n, nxt in zip(ns, ns[1:]) if nxt.find("chord") is not None)
+    for part in parts:
+        for note in part.iter("note"):
+            pitch = note.find("pitch")
+            for tag in ("tie",):
+                for t in note.findall(tag):
+                    if rnd.random() < rate:
+                        note.remove(t)
+                        counts["tie"] += 1
+            notations = note.find("notations")
+            if notations is not None:
+                for t in notations.findall("tied"):
+                    if rnd.random() < rate:
+                        notations.remove(t)
+            if pitch is None or note.find("grace") is not None or rnd.random() >= rate:
+                continue
+            u = rnd.random()
+            if u < 0.5:
+                _move_head(pitch, rnd.choice((-1, 1)))   # a plain head on the neighbouring line
+                counts["step"] += 1
+            elif u < 0.75:
+                al = pitch.find("alter")
+                if al is not None:
+                    pitch.remove(al)
+                    counts["accidental"] += 1
+                else:
+                    _shift_pitch(pitch, 0, rnd.choice((-1, 1)))
+                    counts["accidental"] += 1
+            elif note.find("chord") is None and id(note) not in heads_of_chords:
+                note.remove(pitch)
+                note.insert(0, ET.Element("rest"))
+                for e in note.findall("tie") + note.findall("accidental") + note.findall("stem"):
+                    note.remove(e)
+                counts["rest"] += 1
+    lines = [f"{v} {k} misreads" for k, v in counts.items()]
+    if len(parts) > 1:
+        for key in parts[-1].iter("key"):
+            f = key.find("fifths")
+            if f is not None:
+                f.text = "0"
+        lines.append("key signature of the last part missed")
+    bars = parts[0].findall("measure")
+    if clef_bars and len(bars) > clef_bars + 2:
+        first = rnd.randrange(1, len(bars) - clef_bars)
+        for b in bars[first:first + clef_bars]:
+            for pitch in b.iter("pitch"):
+                _move_head(pitch, -2, keep_alter=True)
+        lines.append(f"bars {first + 1}-{first + clef_bars} (positions) of part 1 read in the wrong clef")
+    return _dump(root), lines

@@ -106,7 +106,8 @@ ROBUST_XFAIL = {
                                  for k, _, _, _ in CASES])
 def test_condition_is_robust(runs, key):
     """Every condition: no note lost, the right piece not refused, no gross error, >= 99.5 %
-    within 300 ms -- hard goals, never marked."""
+    within 300 ms -- hard goals; the conditions that still miss them are listed in
+    ``ROBUST_XFAIL`` with the figures measured."""
     from stimkit.render.evaluate import summarize
 
     run = runs(key)
@@ -136,3 +137,32 @@ def test_wrong_piece_is_still_refused(runs):
     a, b = runs("piano-dry"), runs("strings")
     assert wrong_piece_refused(b.aligned_path, a.wav)      # quartet score, piano recording
     assert wrong_piece_refused(a.aligned_path, b.wav)      # piano score, quartet recording
+
+
+def test_score_from_optical_music_recognition(workdir):
+    """A score file as optical music recognition leaves it (:func:`stimkit.render.variants.misread`:
+    parts called "Part 1/2", no tempo marks, 6 % of the pitches, accidentals, rests and ties
+    misread, four bars of the right hand read in a wrong clef), a piano performance of the clean
+    score. Outside the misread passage the hard goals hold (no gross error, >= 99.5 % within
+    300 ms; mir_eval.alignment's window, MIREX's 2 s bound); inside it -- music the file does not
+    describe -- positions may be a few hundred ms off, but the confidence says so (lower there
+    than anywhere else)."""
+    import re
+
+    import numpy as np
+
+    from stimkit.render.evaluate import summarize
+
+    case = Case("score from OMR", "k545-omr", "mozart/k545/movement1_exposition.mxl", 301, bars=12,
+                perform=EXPR, variant="misread:5")
+    run = run_case(prepare_case(case, workdir))
+    assert not run.refused, run.refusal                      # task: no right piece refused
+    clef = next(n for n in run.notes if "wrong clef" in n)
+    a, b = (int(v) for v in re.search(r"bars (\d+)-(\d+)", clef).groups())
+    sc = run.scored
+    inside = sc["index"].between(a - 1, b - 1).to_numpy()   # bar positions are 0-based in the truth
+    whole = summarize(sc)
+    rest = summarize(sc[~inside])
+    assert whole["over_2s"] == 0 and whole["missing"] == 0, whole
+    assert rest["within_300"] >= 0.995, rest
+    assert np.nanmean(sc["confidence"][inside]) < np.nanmean(sc["confidence"][~inside]) - 0.2

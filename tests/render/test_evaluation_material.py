@@ -181,6 +181,27 @@ def test_out_of_step_bars_no_longer_add_up():
     assert sum(lens[3]) < sum(ref_lens) and sum(lens[0]) > sum(ref_lens)   # P4 short, P1 long
 
 
+def test_misread_score_keeps_bar_lengths_and_changes_what_it_says():
+    """The optical-music-recognition variant: parts unnamed, tempo gone, some pitches changed,
+    every bar still as long as in the clean file (misread notes become rests of the same length)."""
+    import music21
+
+    from stimkit.render.variants import excerpt, misread, read_musicxml
+
+    clean = excerpt(read_musicxml(music21.corpus.getWork("bach/bwv66.6")), 8)   # corpus, in place
+    bad, lines = misread(clean, seed=3, rate=0.1)
+    a = music21.converter.parseData(clean, format="musicxml")
+    b = music21.converter.parseData(bad, format="musicxml")
+    assert [p.partName for p in b.parts] == [f"Part {k}" for k in range(1, 5)]
+    assert not b.recurse().getElementsByClass(music21.tempo.MetronomeMark)
+    for pa, pb in zip(a.parts, b.parts):
+        assert ([m.duration.quarterLength for m in pa.getElementsByClass("Measure")]
+                == [m.duration.quarterLength for m in pb.getElementsByClass("Measure")])
+    ma = [n.pitch.midi for n in a.parts[0].recurse().notes]
+    mb = [n.pitch.midi for n in b.parts[0].recurse().notes]
+    assert ma != mb and any("wrong clef" in ln for ln in lines)
+
+
 # -- performers who ignore the marks ----------------------------------------------------------
 
 def test_tempo_factor_rubato_and_melody_lead(melody_score):
