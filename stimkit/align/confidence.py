@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 __all__ = ["FEATURES", "COEFFICIENTS", "design", "neighbourhood_min", "NEIGHBOUR_S", "OFFSET", "MARGIN_CAP", "UNRELIABLE_BELOW", "local_confidence",
-           "unreliable_spans", "bridge_unsure"]
+           "unreliable_spans", "bridge_unsure", "BRIDGE_KEEP_S"]
 
 FEATURES = ("margin_100ms", "margin_300ms", "margin_coarse", "ratio", "pass_gap_s", "tempo_dev")
 #: Margins above this (in mean-cost units) count as this much (a path 50 mismatching frames
@@ -137,10 +137,17 @@ def unreliable_spans(times_s, confidence, score_qn, *, below: float = UNRELIABLE
 UNSURE_BELOW = 0.5
 SURE_FROM = 0.7
 BRIDGE_MAX_S = 60.0
+#: A span is bridged only where the path strays from the bridge by more than this (s) somewhere
+#: inside it: closer than that, the path -- which follows the performers' rubato -- is kept (the
+#: notated tempo between two sure ends is a fallback for paths that wander by seconds, not a
+#: better guess than a path that stays near it). Measured on the quick development renders
+#: (bench_align --quick, ours and TimGM6mb): a mismatch-flagged hall passage whose path was
+#: 20-40 ms off was bridged to 300 ms off.
+BRIDGE_KEEP_S = 0.4
 
 
 def bridge_unsure(timemap, score_qn, confidence, *, nominal, avoid=(), unsure_below: float = UNSURE_BELOW,
-                  sure_from: float = SURE_FROM, max_s: float = BRIDGE_MAX_S):
+                  sure_from: float = SURE_FROM, max_s: float = BRIDGE_MAX_S, keep_s: float = BRIDGE_KEEP_S):
     """Replace the alignment across unsure stretches by the notated tempo between sure neighbours.
 
     Where the music gives the path nothing to hold on to (a pedal note, held chords, a soft
@@ -149,7 +156,8 @@ def bridge_unsure(timemap, score_qn, confidence, *, nominal, avoid=(), unsure_be
     kept the tempo in between: the positions inside are placed by the score's own nominal timing
     (``nominal``: score_qn -> nominal seconds, its ritardandi and fermatas included) scaled to
     fit the two sure ends. Stretches touching ``avoid`` (score_qn intervals of flagged
-    insertions or cuts) are left alone. Returns ``(new timemap, [(qn_start, qn_end), ...])``.
+    insertions or cuts) are left alone, and so are stretches where the path stays within
+    ``keep_s`` of the bridge. Returns ``(new timemap, [(qn_start, qn_end), ...])``.
     """
     from ..timemap import TimeMap
 
@@ -175,6 +183,12 @@ def bridge_unsure(timemap, score_qn, confidence, *, nominal, avoid=(), unsure_be
             continue
         if any(lo <= q[b] and hi >= q[a] for lo, hi in avoid):
             continue
+        na, nb = float(nominal(q[a])), float(nominal(q[b]))
+        if nb > na and t[b] > t[a]:
+            inner = np.linspace(q[a], q[b], 64)
+            bridge = t[a] + (np.asarray(nominal(inner), dtype=np.float64) - na) / (nb - na) * (t[b] - t[a])
+            if np.max(np.abs(np.asarray(timemap(inner), dtype=np.float64) - bridge)) <= keep_s:
+                continue
         spans.append((a, b))
     if not spans:
         return timemap, []

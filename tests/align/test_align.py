@@ -352,3 +352,24 @@ def test_cli_exit_codes_and_nothing_half_written(recordings, tmp_path):
     assert main(["align", chorale, sonata_wav, "-o", str(bad)]) == 1
     assert main(["align", chorale, sonata_wav, "-o", str(bad), "--anchor", "2.x=4"]) == 2
     assert not bad.exists() or not any(bad.iterdir())
+
+
+def test_unsure_stretch_is_bridged_only_where_the_path_wanders():
+    """bridge_unsure: a path that strays by seconds between two sure positions is replaced by
+    the notated tempo between them; a path within BRIDGE_KEEP_S of that bridge (the performers'
+    rubato) is kept. Constructed case, values by hand."""
+    from stimkit.align.confidence import BRIDGE_KEEP_S, bridge_unsure
+    from stimkit.timemap import TimeMap
+
+    q = np.arange(0.0, 11.0)                                  # one position per quarter
+    nominal = TimeMap(q, 0.5 * q, src="score_qn", dst="nominal")
+    conf = np.array([0.9, 0.9, 0.1, 0.1, 0.1, 0.1, 0.1, 0.1, 0.1, 0.9, 0.9])
+    rubato = 0.5 * q + 0.6 * BRIDGE_KEEP_S * np.sin(np.pi * (q - 1) / 8) * (q > 1) * (q < 9)
+    tm, spans = bridge_unsure(TimeMap(q, rubato, src="score_qn", dst="recording"), q, conf, nominal=nominal)
+    assert spans == [] and np.allclose(tm(q), rubato)           # kept: within the rubato bound
+    wander = 0.5 * q + np.where((q > 1) & (q < 9), 2.0, 0.0) * np.sin(np.pi * (q - 1) / 4) ** 2
+    wander = np.maximum.accumulate(wander) + 1e-6 * q          # a monotone path that stalls by 2 s
+    tm, spans = bridge_unsure(TimeMap(q, wander, src="score_qn", dst="recording"), q, conf, nominal=nominal)
+    assert spans == [(1.0, 9.0)]
+    ends = wander[1] + (q[1:10] - 1) / 8 * (wander[9] - wander[1])   # the notated (even) tempo
+    assert np.allclose(tm(q[1:10]), ends, atol=1e-3)
