@@ -51,7 +51,6 @@ import math
 
 import numba
 import numpy as np
-from scipy import signal
 
 from .read import as_block
 
@@ -66,6 +65,7 @@ ABSOLUTE_GATE_LUFS = -70.0
 RELATIVE_GATE_LU = -10.0
 LRA_RELATIVE_GATE_LU = -20.0
 LRA_HOP_S = 0.1
+_TP_CHUNK = 64  # true-peak positions are skipped or computed in chunks of this many
 CLIP_LEVEL = 1.0 - 2.0 ** -15  # a sample frame with any channel this close to full scale counts as clipped
 
 # analog prototype of the K-weighting filter (reproduces BS.1770 Tables 1-2 at 48 kHz)
@@ -78,12 +78,15 @@ _HP_Q = 0.5003270373238773
 
 
 @numba.njit(cache=True, nogil=True)
-def _kweight_pass(x, sos, zi, weights, power, amax):  # pragma: no cover - compiled
+def _kweight_pass(x, sos, zi, weights, power, cmax, offset, chunk):  # pragma: no cover - compiled
     """One pass over ``x`` (n, ch): K-weighting biquads (transposed direct form II, as
     ``scipy.signal.sosfilt``, state ``zi`` (sections, 2, ch) updated in place), the weighted sum of
-    squares per sample into ``power`` and the largest |sample| over channels into ``amax``."""
+    squares per sample into ``power``, and the largest |sample| over channels folded into
+    ``cmax[(i + offset) // chunk]`` (the true-peak chunks). Returns the number of sample frames
+    with a channel at or above ``CLIP_LEVEL``."""
     n, ch = x.shape
     ns = sos.shape[0]
+    clipped = 0
     for i in range(n):
         acc = 0.0
         am = 0.0
@@ -99,15 +102,23 @@ def _kweight_pass(x, sos, zi, weights, power, amax):  # pragma: no cover - compi
                 v = y
             acc += weights[c] * v * v
         power[i] = acc
-        amax[i] = am
+        if am >= CLIP_LEVEL:
+            clipped += 1
+        k = (i + offset) // chunk
+        if am > cmax[k]:
+            cmax[k] = am
+    return clipped
 
 
 @numba.njit(cache=True, nogil=True)
-def _true_peak_chunks(seg, hot, chunk, hp, peak):  # pragma: no cover - compiled
-    """Largest |oversampled value| at the positions of the ``hot`` chunks of ``seg``
-    (history first); output between inputs i-1 and i is ``sum_j hp[j, p] * seg[i - j]``."""
+def _true_peak_chunks(hist, x, hot, chunk, hp, peak):  # pragma: no cover - compiled
+    """Largest |oversampled value| at the positions of the ``hot`` chunks of ``seg = [hist, x]``
+    (``hist``: the last samples of the previous block); the output between inputs i-1 and i is
+    ``sum_j hp[j, p] * seg[i - j]``."""
     T, P = hp.shape
-    n, ch = seg.shape
+    nh = hist.shape[0]
+    n = x.shape[0] + nh
+    ch = x.shape[1]
     for h in hot:
         lo = max(h * chunk, T - 1)
         hi = min(h * chunk + chunk, n)
@@ -116,7 +127,9 @@ def _true_peak_chunks(seg, hot, chunk, hp, peak):  # pragma: no cover - compiled
                 for p in range(P):
                     acc = 0.0
                     for j in range(T):
-                        acc += hp[j, p] * seg[i - j, c]
+                        k = i - j
+                        v = hist[k, c] if k < nh else np.float64(x[k - nh, c])
+                        acc += hp[j, p] * v
                     a = abs(acc)
                     if a > peak:
                         peak = a
@@ -161,8 +174,15 @@ def power_to_lufs(power) -> np.ndarray:
 
 
 def true_peak_filter(taps: int = 48, up: int = 4) -> np.ndarray:
-    """Interpolation low-pass for ``up``-times oversampling (gain ``up``, cut-off at the input Nyquist)."""
-    return signal.firwin(taps, 1.0 / up, window=("kaiser", 8.0)) * up
+    """Interpolation low-pass for ``up``-times oversampling (gain ``up``, cut-off at the input
+    Nyquist): a Kaiser-windowed (beta 8) sinc of ``taps`` taps scaled to unit DC gain, then times
+    ``up`` -- the window method as ``scipy.signal.firwin(taps, 1 / up, window=("kaiser", 8))``
+    computes it (the test compares the two), written with numpy so that the meter does not
+    import ``scipy.signal``."""
+    m = np.arange(taps) - 0.5 * (taps - 1)
+    cut = 1.0 / up  # relative to the Nyquist frequency
+    h = cut * np.sinc(cut * m) * np.kaiser(taps, 8.0)
+    return h / h.sum() * up
 
 
 class EnergyGrid:
@@ -360,57 +380,55 @@ class LoudnessMeter:
         self._taps_phase = self._hphase.shape[0]
         self._l1 = float(np.abs(self._hphase).sum(axis=0).max())
         self._hist = np.zeros((self._taps_phase - 1, self.channels))
-        self._hist_abs = np.zeros(self._taps_phase - 1)
+        self._hist_abs = 0.0  # largest |sample| of the history
         self.clipped_samples = 0
         self.true_peak = 0.0
         self._result = None
 
     # -- feeding -------------------------------------------------------------------------
     def push(self, block: np.ndarray) -> None:
-        x = as_block(block)
+        x = np.ascontiguousarray(as_block(block))
         if x.shape[0] == 0:
             return
         n = x.shape[0]
+        T, C = self._taps_phase, _TP_CHUNK
+        # positions of seg = [T-1 samples of history, x], cut in chunks of C (T - 1 < C)
+        n_in = n + T - 1
+        cmax = np.zeros(-(-n_in // C))
+        cmax[0] = self._hist_abs
         power = np.empty(n)
-        amax = np.empty(n)
-        _kweight_pass(np.ascontiguousarray(x), self._sos, self._zi, self.weights, power, amax)
+        self.clipped_samples += int(_kweight_pass(x, self._sos, self._zi, self.weights, power, cmax,
+                                                  T - 1, C))
         self.grid.push(power)
-        self.clipped_samples += int(np.count_nonzero(amax >= CLIP_LEVEL))
-        self.sample_peak = max(self.sample_peak, float(amax.max()))
+        del power
+        top = float(cmax.max())
+        self.sample_peak = max(self.sample_peak, top)
         if self._tp:
-            self._true_peak_block(x, amax)
+            self._true_peak_block(x, cmax, top)
         self._result = None
 
-    def _true_peak_block(self, x: np.ndarray, amax: np.ndarray) -> None:
+    def _true_peak_block(self, x: np.ndarray, cmax: np.ndarray, top: float) -> None:
         """Raise ``true_peak`` with the 4x-oversampled values of this block.
 
         Output samples between input ``i-1`` and ``i`` are ``sum_j h[4j+p] x[i-j]``; their size is
         at most ``L1 * max|x[i-T+1..i]|`` (``L1`` the largest per-phase tap sum), so only the
-        chunks of positions whose bound exceeds the running peak are computed.
+        chunks of positions whose bound exceeds the running peak are computed. ``cmax`` is the
+        largest |sample| per chunk of ``[T-1 samples of history, x]``.
         """
         T = self._taps_phase
-        self.true_peak = max(self.true_peak, float(amax.max()))
-        # positions i index seg = [T-1 samples of history, x]; output samples between inputs
-        # i-1 and i need seg[i-T+1 .. i]. Bound per chunk of C positions: max |seg| over the chunk
-        # and the chunk before (T - 1 < C).
-        C = 64
-        n = amax.shape[0]
-        n_in = n + T - 1
-        nch = -(-n_in // C)
-        padded = np.zeros(nch * C)
-        padded[: T - 1] = self._hist_abs
-        padded[T - 1:n_in] = amax
-        cmax = padded.reshape(nch, C).max(axis=1)
+        self.true_peak = max(self.true_peak, top)
+        # output samples between inputs i-1 and i need seg[i-T+1 .. i]: bound per chunk from the
+        # chunk and the one before (T - 1 < C)
         bound = cmax.copy()
         bound[1:] = np.maximum(cmax[1:], cmax[:-1])
         hot = np.flatnonzero(bound > self.true_peak / self._l1)
-        seg = np.concatenate([self._hist, x.astype(np.float64, copy=False)], axis=0)
-        self._hist = seg[-(T - 1):].copy()
-        self._hist_abs = padded[n_in - (T - 1):n_in].copy()
+        hist = self._hist
+        self._hist = np.concatenate([hist, x[-(T - 1):].astype(np.float64)], axis=0)[-(T - 1):]
+        self._hist_abs = float(np.abs(self._hist).max())
         if hot.size == 0:
             return
-        self.true_peak = float(_true_peak_chunks(seg, hot.astype(np.int64), C, self._hphase,
-                                                 self.true_peak))
+        self.true_peak = float(_true_peak_chunks(hist, x, hot.astype(np.int64), _TP_CHUNK,
+                                                 self._hphase, self.true_peak))
 
     # -- reading -------------------------------------------------------------------------
     def _grid(self):

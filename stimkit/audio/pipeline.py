@@ -162,8 +162,7 @@ class _Analyser:
         # the native-rate loudness path runs in a worker thread while this one does the spectra
         fut = self._pool.submit(self.loud.push, x)
         try:
-            mono = (x @ np.full(x.shape[1], 1.0 / x.shape[1], dtype=x.dtype) if x.shape[1] > 1
-                    else x[:, 0]).astype(np.float64)
+            mono = _mono_mix(x)
             self.rms.push(mono * mono)
             self._spectra(self.stft.push(self.res.push(mono)))
         finally:
@@ -182,6 +181,21 @@ class _Analyser:
 
         return (cat(self._env, (0,)), cat(self._desc, (0, 5)), cat(self._chroma, (0, 12)),
                 cat(self._rough, (0,)))
+
+
+def _mono_mix(x: np.ndarray) -> np.ndarray:
+    """Mean of the channels of ``x`` (n, channels), summed column by column in ``x``'s own
+    precision (the same values as a matrix-vector product with weights 1/channels, without its
+    slow path for two columns), as float64."""
+    if x.shape[1] == 1:
+        return x[:, 0].astype(np.float64)
+    acc = x[:, 0] + x[:, 1]
+    for c in range(2, x.shape[1]):
+        acc += x[:, c]
+    if x.shape[1] == 2:
+        acc *= x.dtype.type(0.5)
+        return acc.astype(np.float64)
+    return (acc / x.dtype.type(x.shape[1])).astype(np.float64)
 
 
 def _prefetch(iterable, depth: int = 2):

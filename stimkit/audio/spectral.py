@@ -58,7 +58,11 @@ class StftStream:
             return np.zeros((0, self.n_fft // 2 + 1), np.float32), buf
         idx = np.lib.stride_tricks.sliding_window_view(buf, self.n_fft)[:: self.hop][:n]
         spec = scipy.fft.rfft(idx * self.window, axis=1)
-        power = (spec.real * spec.real + spec.imag * spec.imag).astype(np.float32)
+        sq = spec.view(spec.real.dtype).reshape(n, -1, 2)  # (real, imag) pairs, no copy
+        sq = sq * sq
+        power = sq[..., 0] + sq[..., 1]
+        del sq
+        power = power.astype(np.float32, copy=False)
         power *= np.float32(self.mag_scale ** 2)
         self.n_frames += n
         return power, buf[n * self.hop:]

@@ -43,7 +43,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["ChromaStream", "column_safe", "local_key", "harmonic_change", "roughness", "KEY_NAMES",
+__all__ = ["ChromaStream", "chroma_filterbank", "tonal_centroid", "column_safe", "local_key", "harmonic_change", "roughness", "KEY_NAMES",
            "PITCH_CLASSES", "KK_MAJOR", "KK_MINOR", "KEY_WINDOW_S", "N_PEAKS"]
 
 PITCH_CLASSES = ["C", "C#", "D", "Eb", "E", "F", "F#", "G", "Ab", "A", "Bb", "B"]
@@ -62,13 +62,34 @@ N_PEAKS = 20
 ROUGHNESS_MAX_HZ = 5000.0
 
 
+def chroma_filterbank(*, sr: int, n_fft: int) -> np.ndarray:
+    """The STFT chroma filter bank ``(12, n_fft // 2 + 1)``, C first, A440 tuning: D. Ellis's
+    chroma matrix as librosa builds it (``librosa.filters.chroma`` with ``tuning=0``,
+    ``ctroct=5``, ``octwidth=2``, ``norm=2``, ``base_c=True``; the test compares the two). Each
+    FFT bin spreads over the pitch classes with a Gaussian one bin-spacing wide (at least one
+    semitone), the columns are L2-normalised, and a Gaussian over octaves centred on A5
+    (880 Hz, half-width two octaves) weights the bins."""
+    n_chroma = 12
+    freqs = np.linspace(0, sr, n_fft, endpoint=False)[1:]
+    # pitch in semitones above A0 (27.5 Hz, A440 tuning)
+    frqbins = n_chroma * np.log2(freqs / (440.0 / 16))
+    frqbins = np.concatenate(([frqbins[0] - 1.5 * n_chroma], frqbins))
+    binwidth = np.concatenate((np.maximum(frqbins[1:] - frqbins[:-1], 1.0), [1.0]))
+    D = np.subtract.outer(frqbins, np.arange(0, n_chroma, dtype="d")).T
+    half = np.round(n_chroma / 2.0)
+    D = np.remainder(D + half + 10 * n_chroma, n_chroma) - half
+    wts = np.exp(-0.5 * (2 * D / binwidth[None, :]) ** 2)
+    wts = wts / np.sqrt(np.sum(wts * wts, axis=0, keepdims=True))
+    wts = wts * np.exp(-0.5 * ((frqbins / n_chroma - 5.0) / 2.0) ** 2)[None, :]
+    wts = np.roll(wts, -3, axis=0)  # rows from A to rows from C
+    return np.ascontiguousarray(wts[:, : n_fft // 2 + 1], dtype=np.float32)
+
+
 class ChromaStream:
     """Chroma per frame from power spectra ``(frames, bins)``."""
 
     def __init__(self, *, sr: int, n_fft: int):
-        import librosa
-
-        self.fb = librosa.filters.chroma(sr=sr, n_fft=n_fft, tuning=0.0, base_c=True).astype(np.float32)
+        self.fb = chroma_filterbank(sr=sr, n_fft=n_fft)
 
     def push(self, power: np.ndarray) -> np.ndarray:
         raw = power @ self.fb.T  # (frames, 12)
@@ -109,9 +130,30 @@ def local_key(chroma: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray
     return idx, strength
 
 
+def _tonal_centroid_matrix() -> np.ndarray:
+    """Harte et al.'s (2006) 6 x 12 projection of a chroma vector onto the circles of fifths,
+    minor thirds and major thirds (radii 1, 1, 0.5), in the row order librosa's ``tonnetz``
+    uses (sin, cos of each circle)."""
+    dim_map = np.linspace(0, 12, num=12, endpoint=False)
+    scale = np.array([7.0 / 6, 7.0 / 6, 3.0 / 2, 3.0 / 2, 2.0 / 3, 2.0 / 3])
+    V = np.multiply.outer(scale, dim_map)
+    V[::2] -= 0.5  # even rows: sine
+    R = np.array([1.0, 1.0, 1.0, 1.0, 0.5, 0.5])
+    return R[:, None] * np.cos(np.pi * V)
+
+
+def tonal_centroid(chroma: np.ndarray) -> np.ndarray:
+    """The 6-D tonal centroid ``(frames, 6)`` of each frame's L1-normalised chroma
+    ``(frames, 12)`` (Harte et al. 2006; what ``librosa.feature.tonnetz(chroma=...)`` returns,
+    transposed). All-zero frames give zeros."""
+    ch = np.asarray(chroma, dtype=np.float64)
+    total = np.abs(ch).sum(axis=1, keepdims=True)
+    total = np.where(total < np.finfo(np.float64).tiny, 1.0, total)
+    return (ch / total) @ _tonal_centroid_matrix().T
+
+
 def harmonic_change(chroma: np.ndarray) -> np.ndarray:
     """Harte et al. (2006) harmonic change per frame (needs the whole chroma sequence)."""
-    import librosa
     from scipy.ndimage import gaussian_filter1d
 
     ch = np.asarray(chroma)
@@ -123,11 +165,10 @@ def harmonic_change(chroma: np.ndarray) -> np.ndarray:
     step = 1 << 15  # frames per chunk (bounded memory); chunks overlap by the smoothing reach
     for a in range(0, n, step):
         lo, hi = max(0, a - pad), min(n, a + step + pad)
-        tc = librosa.feature.tonnetz(chroma=ch[lo:hi].T.astype(np.float64))
-        tc = np.nan_to_num(tc)
-        tc = gaussian_filter1d(tc, HCDF_SIGMA_FRAMES, axis=1, mode="nearest")
+        tc = np.nan_to_num(tonal_centroid(ch[lo:hi]))
+        tc = gaussian_filter1d(tc, HCDF_SIGMA_FRAMES, axis=0, mode="nearest")
         dd = np.zeros(hi - lo)
-        dd[1:-1] = np.linalg.norm(tc[:, 2:] - tc[:, :-2], axis=0)
+        dd[1:-1] = np.linalg.norm(tc[2:] - tc[:-2], axis=1)
         b = min(n, a + step)
         d[a:b] = dd[a - lo: b - lo]
     d[0] = d[-1] = 0.0
