@@ -56,8 +56,18 @@ def read_musicxml(path) -> str:
                 root = rf[0].get("full-path") if rf else None
             if root is None:
                 root = next(n for n in z.namelist() if n.endswith((".xml", ".musicxml")) and "/" not in n)
-            return z.read(root).decode("utf-8")
-    return path.read_text(encoding="utf-8")
+            return _decode(z.read(root))
+    return _decode(path.read_bytes())
+
+
+def _decode(data: bytes) -> str:
+    """XML bytes to text by their byte-order mark (UTF-16 files exist in the music21 corpus),
+    the encoding declaration dropped (the text is written back as UTF-8)."""
+    if data[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        text = data.decode("utf-16")
+    else:
+        text = data.decode("utf-8-sig")
+    return re.sub(r"^(<\?xml[^>]*?)\s+encoding=[\"'][^\"']*[\"']", r"\1", text, count=1)
 
 
 def _parse(text: str) -> ET.Element:

@@ -373,3 +373,62 @@ def test_unsure_stretch_is_bridged_only_where_the_path_wanders():
     assert spans == [(1.0, 9.0)]
     ends = wander[1] + (q[1:10] - 1) / 8 * (wander[9] - wander[1])   # the notated (even) tempo
     assert np.allclose(tm(q[1:10]), ends, atol=1e-3)
+
+
+@pytest.mark.parametrize("shifts,outcome", [
+    ([0.85] + [1.0] * 11, "doubt"),                      # own key best, ratio 0.85: written, said doubtful
+    ([0.95] + [1.0] * 11, "refused"),                    # own key best but hardly: a different piece
+    ([0.85, 1.0, 1.0, 1.0, 1.0, 1.0, 1.0, 0.8, 1.0, 1.0, 1.0, 1.0], "refused"),   # another key matches better
+])
+def test_key_test_refuses_or_doubts(scores, recordings, monkeypatch, shifts, outcome):
+    """The key test (path cost in the score's key ÷ best cost in the 11 other keys): above
+    KEY_DOUBT_RATIO, or above KEY_REFUSE_RATIO with another key matching better, the recording is
+    refused as a different piece; between the two with the own key best (a reverberant hall) the
+    alignment is written with a warning and counts as doubtful. Constructed key costs."""
+    import stimkit.align.run as R
+
+    monkeypatch.setattr(R, "key_shift_costs", lambda *a, **k: np.asarray(shifts, dtype=np.float64))
+    if outcome == "refused":
+        with pytest.raises(WorkFailed, match="different piece"):
+            R.align_score(scores["chorale"], recordings["chorale"][0])
+        return
+    res = R.align_score(scores["chorale"], recordings["chorale"][0])
+    assert res.confidence["key_doubt"] and any("check by ear" in w for w in res.warnings)
+    assert any("different piece" in d for d in R.doubts(res))
+    with pytest.raises(WorkFailed, match="doubtful"):
+        R.check_strict(res)
+
+
+def test_squeezed_last_bars_are_aligned_again():
+    """ends.refit_tail: a score of eight one-second chords, performed with the fifth held 6 s
+    longer (a fermata held far longer than notated). A path that squeezed the last three chords
+    into 0.2 s after the fifth (what the open end of a subsequence DTW favours) is replaced by
+    one that meets them where they sound; a path that was not squeezed is left alone.
+    Constructed features at 10 Hz, values by hand."""
+    from stimkit.align.chroma import AlignFeatures
+    from stimkit.align.ends import refit_tail
+
+    def unit(pc):
+        v = np.zeros(13)
+        v[pc] = 1.0
+        return v
+
+    sil = unit(12)
+    chords = [0, 4, 7, 2, 5, 9, 11, 3]                 # one pitch class per second
+    score = [sil] * 10 + [unit(c) for c in chords for _ in range(10)] + [sil] * 10
+    rec = [sil] * 10 + [unit(c) for c in chords[:5] for _ in range(10)] + [unit(chords[4])] * 60 \
+        + [unit(c) for c in chords[5:] for _ in range(10)] + [sil] * 30
+    S = AlignFeatures(chroma=np.array(score), onset=np.zeros((len(score), 12)), rate_hz=10.0)
+    A = AlignFeatures(chroma=np.array(rec), onset=np.zeros((len(rec), 12)), rate_hz=10.0)
+    n = S.n_frames
+    good = [(i, i) for i in range(60)]                # silence and chords 1-5 where they sound
+    squeezed = good + [(i, 60 + (i - 60) // 20) for i in range(60, n)]   # 4 s of score in 0.2 s
+    new = refit_tail(np.array(squeezed), S, A, music_end_row=90, onset_weight=0.0)
+    assert new is not None
+    first_col = {}
+    for i, j in new:
+        first_col.setdefault(int(i), int(j))
+    assert first_col[60] == 120 and first_col[70] == 130 and first_col[80] == 140   # where they sound
+    assert all(first_col[i] == i for i in range(40))                             # the head untouched
+    straight = good + [(i, i + 60) for i in range(60, n)]
+    assert refit_tail(np.array(straight), S, A, music_end_row=90, onset_weight=0.0) is None
