@@ -54,7 +54,7 @@ def test_null_series_reject_at_the_nominal_rate():
     # the default (pseudo) 95 % interval covers the true zero difference at its nominal rate
     # (PHYSIO-STATS 2.2 measured 94 % on AR(1), phi 0.7, N 20): one boundary per series, so
     # the runs are independent, within the binomial 99 % band around 0.95. (Over all boundaries
-    # of a run, which share one null, the measured coverage is 91-93 %: see docs/physiology.md.)
+    # of a run, which share one null, it measured 91-93 %; the bench measures 93-96 % on longer series.)
     lo, hi = binomial_band(runs, 0.95)
     assert lo <= np.mean(covered) <= hi
 
