@@ -168,10 +168,16 @@ def features(
     """Per-frame loudness, rhythm, spectral, tonal and silence features of a recording."""
     from .audio.pipeline import compute_features, summary_table, write_features
     from .audio.read import audio_info
-    from .export.tables import check_output_dir, protect_inputs
+    from .export.tables import check_output_dir, check_targets, input_clash, protect_inputs
 
-    audio_info(audio)                        # the input first, then the folder, then the work
+    info = audio_info(audio)                 # the input first, then the folder, then the work
     check_output_dir(out, create=False)
+    names = [f"{info.path.stem}.features.tsv", f"{info.path.stem}_stim.tsv.gz", f"{info.path.stem}_stim.json"]
+    check_targets(out, names)
+    for name in names:
+        if input_clash(out / name, [audio]) is not None:
+            raise InputError("this output is or links to the recording, which would be overwritten; choose "
+                           "another output folder (-o) or move the recording", path=out / name)
     result = _with_progress(compute_features, audio, rate_hz=rate)
     with protect_inputs([audio]):
         written = write_features(result, out_dir=out)
@@ -200,8 +206,9 @@ def align(
 ):
     """Align the score to the recording: the recording time of every note-onset position."""
     from .align.run import align_files, check_strict, summary_lines, write_alignment
-    from .export.tables import protect_inputs
+    from .export.tables import check_output_dir, protect_inputs
 
+    check_output_dir(out, create=False)      # the folder before the work (nothing is made yet)
     result = _with_progress(align_files, score, audio, anchors=anchor, force=force,
                             repeats=_repeats_option(repeats))
     if strict:
@@ -340,6 +347,10 @@ def relate(
         raise InputError(f"give one --participant per physiological file ({len(physio)}), or none")
     if not 1 <= jobs <= 64 or surrogates < 19 or pseudo_boundaries < 19:
         raise InputError("--jobs must be 1-64; --surrogates and --pseudo-boundaries at least 19")
+    from .timeline.clock import MAX_OFFSET_S
+
+    if not abs(offset_s) <= MAX_OFFSET_S:
+        raise InputError(f"--offset-s must be seconds within +-{MAX_OFFSET_S:.0e}, got {offset_s:.6g}")
     if not 0.5 <= max_radius_s <= 60:
         raise InputError("--max-radius-s must be between 0.5 and 60 s")
     h = tuple(round(0.5 * k, 1) for k in range(1, int(round(max_radius_s / 0.5)) + 1))

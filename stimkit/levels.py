@@ -61,8 +61,10 @@ COLUMN_INFO: dict[str, tuple[str, str, str | None]] = {
                  "(repeats expanded).", "quarter notes"),
     "nominal": ("Nominal time", "Seconds from the start of the piece at the notated tempo.", "s"),
     "recording": ("Recording time", "Seconds from the first sample of the recording file.", "s"),
-    "confidence": ("Alignment confidence", "How well the score and the recording agree around "
-                   "this event, from 0 (no agreement) to 1; n/a where no alignment is involved.", None),
+    "confidence": ("Alignment confidence", "The probability, from 0 to 1, that the event is placed "
+                   "within 100 ms of where it sounded, from a model of the alignment around it fitted "
+                   "on rendered performances; under 0.5 the place is worth checking by ear. n/a where "
+                   "no alignment is involved.", None),
     "source": ("Source", "Where the time comes from: alignment (score markings placed by the "
                "alignment), audio (silences and feature changes) or sync (sync marks).", None),
     "part": ("Part", "Score part(s) carrying the marking, or 'all'.", None),

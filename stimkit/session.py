@@ -410,6 +410,10 @@ def _physio_tables(data: dict, bad, rel) -> tuple[list, dict]:
             bad(f"{where}: offset_s must be a number of seconds (added to the file's times)", "physio", i,
                 "offset_s")
             off = 0.0
+        elif abs(float(off)) > _MAX_CLOCK_S:
+            bad(f"{where}: offset_s = {float(off):.6g} is beyond +-{_MAX_CLOCK_S:.0e} s; give the shift "
+                f"between the file's clock and the recorder's in seconds", "physio", i, "offset_s")
+            off = 0.0
         label = p.get("participant")
         key = (label or path.name, kind, p.get("column"))
         if key in seen:

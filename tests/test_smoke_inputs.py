@@ -6,6 +6,8 @@ them (meter, pickup beat) come from music21's own analysis of the same file. Rec
 WAV files written here.
 """
 
+from pathlib import Path
+
 import music21
 import numpy as np
 import pytest
@@ -224,3 +226,87 @@ def test_absurd_offset_in_a_session_file_names_its_line(tmp_path, capsys):
     sess.write_text(f'recording = "take.wav"\n[sync]\noffset_s = 1e300\n[[piece]]\nscore = "{CHORALE}"\n')
     assert main(["annotate", str(sess)]) == 2
     assert "line 3:" in capsys.readouterr().err
+
+
+def test_absurd_physiology_offsets_are_refused_in_one_line(tmp_path, capsys):
+    # the clock limit (stimkit.timeline.clock.MAX_OFFSET_S) holds for a physiological file's
+    # stated shift too: 1e300 s was accepted and came back as a 300-digit coverage complaint
+    _tiny_wav(tmp_path / "take.wav")
+    (tmp_path / "beats.tsv").write_text("time\trr\n1.0\t800\n", "utf-8")
+    sess = tmp_path / "s.toml"
+    sess.write_text(f'recording = "take.wav"\n[[piece]]\nscore = "{CHORALE}"\n[[physio]]\n'
+                    f'file = "beats.tsv"\noffset_s = 1e300\n')
+    assert main(["annotate", str(sess)]) == 2
+    err = capsys.readouterr().err
+    assert "line 6:" in err and "offset_s" in err and len(err) < 400
+    assert main(["relate", str(tmp_path / "e_events.tsv"), str(tmp_path / "beats.tsv"),
+                 "--offset-s", "1e300", "-o", str(tmp_path / "rel")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "--offset-s" in err and "\n" not in err and not (tmp_path / "rel").exists()
+
+
+@pytest.mark.parametrize("case", ["long name", "folder in the way"])
+def test_outputs_that_cannot_be_written_are_refused_before_the_work(tmp_path, capsys, monkeypatch, case):
+    # a recording name that makes "<name>_events.tsv" longer than the 255 bytes a name may have
+    # (POSIX NAME_MAX on common file systems), or a folder named like an output: both were found
+    # only when writing, after the whole analysis
+    import stimkit.timeline.run as chain
+
+    def no_work(*a, **k):
+        raise AssertionError("the analysis ran")
+
+    monkeypatch.setattr(chain, "analyse_recording", no_work)
+    name = ("y" * 245 if case == "long name" else "take") + ".wav"
+    _tiny_wav(tmp_path / name)
+    out = tmp_path / "out"
+    if case == "folder in the way":
+        (out / "take_beats.json").mkdir(parents=True)
+    code = main(["annotate", "--score", str(CHORALE), "--audio", str(tmp_path / name), "-o", str(out)])
+    err = capsys.readouterr().err.strip()
+    assert code == 2 and "\n" not in err                 # DESIGN.md: exit 2, one line
+    assert ("too long" in err) if case == "long name" else ("take_beats.json: a folder is in the way" in err)
+    assert not out.exists() or [p.name for p in out.iterdir()] == ["take_beats.json"]
+
+
+def test_features_refuses_an_output_linked_to_its_recording_before_the_work(tmp_path, capsys, monkeypatch):
+    # inputs are never overwritten; the refusal came after the whole feature computation
+    import stimkit.audio.pipeline as pipeline
+
+    def no_work(*a, **k):
+        raise AssertionError("the features were computed")
+
+    monkeypatch.setattr(pipeline, "compute_features", no_work)
+    wav = _tiny_wav(tmp_path / "take.wav")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "take_stim.tsv.gz").symlink_to(wav)
+    assert main(["features", str(wav), "-o", str(out)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "take_stim.tsv.gz" in err and "recording" in err and "\n" not in err
+    assert wav.read_bytes()[:4] == b"RIFF" and sorted(p.name for p in out.iterdir()) == ["take_stim.tsv.gz"]
+
+
+def test_score_far_longer_than_the_recording_is_refused_before_the_fit(tmp_path, capsys, monkeypatch):
+    # one note of 90,000 quarter notes (under the 100,000 limit of stimkit.score.limits): against a
+    # 1 s recording the fit built its templates for 54,000 s (1.9 GB, 90 s) before calling it another
+    # piece; the structure fit tries 0.33-3 times the notated tempo (stimkit.align.structure)
+    import sys as _sys
+
+    import stimkit.align.run as align_run
+
+    _sys.path.insert(0, str(Path(__file__).parent / "score"))
+    from xmlfix import attributes, measure, score, write
+
+    def no_fit(*a, **k):
+        raise AssertionError("the structure fit ran")
+
+    monkeypatch.setattr(align_run, "fit_structure", no_fit)
+    body = attributes(beats=4, beat_type=4, fifths=0) + \
+        "<note><pitch><step>C</step><octave>4</octave></pitch><duration>360000</duration></note>"
+    p = write(tmp_path, "long note.musicxml", score([("P", [measure(1, body)])]))
+    wav = _tiny_wav(tmp_path / "take.wav")
+    out = tmp_path / "out"
+    assert main(["align", str(p), str(wav), "-o", str(out)]) == 1   # DESIGN.md: exit 1, work refused
+    err = capsys.readouterr().err.strip()
+    assert "take.wav" in err and "less than a tenth" in err and "\n" not in err
+    assert not out.exists()

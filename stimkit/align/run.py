@@ -85,7 +85,7 @@ from .dtw import StepWeights, _unit, band_margins, downsample, key_shift_costs, 
 from .confidence import bridge_unsure, local_confidence, neighbourhood_min, unreliable_spans
 from .ends import refit_tail
 from .refine import refine
-from .structure import DOUBTFUL_MARGIN, fit_structure
+from .structure import DOUBTFUL_MARGIN, SCALE_MIN, fit_structure
 from .template import HEAD_S, score_features
 from .warp import (
     RATIO_BAD,
@@ -137,6 +137,12 @@ MIN_AUDIO_S = 1.0
 SILENT_DBFS = -70.0
 #: A recording longer than this many times the score's nominal length is searched for the piece.
 LONG_FACTOR = 3.0
+#: A recording (or span) that could hold less than this share of the score even at the fastest
+#: tempo the structure fit tries (``SCALE_MIN`` times the notated length) is refused before the
+#: score's templates are built: a 600-byte score of 90,000 quarter notes against a 1 s recording
+#: took 1.9 GB and 90 s before being refused as another piece. A recording of a part of the piece
+#: (a third, say) is still aligned, with a warning.
+MIN_SHARE_HELD = 0.1
 #: Mean local-cost ratio a one-axis run needs to be flagged (a held chord matched to a longer hold
 #: runs flat at low cost and is not a cut).
 FLAG_MIN_RATIO = 0.6
@@ -454,6 +460,7 @@ def align_score(
         if progress is not None:
             progress(task, frac)
 
+    _check_room(score, audio_path, span_s)
     A = _chroma.audio_features(audio_path, span_s=span_s, progress=progress)
     span_len = A.meta["end_s"] - A.start_s
     if span_len < MIN_AUDIO_S:
@@ -756,6 +763,23 @@ def align_score(
                        unreliable=unreliable)
 
 
+def _check_room(score, audio_path: Path, span_s) -> None:
+    """Refuse (:class:`WorkFailed`) a recording or span that could hold less than
+    :data:`MIN_SHARE_HELD` of the score even at the fastest tempo the fit tries -- before any
+    feature or template is computed (the length comes from the file's header)."""
+    from ..audio.read import audio_info
+
+    total = float(audio_info(audio_path).duration_s)
+    lo, hi = (0.0, total) if span_s is None else (max(float(span_s[0]), 0.0), min(float(span_s[1]), total))
+    span_len = max(hi - lo, 0.0)
+    nominal = float(score.nominal_duration_s)
+    if MIN_AUDIO_S <= span_len < MIN_SHARE_HELD * SCALE_MIN * nominal:  # (too short: said below)
+        raise WorkFailed(f"the recording{' span' if span_s else ''} lasts {span_len:.1f} s, but the score "
+                         f"{score.name} lasts about {nominal:,.0f} s at its notated tempo: even three times "
+                         f"as fast the recording could hold less than a tenth of it; check that this is the "
+                         f"right score and recording", path=audio_path)
+
+
 def align_files(score_path, audio_path, *, anchors=(), force: bool = False, repeats="auto",
                 progress=None) -> AlignResult:
     """Load ``score_path`` (:func:`stimkit.score.parse.load_score`) and :func:`align_score` it
@@ -812,7 +836,7 @@ def write_alignment(result: AlignResult, *, out_dir) -> list[Path]:
     """
     from ..export.tables import OutputSet, check_output_dir
 
-    out = check_output_dir(out_dir)
+    out = check_output_dir(out_dir, create=False)  # the set makes the folder (none on failure)
     table = result.notes[NOTE_TABLE_COLUMNS]
     with OutputSet(out) as outs:
         outs.write_tsv(f"{result.name}.alignment.tsv", table,

@@ -53,6 +53,7 @@ __all__ = [
     "to_json_text",
     "gzip_bytes",
     "check_output_dir",
+    "check_targets",
     "atomic_write_bytes",
     "is_missing",
     "protect_inputs",
@@ -195,6 +196,30 @@ def check_output_dir(out_dir: str | Path, *, create: bool = True) -> Path:
     except OSError as exc:  # e.g. a component longer than the file system allows
         raise from_os_error(exc, path=out, doing="checking the output folder") from None
     return out
+
+
+def check_targets(out_dir: str | Path, names) -> None:
+    """Refuse, before the work, output names the run could not write: a name longer than the file
+    system allows, a folder where a file goes, a file where a folder goes (:class:`InputError`).
+    The same checks run again when the outputs are written (:class:`OutputSet`)."""
+    out = Path(out_dir)
+    limit = _name_max(_nearest_existing(out.absolute()))
+    for name in names:
+        target = out / name
+        for part in Path(name).parts:
+            if len(part.encode("utf-8")) > limit:
+                raise InputError(f"output file name too long ({len(part.encode('utf-8'))} bytes, the "
+                                 f"file system allows {limit}); use shorter [bids] labels or names, or "
+                                 f"a shorter recording file name", path=target)
+        if target.is_dir() and not target.is_symlink():
+            raise InputError("a folder is in the way of this output; move or rename it and rerun",
+                             path=target)
+        parent = target.parent
+        while parent != out and parent != parent.parent:
+            if os.path.lexists(parent) and not parent.is_dir():
+                raise InputError("a file is in the way of an output folder; move or rename it and rerun",
+                                 path=parent)
+            parent = parent.parent
 
 
 def atomic_write_bytes(path: str | Path, data: bytes) -> None:

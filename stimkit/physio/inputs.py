@@ -14,6 +14,7 @@ What it does
 
 from __future__ import annotations
 
+import os
 import re
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -147,13 +148,6 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
     if len(set(keys)) != len(keys):
         raise InputError("two physiological files have the same participant and series; give each its "
                          "own participant label")
-    kids = root_seed(seed).spawn(len(specs))
-    results, warnings = [], []
-    for spec, label, s, kid in zip(specs, labels, series, kids):
-        r = relate(events, features, s, settings=settings, seed=kid, participant=label, executor=executor,
-                   progress=progress)
-        results.append(r)
-        warnings.extend(r.warnings)
     inputs = {"events": Path(events_path)}
     if stim_path is not None:
         inputs["stim"] = Path(stim_path)
@@ -162,7 +156,29 @@ def relate_files(events_path, specs: list[PhysioSpec], *, out_dir, stim_path=Non
         side = Path(spec.file).with_name(Path(spec.file).name.replace(".tsv.gz", ".json"))
         if side != Path(spec.file) and side.is_file():
             inputs[f"physio_sidecar:{label}:{side.name}"] = side
-    out_dir = check_output_dir(out_dir)  # only now: a refused input leaves no folder behind
-    with OutputSet(out_dir) as outs:
+    # before the work: the folder can be written (nothing is made yet) and no input would be replaced
+    check_output_dir(out_dir, create=False)
+    for src in inputs.values():
+        if _relate_output_name(src.name) and os.path.abspath(src.parent) == os.path.abspath(out_dir):
+            raise InputError("this input has the name of an output of relate and would be overwritten; "
+                             "choose another output folder (-o) or move the file", path=src)
+    kids = root_seed(seed).spawn(len(specs))
+    results, warnings = [], []
+    for spec, label, s, kid in zip(specs, labels, series, kids):
+        r = relate(events, features, s, settings=settings, seed=kid, participant=label, executor=executor,
+                   progress=progress)
+        results.append(r)
+        warnings.extend(r.warnings)
+    out_dir = Path(out_dir)
+    with OutputSet(out_dir, inputs=inputs.values()) as outs:  # refuses any target that is an input
         written = write_relate(outs, results, inputs=inputs, command=command)
     return RelateRun(results=results, written=[Path(w) for w in written], warnings=warnings, out_dir=out_dir)
+
+
+def _relate_output_name(name: str) -> bool:
+    """True for a file name that :func:`relate_files` writes (its tables, sidecars, record and figures)."""
+    from .outputs import TABLE_NAMES
+
+    stems = set(TABLE_NAMES) | {"relate"}
+    return (any(name in (f"{n}.tsv", f"{n}.json") for n in stems)
+            or (name.endswith(".png") and name.startswith(("forest_", "coincidence_"))))

@@ -216,6 +216,11 @@ def _sidecar(name: str, table: pd.DataFrame, *, common: dict) -> dict:
 _FORMATS = {"time": "%.6f", "onset": "%.6f", "h": "%.1f"}
 
 
+#: The tables written by :func:`write_relate` (each as ``.tsv`` and ``.json``), in order.
+TABLE_NAMES = ("physio_values", "boundary_tests", "boundary_summary", "changepoints_physio", "penalty_sweep",
+               "changepoints_music", "coincidence_curve", "coincidence_summary")
+
+
 def write_relate(outs, results, *, inputs: dict, paths_base=None, prefix: str = "", command=None,
                  figures: bool = True, figures_out: dict | None = None) -> list[Path]:
     """Stage every relate output of ``results`` (a list of RelateResult) in ``outs``.
@@ -228,8 +233,7 @@ def write_relate(outs, results, *, inputs: dict, paths_base=None, prefix: str = 
     from .. import __version__
 
     written = []
-    names = ["physio_values", "boundary_tests", "boundary_summary", "changepoints_physio", "penalty_sweep",
-             "changepoints_music", "coincidence_curve", "coincidence_summary"]
+    names = list(TABLE_NAMES)
     key = {"physio_values": "beats"}
     ins = input_records(inputs, paths_base if paths_base is not None else Path.cwd())  # relative paths
     settings = results[0].meta["settings"] if results else {}

@@ -15,7 +15,9 @@ one note of a million quarter notes, a 44-byte MIDI file with one note of 2**28 
 - :func:`read_midi` reads a Standard MIDI File with music21's low-level reader, then bounds its
   length (ticks / ticks per quarter) and its note count before music21 makes bars of it;
 - :func:`check_length` refuses a score longer than ``MAX_TOTAL_QN`` quarter notes;
-- :func:`check_measure_number` refuses bar numbers beyond ``MAX_MEASURE_NUMBER``.
+- :func:`check_measure_number` refuses bar numbers beyond ``MAX_MEASURE_NUMBER``;
+- :func:`check_xml_tree` and :func:`read_midi` refuse a time signature of more than
+  ``MAX_BEATS_PER_BAR`` beats (its numerator, summed over a composite one such as 3+2).
 
 Conventions (project limits, sized from measurements; raise them here if a real score needs it)
 ----------------------------------------------------------------------------------------------
@@ -29,6 +31,11 @@ Conventions (project limits, sized from measurements; raise them here if a real 
 - ``MAX_TOTAL_QN`` = 100,000 quarter notes is more than eight hours even at quarter = 208, the
   top of a metronome's scale (common knowledge): no performance is that long, so a longer score
   is a damaged file (typically one absurd ``<duration>``).
+- ``MAX_BEATS_PER_BAR`` = 128: music21 builds a meter's accent pattern in a time that grows
+  faster than the square of its beats (*measured*, music21 10.5: 64 beats 0.4 s, 128 beats
+  1.5 s, 300 beats 8.5 s, 1000 beats 73 s; a 1,000,000/4 bar never finished), so a file of a
+  few hundred bytes could hold the machine. Real meters have a few dozen beats at most, even
+  the long unmeasured bars of cadenzas that notation programs export as one large meter.
 - ``MAX_MIDI_BYTES`` = 4 MB: music21 makes two Python objects per MIDI event; a one-hour piano
   performance is about 1 MB (common experience with Standard MIDI Files).
 All errors are :class:`stimkit.errors.InputError` (exit 2) naming the file and what to do.
@@ -40,7 +47,7 @@ from pathlib import Path
 
 from ..errors import InputError
 
-__all__ = ["MAX_XML_BYTES", "MAX_MARKUP", "MAX_NOTES", "MAX_MODEL_MB", "KB_PER_ELEMENT", "MAX_TOTAL_QN", "MAX_MEASURE_NUMBER",
+__all__ = ["MAX_XML_BYTES", "MAX_MARKUP", "MAX_BEATS_PER_BAR", "check_meter", "MAX_NOTES", "MAX_MODEL_MB", "KB_PER_ELEMENT", "MAX_TOTAL_QN", "MAX_MEASURE_NUMBER",
            "MAX_MIDI_BYTES", "read_bounded", "check_xml_tree", "read_midi", "check_length",
            "check_measure_number"]
 
@@ -53,6 +60,7 @@ KB_PER_ELEMENT = {"note": 4.7, "measure": 7.5, "direction": 4.0}
 MAX_TOTAL_QN = 100_000.0
 MAX_MEASURE_NUMBER = 1_000_000
 MAX_MIDI_BYTES = 4_000_000
+MAX_BEATS_PER_BAR = 128
 _CHUNK = 1 << 20
 
 
@@ -77,9 +85,40 @@ def read_bounded(fh, *, path: Path, what: str = "score") -> bytes:
     return b"".join(chunks)
 
 
+def check_meter(beats: float, *, path: Path, where: str = "", shown: str = "") -> None:
+    """Refuse a time signature of more than ``MAX_BEATS_PER_BAR`` beats (see the module notes)."""
+    if not beats <= MAX_BEATS_PER_BAR:
+        shown = shown if len(shown) <= 24 else shown[:20] + "..."
+        raise InputError(f"the time signature {shown}{where} has more than {MAX_BEATS_PER_BAR} beats "
+                         "in a bar, beyond any real meter (a damaged or hostile file?); fix that "
+                         "time signature or export the score again", path=path)
+
+
+def _numerator(text: str) -> float:
+    """Beats of a MusicXML ``<beats>`` text (``3``, ``3+2``); NaN when unreadable."""
+    try:
+        return float(sum(float(x) for x in str(text).split("+")))
+    except (TypeError, ValueError, OverflowError):
+        return float("nan")
+
+
+def _check_meters(root, *, path: Path) -> None:
+    for m in root.iter("measure"):
+        for t in m.iter("time"):
+            nums = [(b.text or "").strip() for b in t.iter("beats")]
+            beats = sum(_numerator(x) for x in nums if x) if nums else 0.0
+            if beats != beats:  # NaN: music21 says what it cannot read
+                continue
+            kinds = [(b.text or "").strip() for b in t.iter("beat-type")]
+            shown = " + ".join(f"{a}/{b}" for a, b in zip(nums, kinds)) or "+".join(nums)
+            check_meter(beats, path=path, where=f" at bar {m.get('number', '?')}", shown=shown)
+
+
 def check_xml_tree(root, *, path: Path) -> None:
     """Refuse a checked MusicXML tree with more than ``MAX_NOTES`` notes, or whose music21 objects
-    would take more than ``MAX_MODEL_MB`` (estimated from its notes, bars and directions)."""
+    would take more than ``MAX_MODEL_MB`` (estimated from its notes, bars and directions), or with a
+    time signature of more than ``MAX_BEATS_PER_BAR`` beats."""
+    _check_meters(root, path=path)
     counts = {tag: sum(1 for _ in root.iter(tag)) for tag in KB_PER_ELEMENT}
     n = counts["note"]
     if n > MAX_NOTES:
@@ -116,7 +155,7 @@ def check_measure_number(number, *, path: Path) -> None:
 
 def read_midi(path: Path):
     """Read a Standard MIDI File into a ``music21.midi.MidiFile`` after bounding its size, its
-    length in quarter notes and its number of notes (before any bars are made)."""
+    length in quarter notes, its number of notes and its meters (before any bars are made)."""
     from music21 import midi
 
     size = path.stat().st_size
@@ -141,6 +180,10 @@ def read_midi(path: Path):
                 ticks += int(ev.time or 0)
             elif getattr(ev, "type", None) == midi.ChannelVoiceMessages.NOTE_ON and getattr(ev, "velocity", 0):
                 notes += 1
+            elif getattr(ev, "type", None) == midi.MetaEvents.TIME_SIGNATURE and ev.data:
+                data = bytes(ev.data, "latin-1") if isinstance(ev.data, str) else bytes(ev.data)
+                nn, dd = data[0], (data[1] if len(data) > 1 else 2)
+                check_meter(float(nn), path=path, shown=f"{nn}/{2 ** dd if dd <= 10 else f'2^{dd}'}")
         longest = max(longest, ticks)
     check_length(longest / tpq, path=path)
     if notes > MAX_NOTES:

@@ -50,9 +50,10 @@ COLUMN_DESCRIPTIONS: dict[str, tuple[str, str, str | None]] = {
     "label": ("Label", "What the marking says (e.g. 'mf', 'Andante (quarter = 84)', 'D major').", None),
     "measure": ("Measure", "Bar number as printed (a pickup may be 0); for a mark at the end of a bar "
                 "(barline, Fine) the bar that carries it.", None),
-    "pass": ("Pass", "1 the first time a printed bar is played, 2 for its repeat, ...", None),
-    "beat": ("Beat", "1-based beat within the bar in the bar's beat unit (6/8 has two beats); a mark "
-             "at the end of a bar has the beat after the last one.", None),
+    "pass": ("Pass", "Which playing of the printed bar this is: 1 the first time, 2 on its first "
+             "repeat, and so on.", None),
+    "beat": ("Beat", "Beat within the bar, counted from 1 in the bar's beat unit (6/8 has two "
+             "beats); a mark at the end of a bar has the beat after the last one.", None),
     "score_qn": ("Score position", "Quarter notes from the start of the piece as performed "
                  "(repeats expanded unless --no-repeats).", "quarter notes"),
     "end_qn": ("Score end", "End of a marking that spans time (hairpin, ramp, fermata, pause, "
@@ -174,7 +175,7 @@ def boundaries_sidecar(model: ScoreModel, *, name: str, start_s: float) -> dict:
         },
         "TempoMap": {
             **tm.to_dict(),
-            "Description": "score_qn -> nominal seconds, piecewise linear between knots",
+            "Description": "The map from score_qn to nominal seconds, piecewise linear between its knots.",
             "Settings": tempo_settings(),
             "Segments": tm.meta.get("segments", []),
             "Fermatas": tm.meta.get("fermatas", []),
@@ -235,7 +236,7 @@ def make_plan(paths, *, out_dir, expand_repeats: bool = True, gap_s: float = 30.
 
     html = cue_sheet_html(models=models, names=names, tables=tables, programme=programme, gap_s=float(gap_s),
                           kinds=cue_kinds)
-    check_output_dir(out)
+    check_output_dir(out, create=False)  # the set makes the folder when it writes (none on failure)
     fmt = {"column_formats": {"beat": "%.3f", "score_qn": "%.4f", "end_qn": "%.4f", "nominal": "%.3f",
                               "nominal_end": "%.3f", "programme": "%.3f", "value": "%.4g"}}
     with OutputSet(out) as outs:

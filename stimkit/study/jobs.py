@@ -32,10 +32,48 @@ from pathlib import Path
 
 from ..errors import StimkitError
 
-__all__ = ["PerformanceTask", "SessionTask", "performance_job", "session_job", "RAW_SUFFIXES"]
+__all__ = ["PerformanceTask", "SessionTask", "performance_job", "session_job", "RAW_SUFFIXES",
+           "session_inputs", "check_session_outputs"]
 
 #: Hand-off files copied into the BIDS raw part (``sub-X/ses-Y/beh/``); the rest stays in derivatives.
 RAW_SUFFIXES = ("_events.tsv", "_events.json", "_stim.tsv.gz", "_stim.json")
+
+
+#: Every hand-off file of a session (in derivatives; the raw part holds :data:`RAW_SUFFIXES`).
+ALL_SUFFIXES = RAW_SUFFIXES + ("_beats.tsv", "_beats.json", "_report.html", "_report.png", "_provenance.json")
+
+
+def session_inputs(spec, performance) -> list[Path]:
+    """Every file a study session reads: the performance's recording, scores and session file,
+    the participant's recorder sync file, physiological files and their sidecars."""
+    from .layout import is_bids_physio
+
+    paths = [performance.recording] + [p.score for p in performance.pieces]
+    paths += [performance.source, spec.session_file, spec.sync.recorder_file]
+    for p in spec.physio:
+        paths += [p.file, is_bids_physio(p.file)]
+    return [Path(p) for p in paths if p is not None]
+
+
+def check_session_outputs(out_root: Path, spec, base: str, inputs) -> None:
+    """Refuse (:class:`~stimkit.errors.InputError`, exit 2) before any work a session one of whose
+    outputs in the dataset is, or links to, one of its inputs (a recorder log saved in the
+    dataset under the session's events name, say)."""
+    from ..errors import InputError
+    from ..export.tables import input_clash
+    from .layout import derivative_dir, physio_raw_files, raw_dir
+
+    raw, deriv = raw_dir(out_root, spec), derivative_dir(out_root, spec)
+    targets = [raw / f"{base}{s}" for s in RAW_SUFFIXES] + [deriv / f"{base}{s}" for s in ALL_SUFFIXES]
+    # a physiological file already in its place in the dataset is left as it is (not copied over itself)
+    targets += [raw / name for src, name in physio_raw_files(spec) if input_clash(raw / name, [src]) is None]
+    for target in targets:
+        clash = input_clash(target, inputs)
+        if clash is not None:
+            how = "is" if os.path.abspath(target) == os.path.abspath(clash) else "links to"
+            raise InputError(f"this input {how} the study's output {Path(target).relative_to(out_root)}, "
+                             f"which would replace it; move the file out of the output folder (or "
+                             f"choose another output folder)", path=clash)
 
 
 @dataclass
@@ -105,7 +143,7 @@ def session_job(task: SessionTask) -> dict:
 
 
 def _session(task: SessionTask) -> dict:
-    from ..export.tables import OutputSet
+    from ..export.tables import OutputSet, input_clash
     from ..timeline.run import annotate
     from . import state
     from .layout import derivative_dir, physio_raw_files, raw_dir
@@ -132,7 +170,7 @@ def _session(task: SessionTask) -> dict:
                           keep_timings=False)
         warnings = list(result.warnings)
         # every file of the session appears together, or none does
-        with OutputSet(out_root) as outs:
+        with OutputSet(out_root, inputs=session_inputs(s, task.performance)) as outs:
             d_rel = deriv.relative_to(out_root).as_posix()
             r_rel = raw.relative_to(out_root).as_posix()
             for f in sorted(result.written, key=lambda p: p.name):
@@ -145,7 +183,8 @@ def _session(task: SessionTask) -> dict:
             if s.physio:
                 warnings.extend(_physio(task, result, outs, d_rel))
             for src, name in physio_raw_files(s):
-                outs.write_bytes(f"{r_rel}/{name}", Path(src).read_bytes())
+                if input_clash(raw / name, [src]) is None:  # not already in its place in the dataset
+                    outs.write_bytes(f"{r_rel}/{name}", Path(src).read_bytes())
         written = list(outs.committed)
     finally:
         shutil.rmtree(staging, ignore_errors=True)

@@ -31,7 +31,8 @@ from pathlib import Path
 
 from ..errors import InputError, WorkFailed
 from . import state
-from .jobs import PerformanceTask, SessionTask, performance_job, session_job
+from .jobs import PerformanceTask, SessionTask, check_session_outputs, performance_job, session_job, \
+    session_inputs
 from .plan import HashCache, plan_study
 
 __all__ = ["SessionOutcome", "StudyResult", "run_study", "open_executor", "SerialExecutor"]
@@ -139,6 +140,9 @@ def run_study(study, *, scheduler: str | None = None, workers: int | None = None
     progress = progress or (lambda task, fraction: None)
     hashes = HashCache(state.load_hashes(out_root, study.root))
     plan = plan_study(study, hashes=hashes)
+    for job in plan.sessions:  # before any work: no output of a session may replace one of its inputs
+        check_session_outputs(out_root, job.spec, job.base,
+                              session_inputs(job.spec, plan.performances[job.performance_key].session))
     state.save_hashes(out_root, study.root, {k: v for k, v in hashes.known.items() if k in hashes.used})
     study_file = study.show(study.source) if study.source is not None else None
 

@@ -492,8 +492,8 @@ def _read_text_file(path: Path, *, what: str) -> str:
 def read_recorder_times(path: str | Path, *, column: str) -> np.ndarray:
     """Times (s) from column ``column`` of a CSV (``,``) or TSV (tab) file with a header line.
 
-    Blank cells and ``n/a`` are skipped. Raises :class:`InputError` naming the file when the
-    column is missing or a cell is not a number.
+    Blank cells and ``n/a`` are skipped. Raises :class:`InputError` naming the file (and the line)
+    when the column is missing, a cell is not a number, or a time is beyond :data:`MAX_OFFSET_S`.
     """
     path = Path(path)
     text = _read_text_file(path, what="recorder sync file")
@@ -521,10 +521,15 @@ def read_recorder_times(path: str | Path, *, column: str) -> np.ndarray:
             v = float(cell)
             if not np.isfinite(v):
                 raise ValueError(cell)
-            out.append(v)
         except ValueError:
             raise InputError(f"line {lineno}: '{cell}' in column '{column}' is not a number of "
                              f"seconds", path=path) from None
+        if abs(v) > MAX_OFFSET_S:
+            shown = cell if len(cell) <= 24 else cell[:20] + "..."
+            raise InputError(f"line {lineno}: {shown} in column '{column}' is beyond +-{MAX_OFFSET_S:.0e} s; "
+                             f"give the recorder times in seconds from the start of the physiological "
+                             f"recording (not Unix time or milliseconds)", path=path)
+        out.append(v)
     if not out:
         raise InputError(f"column '{column}' holds no times", path=path)
     return np.asarray(out, dtype=np.float64)

@@ -174,10 +174,13 @@ def planned_outputs(session) -> list[Path]:
 
 def check_outputs_against_inputs(session) -> None:
     """Refuse (:class:`~stimkit.errors.InputError`, exit 2) a session one of whose outputs is, or
-    links to, one of its inputs -- before any work is done and nothing is written."""
+    links to, one of its inputs, or cannot be written (a name too long for the file system, a
+    folder in the way: :func:`~stimkit.export.tables.check_targets`) -- before any work is done
+    and nothing is written."""
     from ..errors import InputError
-    from ..export.tables import input_clash
+    from ..export.tables import check_targets, input_clash
 
+    check_targets(session.out_dir, output_layout(session).names())  # name too long, a folder in the way
     inputs = session_inputs(session)
     for target in planned_outputs(session):
         clash = input_clash(target, inputs.values())

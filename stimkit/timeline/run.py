@@ -105,7 +105,10 @@ def _clock(session, *, duration_s: float, progress) -> tuple[ClockFit, np.ndarra
         raise WorkFailed(f"no sync mark at {sy.frequency_hz:g} Hz ({sy.duration_s * 1000:g} ms) was found "
                          f"in {session.recording}; check [sync] frequency_hz and duration_s, or give "
                          f"offset_s instead")
-    got, missing = pair_marks(found, recorder)
+    try:
+        got, missing = pair_marks(found, recorder)
+    except WorkFailed as exc:  # name the file whose times could not be paired
+        raise WorkFailed(str(exc), path=sy.recorder_file or where) from None
     if missing:
         shown = ", ".join(f"{recorder[i]:.3f} s" for i in missing[:5])
         raise WorkFailed(f"{len(missing)} of {recorder.size} sync marks could not be found in "

@@ -309,3 +309,37 @@ def test_same_kind_at_same_onset_is_merged_and_hed_valid(tmp_path, hed_schema):
                        sidecar=Sidecar(str(tmp_path / "raw" / f"{BASE}_events.json"))).validate(schema)
     # ... while the unmerged rows are rejected (the reason for merging)
     assert any(i["code"] == "TAG_EXPRESSION_REPEATED" for i in raw)
+
+
+def _descriptions(obj, where=""):
+    """Every ``Description`` text in a sidecar, with where it is."""
+    if isinstance(obj, dict):
+        for k, v in obj.items():
+            if k == "Description" and isinstance(v, str):
+                yield where, v
+            else:
+                yield from _descriptions(v, f"{where}/{k}")
+
+
+def test_every_description_is_a_full_sentence(tmp_path):
+    # BIDS 1.11 "Tabular files": a Description is free text for people; the project's style (a
+    # full sentence: capital first, a full stop last) so a sidecar reads the same as the README
+    from pathlib import Path
+
+    from stimkit.score.parse import load_score
+    from stimkit.score.plan import boundaries_sidecar
+
+    with OutputSet(tmp_path) as outs:
+        write_events(outs, BASE, _events(), synchronized=True)
+        write_beats(outs, BASE, pd.DataFrame({"onset": [1.0], "piece": ["A"], "measure": [1], "pass": [1],
+                                              "beat": [1.0], "score_qn": [0.0], "recording": [1.0]}))
+    sides = {f: json.loads((tmp_path / f"{BASE}_{f}.json").read_text("utf-8")) for f in ("events", "beats")}
+    score = load_score(Path(__file__).resolve().parents[2] / "example_scores" / "kites-at-dusk.musicxml")
+    sides["boundaries"] = boundaries_sidecar(score, name="kites", start_s=0.0)
+    found = [(f, w, d) for f, side in sides.items() for w, d in _descriptions(side)]
+    assert len(found) > 25
+    bad = [(f, w, d[:60]) for f, w, d in found if not (d[:1].isupper() and d.rstrip().endswith("."))]
+    assert bad == []
+    # the confidence column says what the README says it is (a probability of being within 100 ms)
+    assert "probability" in sides["events"]["confidence"]["Description"]
+    assert "100 ms" in sides["events"]["confidence"]["Description"]

@@ -136,3 +136,25 @@ def test_session_physio_tables_are_validated(tmp_path):
 def test_bad_options_exit_2(handoff, tmp_path, option):
     code, _, err = run(["relate", str(handoff), str(handoff / "sub-07_beats.tsv"), "-o", "out"] + option, tmp_path)
     assert code == 2 and option[0] in err and not (tmp_path / "out").exists()
+
+
+def test_relate_never_writes_over_its_physiological_file(handoff, tmp_path):
+    # the project's rule (inputs are never overwritten): a beat table saved in the output folder
+    # under an output's name was replaced by the physio_values table, exit 0
+    out = tmp_path / "rel"
+    out.mkdir()
+    mine = out / "physio_values.tsv"
+    mine.write_bytes((handoff / "sub-07_beats.tsv").read_bytes())
+    before = mine.read_bytes()
+    code, _, err = run(["relate", str(handoff), str(mine), "-o", str(out)] + FAST, tmp_path)
+    assert code == 2 and "physio_values.tsv" in err and "overwritten" in err and err.count("\n") == 1
+    assert mine.read_bytes() == before and sorted(p.name for p in out.iterdir()) == ["physio_values.tsv"]
+    # a link under an output's name to the file elsewhere: refused when the outputs are written
+    link_dir = tmp_path / "rel2"
+    link_dir.mkdir()
+    (link_dir / "boundary_tests.tsv").symlink_to(handoff / "sub-07_beats.tsv")
+    code, _, err = run(["relate", str(handoff), str(handoff / "sub-07_beats.tsv"), "-o", str(link_dir)] + FAST,
+                       tmp_path)
+    assert code == 2 and "links to the input" in err
+    assert (handoff / "sub-07_beats.tsv").read_bytes().startswith(b"time\trr")
+    assert sorted(p.name for p in link_dir.iterdir()) == ["boundary_tests.tsv"]

@@ -176,3 +176,26 @@ def test_flood_of_empty_bars_refused_before_music21(tmp_path):
         zf.writestr("score.musicxml", text)
     with pytest.raises(InputError, match=r"would need about 2,\d{3} MB to read .*300,001 bars"):
         load_score(p)
+
+
+def test_time_signature_of_a_million_beats(tmp_path, capsys):
+    # a few hundred bytes: music21's meter set-up grows faster than the square of the beats
+    # (measured: 300/4 took 8.5 s, 1000/4 73 s, 1000000/4 never finished), so the meter is refused
+    # before music21 sees it (stimkit.score.limits.MAX_BEATS_PER_BAR)
+    ms = [measure(1, attributes(beats=1_000_000, beat_type=4, fifths=0) + note())]
+    p = write(tmp_path, "huge meter.musicxml", score([("P", ms)]))
+    assert p.stat().st_size < 1000
+    refused_by_cli(p, tmp_path, capsys, "1000000/4 at bar 1 has more than 128 beats")
+    ms = [measure(1, attributes(beats="64+64+1", beat_type=4, fifths=0) + note())]   # composite: summed
+    with pytest.raises(InputError, match="more than 128 beats"):
+        load_score(write(tmp_path, "composite.musicxml", score([("P", ms)])))
+    ok = [measure(1, attributes(beats=12, beat_type=8, fifths=0) + note(quarters=6.0))]
+    assert load_score(write(tmp_path, "ok.musicxml", score([("P", ok)]))).notes.shape[0] == 1
+
+
+def test_midi_time_signature_of_255_beats(tmp_path, capsys):
+    # SMF 1.0 time-signature meta event FF 58 04 nn dd cc bb: nn = 255 beats of 2**dd
+    trk = b"\x00\xff\x58\x04" + bytes([255, 2, 24, 8]) + b"\x00\x90\x3c\x40\x8f\x00\x80\x3c\x00\x00\xff\x2f\x00"
+    p = tmp_path / "meter.mid"
+    p.write_bytes(b"MThd" + struct.pack(">IHHH", 6, 0, 1, 480) + b"MTrk" + struct.pack(">I", len(trk)) + trk)
+    refused_by_cli(p, tmp_path, capsys, "255/4 has more than 128 beats")

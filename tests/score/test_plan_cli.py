@@ -218,3 +218,26 @@ def test_output_folder_that_cannot_be_created(tmp_path, capsys):
     rc, _, err = run(["plan", str(a), "-o", str(out)], capsys)
     assert rc == 2 and len(err.strip().splitlines()) == 1
     assert not out.exists()
+
+
+def test_disk_full_leaves_no_new_output_folder(tmp_path, monkeypatch, capsys):
+    # ENOSPC while the files are staged: one line, exit 1 (DESIGN.md: the machine failed, not the
+    # input), and not even the output folder the run would have made is left behind
+    import builtins
+    import errno
+
+    p = good_score(tmp_path)
+    real_open = builtins.open
+
+    def full(path, mode="r", *a, **k):
+        if "w" in mode and str(path).endswith(".new"):
+            raise OSError(errno.ENOSPC, "No space left on device", str(path))
+        return real_open(path, mode, *a, **k)
+
+    monkeypatch.setattr(builtins, "open", full)
+    out = tmp_path / "new" / "plan"
+    assert main(["plan", str(p), "-o", str(out)]) == 1
+    monkeypatch.undo()
+    err = capsys.readouterr().err.strip()
+    assert "no space left" in err and "\n" not in err
+    assert not (tmp_path / "new").exists()

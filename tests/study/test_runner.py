@@ -163,3 +163,29 @@ def test_bids_raw_part_read_back_with_bidsschematools(runs):
     assert list(part["participant_id"]) == ["sub-a1", "sub-b2"] and list(part["age"]) == [40, 41]
     desc = json.loads((b / "derivatives/stimkit/dataset_description.json").read_text())
     assert desc["DatasetType"] == "derivative" and desc["GeneratedBy"][0]["Name"] == "stimkit"
+
+
+def test_study_never_writes_over_an_input_kept_in_the_dataset(tmp_path, capsys):
+    # the project's rule (inputs are never overwritten): a participant's recorder log saved in the
+    # dataset under the session's BIDS events name was replaced by the events table, exit 0;
+    # now the study refuses before any work (exit 2, one line naming the file) and writes no session
+    import numpy as np
+    import soundfile as sf
+
+    from studyfix import SCORE
+
+    sf.write(tmp_path / "take.wav", np.zeros(22050, dtype=np.float32), 22050)
+    beh = tmp_path / "out" / "sub-01" / "ses-1" / "beh"
+    beh.mkdir(parents=True)
+    log = beh / "sub-01_ses-1_task-listening_events.tsv"
+    log.write_text("onset\n12.5\n620.25\n", "utf-8")
+    (tmp_path / "study.toml").write_text(
+        'name = "t"\noutput = "out"\ntask = "listening"\nseed = 1\n[[performance]]\nid = "c"\n'
+        f'recording = "take.wav"\n[[performance.piece]]\nscore = "{SCORE}"\n[[participant]]\nid = "01"\n'
+        '[[session]]\nparticipant = "01"\nsession = "1"\nperformance = "c"\n[session.sync]\n'
+        f'frequency_hz = 1000\nduration_s = 0.05\nrecorder_file = "{log.relative_to(tmp_path)}"\n')
+    assert main(["study", str(tmp_path / "study.toml"), "--workers", "1"]) == 2
+    err = capsys.readouterr().err.strip()
+    assert "\n" not in err and log.name in err and "would replace it" in err
+    assert log.read_text("utf-8") == "onset\n12.5\n620.25\n"
+    assert not (tmp_path / "out" / "derivatives").exists() and sorted(p.name for p in beh.iterdir()) == [log.name]

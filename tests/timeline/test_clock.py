@@ -244,3 +244,35 @@ def test_sync_file_in_utf16_with_bom_is_read(tmp_path):
     p = tmp_path / "recorder-sync.tsv"
     p.write_bytes("onset\n12.5\n620.25\n".encode("utf-16"))
     np.testing.assert_allclose(read_recorder_times(p, column="onset"), [12.5, 620.25])
+
+
+def test_absurd_time_in_the_recorder_sync_file_names_its_line(tmp_path):
+    # the same limit as a stated offset (onset counts seconds from the start of the physiological
+    # recording, BIDS): a time of 1e300 s in the file was accepted and printed with 300 digits
+    p = tmp_path / "recorder-sync.tsv"
+    p.write_text("mark\tonset\n1\t12.5\n2\t1e300\n", "utf-8")
+    with pytest.raises(InputError, match="line 3: 1e300 in column 'onset' is beyond") as info:
+        read_recorder_times(p, column="onset")
+    assert "recorder-sync.tsv" in str(info.value) and len(str(info.value)) < 300
+    p.write_text("onset\n1700000000.0\n", "utf-8")         # Unix time, a common slip
+    with pytest.raises(InputError, match="Unix time"):
+        read_recorder_times(p, column="onset")
+
+
+def test_ambiguous_pairing_in_a_session_names_the_recorder_file(tmp_path):
+    # the chain's refusal (exit 1) names the file whose times could not be paired
+    import types
+
+    from stimkit.errors import WorkFailed
+    from stimkit.session import SyncSpec
+    from stimkit.timeline.run import _clock
+
+    wav = tmp_path / "two marks.wav"
+    sf.write(wav, _burst_signal([1.0, 4.0], dur_s=5.0, music=False), SR)
+    log = tmp_path / "recorder-log.tsv"
+    log.write_text("onset\n104.0\n", "utf-8")            # only the second mark was logged
+    sync = SyncSpec(mode="marks", frequency_hz=2000.0, duration_s=0.02, recorder_file=log)
+    session = types.SimpleNamespace(sync=sync, source=None, recording=wav)
+    with pytest.raises(WorkFailed, match="could go with 2 of the detected marks") as info:
+        _clock(session, duration_s=5.0, progress=None)
+    assert str(info.value).startswith(str(log)) and "\n" not in str(info.value)
