@@ -9,11 +9,11 @@ Run by hand: ``.venv/bin/python bench/bench_features.py [--minutes 30] [--flat 1
    time, and the child's user + system CPU time from ``getrusage(RUSAGE_CHILDREN)``): interpreter
    start, imports, numba compilation and writing are all inside the figure. Each child reports
    its own peak RSS (``ru_maxrss``).
-   - stimkit: ``stimkit.cli.main(["features", FILE, "-o", DIR])`` (all features, files written),
-     with an empty numba cache folder (``NUMBA_CACHE_DIR``) so that the JIT compilation of every
-     numba kernel it reaches (stimkit's and librosa's) is paid every run, as on the first run
-     after an install; a second figure with the cache kept warm (every later run) is printed
-     beside it;
+   - stimkit: ``stimkit.cli.main(["features", FILE, "-o", DIR])`` (all features, files written,
+     at the default 10 frames per second), with an empty numba cache folder (``NUMBA_CACHE_DIR``)
+     so that the JIT compilation of every numba kernel it reaches is paid every run, as on the
+     first run after an install; a second figure with the cache kept warm (every later run) is
+     printed beside it;
    - naive: ``librosa.load(sr=22050)`` (whole file, resampled), ``librosa.stft``,
      ``onset_strength`` + frame-wise ``tempo``, ``chroma_stft``, ``spectral_centroid``, and
      pyloudnorm's integrated loudness on the whole file read with ``soundfile.read``;
@@ -22,7 +22,8 @@ Run by hand: ``.venv/bin/python bench/bench_features.py [--minutes 30] [--flat 1
      that looks at every sample's spectrum must do.
 3. Alternates the programs ``--repeat`` times (the machine's load changes) and prints the
    medians: the ratio naive / stimkit (goal >= 4), stimkit / floor (goal <= 2), and stimkit's
-   peak RSS on a ``--flat`` short and long file (goal <= 400 MB, flat in length).
+   peak RSS on a ``--flat`` short and long file (goal <= 400 MB, flat in length), with the load
+   average before and after the runs.
 
 Why an earlier version of this script printed 5.1x where a reviewer measured 2.5-2.9x
 ----------------------------------------------------------------------------------------
@@ -215,6 +216,7 @@ def main() -> None:
               f"peak RSS {res[m]['peak_rss_mb']:6.0f} MB")
     print(f"  peak RSS (goal <= 400 MB, flat): {res[short]['peak_rss_mb']:.0f} MB at {short:g} min, "
           f"{res[long_]['peak_rss_mb']:.0f} MB at {long_:g} min, ratio {res[long_]['peak_rss_mb'] / res[short]['peak_rss_mb']:.2f}")
+    print("  load average (1, 5, 15 min) at the end: " + ", ".join(f"{v:.1f}" for v in os.getloadavg()))
     if args.keep is None:
         for p in sorted(work.rglob("*"), reverse=True):
             p.unlink() if p.is_file() else p.rmdir()

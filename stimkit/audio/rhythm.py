@@ -229,13 +229,6 @@ def onset_rate(onset_times_s: np.ndarray, *, centres_s: np.ndarray, duration_s: 
     return np.where(span > 0, n / np.where(span > 0, span, 1.0), 0.0)
 
 
-def _peaks(r: np.ndarray, lo: int, hi: int) -> np.ndarray:
-    idx = np.arange(max(lo, 1), min(hi, r.shape[0] - 1) + 1)
-    if idx.size == 0:
-        return idx
-    return idx[(r[idx] > r[idx - 1]) & (r[idx] >= r[idx + 1])]
-
-
 def local_tempo(envelope: np.ndarray, *, frame_rate_hz: float, centres_s: np.ndarray,
                 window_s: float = TEMPO_WINDOW_S) -> np.ndarray:
     """Local tempo at ``centres_s``: array ``(n, 3)`` of ``[tempo_bpm, confidence, pulse_clarity]``.
@@ -265,7 +258,11 @@ def local_tempo(envelope: np.ndarray, *, frame_rate_hz: float, centres_s: np.nda
     lags = np.arange(lag_hi + 2, dtype=np.float64)
     with np.errstate(divide="ignore"):
         prior = np.exp(-0.5 * (np.log2(60.0 * fr / lags / PRIOR_BPM) / PRIOR_OCTAVES) ** 2)
-    batch = 512
+    pk_idx = np.arange(max(lag_lo, 1), lag_hi + 1)  # candidate peak lags (neighbours inside r)
+    if pk_idx.size == 0:
+        return out
+    pk_prior = prior[pk_idx]
+    batch = 128  # centres per FFT batch: a few MB of work arrays, whatever the length
     for b0 in range(0, c.shape[0], batch):
         ci = centre_idx[b0:b0 + batch]
         rows = np.clip(ci, -half, env.shape[0] - 1 + half)[:, None] + np.arange(W)[None, :]
@@ -284,21 +281,26 @@ def local_tempo(envelope: np.ndarray, *, frame_rate_hz: float, centres_s: np.nda
         with np.errstate(divide="ignore", invalid="ignore"):
             unb = np.where(wacf > 1e-9 * wacf[:, :1], acf / wacf, 0.0)
             r = np.where(unb[:, :1] > 0, unb / unb[:, :1], 0.0)
-        for i in range(r.shape[0]):
-            ri = r[i]
-            pk = _peaks(ri, lag_lo, lag_hi)
-            if pk.size == 0 or ri[pk].max() <= 0:
-                continue
-            best = ri[pk].max()
-            weighted = ri[pk] * prior[pk]
-            chosen = pk[weighted >= PEAK_RATIO * weighted.max()][0]
-            a, b, cc = ri[chosen - 1], ri[chosen], ri[chosen + 1]
-            den = a - 2 * b + cc
-            delta = 0.5 * (a - cc) / den if den < 0 else 0.0
-            lag = chosen + float(np.clip(delta, -0.5, 0.5))
-            out[b0 + i, 0] = 60.0 * fr / lag
-            out[b0 + i, 1] = float(np.clip(b, 0.0, 1.0))
-            out[b0 + i, 2] = float(np.clip(best, 0.0, 1.0))
+        # peaks of each row in the lag range, the prior-weighted choice and the parabolic
+        # refinement, for all rows at once
+        R = r[:, pk_idx]
+        is_pk = (R > r[:, pk_idx - 1]) & (R >= r[:, pk_idx + 1])
+        best = np.where(is_pk, R, -np.inf).max(axis=1)
+        weighted = np.where(is_pk, R * pk_prior, -np.inf)
+        wmax = weighted.max(axis=1)
+        first = np.argmax(weighted >= PEAK_RATIO * wmax[:, None], axis=1)
+        hit = np.flatnonzero(best > 0)
+        if hit.size == 0:
+            continue
+        chosen = pk_idx[first[hit]]
+        a, b, cc = r[hit, chosen - 1], r[hit, chosen], r[hit, chosen + 1]
+        den = a - 2 * b + cc
+        with np.errstate(divide="ignore", invalid="ignore"):
+            delta = np.where(den < 0, 0.5 * (a - cc) / den, 0.0)
+        lag = chosen + np.clip(delta, -0.5, 0.5)
+        out[b0 + hit, 0] = 60.0 * fr / lag
+        out[b0 + hit, 1] = np.clip(b, 0.0, 1.0)
+        out[b0 + hit, 2] = np.clip(best[hit], 0.0, 1.0)
     return out
 
 

@@ -26,6 +26,7 @@ librosa (McFee et al. 2015) for the reference implementations.
 
 from __future__ import annotations
 
+import numba
 import numpy as np
 import scipy.fft
 
@@ -87,36 +88,69 @@ class StftStream:
         return power[:remaining]
 
 
+@numba.njit(cache=True, nogil=True)
+def _descriptors(power, freqs, prev, roll, out):  # pragma: no cover - compiled
+    """The per-frame loop of :func:`spectral_descriptors`: one pass over each frame's bins.
+    ``prev`` (bins,) holds the previous frame's magnitude and is updated; ``out`` (frames, 5)."""
+    n, nb = power.shape
+    for i in range(n):
+        total = 0.0
+        m1 = 0.0
+        m2 = 0.0
+        flux = 0.0
+        logsum = 0.0
+        psum = 0.0
+        for k in range(nb):
+            p = power[i, k]
+            m = np.sqrt(p)
+            f = freqs[k]
+            total += m
+            m1 += m * f
+            m2 += m * f * f
+            d = m - prev[k]
+            if d > 0:
+                flux += d
+            prev[k] = m
+            q = max(p, np.float32(1e-10))
+            logsum += np.log(q)
+            psum += q
+        # roll-off: first bin whose cumulative magnitude (float32, as numpy's cumsum) reaches
+        # roll * total (bin 0 if rounding keeps it below)
+        thresh = np.float32(roll * total)
+        cum = np.float32(0.0)
+        ridx = 0
+        for k in range(nb):
+            cum += np.sqrt(power[i, k])
+            if cum >= thresh:
+                ridx = k
+                break
+        if total > 0:
+            c = m1 / total
+            var = max(m2 / total - c * c, 0.0)
+            out[i, 0] = c
+            out[i, 1] = np.sqrt(var)
+            out[i, 2] = freqs[ridx]
+            out[i, 3] = np.exp(logsum / nb) / (psum / nb)
+        else:
+            out[i, 0] = out[i, 1] = out[i, 2] = out[i, 3] = 0.0
+        out[i, 4] = flux / nb
+
+
 def spectral_descriptors(power: np.ndarray, *, prev_mag: np.ndarray | None, freqs: np.ndarray,
                          roll_percent: float = 0.85) -> tuple[np.ndarray, np.ndarray]:
     """Per-frame ``[centroid_hz, bandwidth_hz, rolloff_hz, flatness, flux]`` (frames, 5).
 
     ``power`` is ``(frames, bins)``; ``prev_mag`` the magnitude of the frame before the first one
     (``None`` at the start of the stream: flux 0). Returns the descriptors and the last magnitude.
-    Silent frames give centroid/bandwidth/roll-off 0 and flatness 1 is replaced by 0.
+    Silent frames give centroid/bandwidth/roll-off 0 and flatness 1 is replaced by 0. Sums are
+    accumulated in double precision over the float32 spectra (one compiled pass per frame).
     """
-    mag = np.sqrt(power, dtype=np.float32)
-    f32 = freqs.astype(np.float32)
-    total = mag.sum(axis=1, dtype=np.float64)
-    safe = np.where(total > 0, total, 1.0)
-    m1 = (mag @ f32).astype(np.float64)
-    m2 = (mag @ (f32 * f32)).astype(np.float64)
-    centroid = m1 / safe
-    # sum m (f - c)^2 = sum m f^2 - 2 c sum m f + c^2 sum m
-    var = np.maximum(m2 / safe - centroid * centroid, 0.0)
-    bandwidth = np.sqrt(var)
-    cum = np.cumsum(mag, axis=1)
-    thresh = (roll_percent * total).astype(np.float32)
-    ridx = np.argmax(cum >= thresh[:, None], axis=1)
-    rolloff = freqs[ridx]
-    p = np.maximum(power, np.float32(1e-10))
-    flatness = np.exp(np.mean(np.log(p), axis=1, dtype=np.float64)) / np.mean(p, axis=1, dtype=np.float64)
-    silent = total <= 0
-    if prev_mag is None:
-        prev = np.concatenate([mag[:1], mag[:-1]], axis=0)
-    else:
-        prev = np.concatenate([prev_mag[None, :], mag[:-1]], axis=0)
-    flux = np.maximum(mag - prev, 0.0).sum(axis=1) / mag.shape[1]
-    out = np.stack([centroid, bandwidth, rolloff, flatness, flux], axis=1)
-    out[silent, :4] = 0.0
-    return out, mag[-1].copy()
+    power = np.ascontiguousarray(power, dtype=np.float32)
+    n = power.shape[0]
+    out = np.zeros((n, 5))
+    if n == 0:
+        last = np.zeros(power.shape[1], np.float32) if prev_mag is None else prev_mag
+        return out, np.asarray(last, np.float32).copy()
+    prev = (np.sqrt(power[0]) if prev_mag is None else np.asarray(prev_mag, np.float32)).copy()
+    _descriptors(power, np.asarray(freqs, np.float64), prev, float(roll_percent), out)
+    return out, prev
