@@ -9,7 +9,11 @@ number of surrogates. Printed beside it, measured in the same run:
 - peak resident memory of the whole relate() run at 200 and at 1000 surrogates (flat: the
   surrogates are generated, re-detected and reduced to their change-point times chunk by chunk);
 - the calibration of analysis B's global test on 100 null series (level steps at random times,
-  music change points at other random times): p_global < 0.05 in about 5 % of them.
+  music change points at other random times): p_global < 0.05 in about 5 % of them, for the
+  IAAFT null (default) and the circular shift of the music train;
+- the coverage of analysis A's 95 % intervals of a zero difference on AR(1) series: ``pseudo``
+  (default) and the stationary bootstrap (``bootstrap``, where its block is at most N/4);
+- the cost of the ``mbic`` penalty's exact solver against the default detector.
 
 Run by hand: ``.venv/bin/python bench/bench_relate.py`` (never from pytest). The machine may be
 shared: repeat a run before you trust a figure; CPU time is printed as well as wall time.
@@ -75,7 +79,7 @@ def null_calibration(runs: int = 100, r: int = 99) -> None:
     from stimkit.physio import BeatSeries, RelateSettings, relate
 
     rng = np.random.default_rng(42)
-    rej, tested = 0, 0
+    rej, tested = {"iaaft": 0, "circular_shift": 0}, 0
     w0 = time.perf_counter()
     for _ in range(runs):
         steps = np.sort(rng.uniform(40, 560, 8))
@@ -92,24 +96,75 @@ def null_calibration(runs: int = 100, r: int = 99) -> None:
         s = BeatSeries(t=np.asarray(t), x=np.asarray(rr), valid=np.ones(len(t), bool), kind="rr", source="null")
         try:
             res = relate(pd.DataFrame(ev), None, s, settings=replace(RelateSettings(), analyses=("coincidence",),
-                                                                      n_surrogates=r, null_methods=("iaaft",)),
+                                                                      n_surrogates=r),
                          seed=int(rng.integers(1 << 31)))
         except InputError:  # fewer than 5 change points found: no inference for this series
             continue
         cs = res.tables["coincidence_summary"]
-        row = cs[(cs.reference == "physio") & (cs.null_method == "iaaft")]
-        if len(row):
+        rows = cs[(cs.reference == "physio") & (cs.feature_set == "short_term_lufs")]
+        if len(rows):
             tested += 1
-            rej += bool(row.p_global.iloc[0] < 0.05)
+            for m in rej:
+                rej[m] += bool(rows.loc[rows.null_method == m, "p_global"].iloc[0] < 0.05)
     tested = max(tested, 1)
     lo, hi = stats.binom.interval(0.99, tested, 0.05)
-    print(f"analysis B under the null: {rej} of {tested} series with p_global < 0.05 ({rej / max(tested, 1):.3f}; "
-          f"binomial 99 % band {lo / tested:.3f}-{hi / tested:.3f}: {'inside' if lo <= rej <= hi else 'OUTSIDE'}); "
-          f"{time.perf_counter() - w0:.0f} s")
+    for m, k in rej.items():
+        print(f"analysis B under the null, {m}: {k} of {tested} series with p_global < 0.05 ({k / tested:.3f}; "
+              f"binomial 99 % band {lo / tested:.3f}-{hi / tested:.3f}: {'inside' if lo <= k <= hi else 'OUTSIDE'})")
+    print(f"  ({time.perf_counter() - w0:.0f} s for the null series)")
+
+
+def ci_coverage(runs: int = 300) -> None:
+    """Coverage of a zero difference by analysis A's 95 % intervals on AR(1) series (no effect)."""
+    from stimkit.physio.bootstrap import block_length_constant, bootstrap_delta_ci
+
+    rng = np.random.default_rng(7)
+    for phi in (0.3, 0.5, 0.7):
+        for n_w in (20, 80):
+            cov_p, cov_b, used = [], [], 0
+            for _ in range(runs):
+                e = rng.normal(size=3000)
+                x = np.empty(3000)
+                x[0] = e[0] / np.sqrt(1 - phi ** 2)
+                for i in range(1, 3000):
+                    x[i] = phi * x[i - 1] + e[i]
+                c = block_length_constant([x])
+                # pseudo: centred differences at 1000 random places of the same series
+                at = rng.integers(n_w, x.size - n_w, 1000)
+                cs = np.cumsum(np.r_[0.0, x])
+                d = (cs[at + n_w] - cs[at]) / n_w - (cs[at] - cs[at - n_w]) / n_w
+                d -= d.mean()
+                b = int(rng.integers(n_w, x.size - n_w))
+                delta = x[b:b + n_w].mean() - x[b - n_w:b].mean()
+                cov_p.append(delta - np.quantile(d, 0.975) <= 0 <= delta - np.quantile(d, 0.025))
+                lo, hi, _ = bootstrap_delta_ci(x[b:b + n_w], x[b - n_w:b], constant=c, reps=1000, rng=rng)
+                if np.isfinite(lo):
+                    used += 1
+                    cov_b.append(lo <= 0 <= hi)
+            print(f"95 % interval coverage, AR(1) phi {phi}, N {n_w}: pseudo {np.mean(cov_p):.3f}; bootstrap "
+                  f"{np.mean(cov_b) if cov_b else float('nan'):.3f} (used at {used} of {runs} boundaries)")
+
+
+def mbic_cost() -> None:
+    """Seconds per detection, default (KernelCPD linear, bic_lrv) vs mbic's exact solver."""
+    from stimkit.physio.changepoints import segment
+
+    t, rr, _ = series_30_min()
+    for rule in ("bic_lrv", "mbic"):
+        w0 = time.perf_counter()
+        for _ in range(5):
+            b, _ = segment(rr, min_size=10, rule=rule)
+        print(f"detector {rule}: {(time.perf_counter() - w0) / 5 * 1000:.0f} ms per detection on {rr.size} beats "
+              f"({b.size} change points)")
 
 
 def main(argv=None) -> int:
     argv = sys.argv[1:] if argv is None else argv
+    if "--calibration" in argv:  # the calibration and cost parts only
+        null_calibration()
+        ci_coverage()
+        mbic_cost()
+        return 0
     if "--null-and-memory" in argv:  # the last two parts only
         null_calibration()
         m200, m1000 = peak_rss_mb(200), peak_rss_mb(1000)
@@ -168,9 +223,12 @@ def _all() -> int:
           f"on 1 process; KernelCPD path {per * 1000:.0f} ms CPU per surrogate incl. IAAFT (~{naive / per:.0f}x)")
 
     null_calibration()
+    ci_coverage()
+    mbic_cost()
     m200, m1000 = peak_rss_mb(200), peak_rss_mb(1000)
     print(f"peak RSS of relate (coincidence only): {m200:.0f} MB at 200 surrogates, {m1000:.0f} MB at 1000 "
           f"({'flat' if m1000 <= 1.15 * m200 else 'GROWS'})")
+    print(f"load average after: {os.getloadavg()[0]:.1f}")
     return 0
 
 

@@ -319,8 +319,16 @@ def relate(
                                    "(Benjamini-Hochberg), fdr_by (any dependence) or holm."),
     share_null: str = typer.Option("circular_shift", "--share-null", help="Pseudo boundary sets for the share "
                                    "test: circular_shift or uniform."),
+    ci: str = typer.Option("pseudo", "--ci", help="Interval of each boundary's difference: pseudo (from the "
+                           "pseudo-boundaries), bootstrap (stationary bootstrap) or iid (Welch)."),
     penalty: str = typer.Option("bic_lrv", "--penalty", help="Change-point penalty: bic_lrv (autocorrelation-"
-                                "aware), bic_iid, or a number (in the series' unit squared)."),
+                                "aware), mbic (the same scale, Zhang & Siegmund's segment-length term), bic_iid, "
+                                "rate:R (the CROPS solution nearest R changes per minute), or a number (in the "
+                                "series' unit squared)."),
+    nulls: str = typer.Option("iaaft,circular_shift", "--nulls", help="Coincidence nulls (comma-separated): "
+                              "iaaft, circular_shift, uniform, iei_shuffle, value_shuffle (a sanity check)."),
+    co_change: str = typer.Option("", "--co-change", help="Add co-change trains: K[,K...] = K or more "
+                                  "features changing within 1 s."),
     seed: int = typer.Option(0, "--seed", help="Root seed; every random step draws from a child of it."),
     jobs: int = typer.Option(1, "--jobs", help="Worker processes for the surrogates."),
 ):
@@ -360,14 +368,32 @@ def relate(
         raise InputError("--correction must be fdr_bh, fdr_by or holm")
     if share_null not in ("circular_shift", "uniform"):
         raise InputError("--share-null must be circular_shift or uniform")
-    if penalty not in ("bic_lrv", "bic_iid"):
+    if ci not in ("pseudo", "bootstrap", "iid"):
+        raise InputError("--ci must be pseudo, bootstrap or iid")
+    bad_penalty = "--penalty must be bic_lrv, mbic, bic_iid, rate:R (R > 0 changes per minute) or a positive number"
+    if penalty.startswith("rate:"):
+        try:
+            ok_rate = float(penalty[5:]) > 0
+        except ValueError:
+            ok_rate = False
+        if not ok_rate:
+            raise InputError(bad_penalty)
+    elif penalty not in ("bic_lrv", "bic_iid", "mbic"):
         try:
             penalty = float(penalty)
         except ValueError:
-            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number") from None
+            raise InputError(bad_penalty) from None
         if not penalty > 0:
-            raise InputError("--penalty must be bic_lrv, bic_iid or a positive number")
-    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty)
+            raise InputError(bad_penalty)
+    null_list = tuple(v.strip() for v in nulls.split(",") if v.strip())
+    known = ("iaaft", "circular_shift", "uniform", "iei_shuffle", "value_shuffle")
+    if not null_list or any(v not in known for v in null_list):
+        raise InputError(f"--nulls must be a comma-separated list of {', '.join(known)}")
+    co = _numbers(co_change, "--co-change", int) if co_change.strip() else ()
+    if any(k < 2 for k in co):
+        raise InputError("--co-change must be whole numbers of at least 2 (features changing together)")
+    settings = replace(settings, correction=correction, share_null=share_null, penalty=penalty, ci_method=ci,
+                       null_methods=tuple(dict.fromkeys(null_list)), co_change=co)
     specs = [PhysioSpec(file=f, kind=kind, column=column, mode=mode, offset_s=offset_s,
                         participant=participant[i] if participant else None) for i, f in enumerate(physio)]
     command = ["stimkit", "relate", str(handoff)] + [str(p) for p in physio] + ["-o", str(out)]

@@ -41,8 +41,9 @@ import itertools
 import numpy as np
 import pandas as pd
 
-__all__ = ["penalty_value", "detect", "detect_times", "physio_changepoints", "music_trains",
-           "feature_sets", "merge_close", "robust_sd_of_diff", "ar1_from_differences"]
+__all__ = ["penalty_value", "detect", "segment", "mbic_partition", "mbic_criterion", "crops", "segment_cost",
+           "long_run_variance", "penalty_sweep", "detect_times", "physio_changepoints", "music_trains",
+           "feature_sets", "co_change_times", "merge_close", "robust_sd_of_diff", "ar1_from_differences"]
 
 
 def robust_sd_of_diff(x: np.ndarray) -> float:
@@ -73,18 +74,26 @@ def ar1_from_differences(x: np.ndarray) -> float:
     return float(np.clip(1.0 + 2.0 * np.dot(d[:-1], d[1:]) / den, 0.0, 0.95))
 
 
+def long_run_variance(x: np.ndarray) -> float:
+    """sigma_LR^2 = sigma_d^2 (1 + rho) / (1 - rho)^2 of an AR(1) (module notes)."""
+    rho = ar1_from_differences(x)
+    return robust_sd_of_diff(x) ** 2 * (1.0 + rho) / (1.0 - rho) ** 2
+
+
 def penalty_value(x: np.ndarray, rule="bic_lrv") -> float:
-    """The penalty beta for series ``x`` by ``rule`` (``bic_lrv``, ``bic_iid`` or a number)."""
+    """The penalty beta per change point for series ``x`` by ``rule``: ``bic_lrv``, ``bic_iid``,
+    ``mbic`` (its per-change part, 2 sigma_LR^2 ln n; the segment-length part is in the cost, see
+    :func:`mbic_partition`), ``rate:R`` (NaN: chosen by the count, :func:`segment`) or a number."""
     if not isinstance(rule, str):
         return float(rule)
     n = max(int(np.size(x)), 2)
-    sd2 = robust_sd_of_diff(x) ** 2
     if rule == "bic_iid":
-        return 2.0 * sd2 * np.log(n)
-    if rule == "bic_lrv":
-        rho = ar1_from_differences(x)
-        return 2.0 * sd2 * (1.0 + rho) / (1.0 - rho) ** 2 * np.log(n)
-    raise ValueError(f"unknown penalty rule '{rule}' (bic_lrv, bic_iid or a number)")
+        return 2.0 * robust_sd_of_diff(x) ** 2 * np.log(n)
+    if rule in ("bic_lrv", "mbic"):
+        return 2.0 * long_run_variance(x) * np.log(n)
+    if rule.startswith("rate:"):
+        return float("nan")
+    raise ValueError(f"unknown penalty rule '{rule}' (bic_lrv, bic_iid, mbic, rate:R or a number)")
 
 
 def detect(x: np.ndarray, *, min_size: int, pen: float) -> np.ndarray:
@@ -101,11 +110,168 @@ def detect(x: np.ndarray, *, min_size: int, pen: float) -> np.ndarray:
     return np.asarray(bk[:-1], dtype=np.int64)
 
 
+def segment_cost(x: np.ndarray, breaks) -> float:
+    """The l2 cost of a segmentation: the sum over segments of (b - a) var(x[a:b])."""
+    x = np.asarray(x, dtype=np.float64)
+    edges = np.r_[0, np.asarray(breaks, dtype=np.int64), x.size]
+    return float(sum(np.sum((x[a:b] - x[a:b].mean()) ** 2) for a, b in zip(edges[:-1], edges[1:]) if b > a))
+
+
+def mbic_criterion(x: np.ndarray, breaks, *, sigma2: float) -> float:
+    """Zhang & Siegmund's (2007) modified BIC as a cost to minimise, in the series' unit squared:
+    SSE + sigma^2 (3 m ln n + sum_i ln(l_i / n)) for m breaks and segment lengths l_i (the
+    penalty (3/2) m ln n + (1/2) sum ln(l_i / n) of the log likelihood, times 2 sigma^2)."""
+    x = np.asarray(x, dtype=np.float64)
+    n = x.size
+    edges = np.r_[0, np.asarray(breaks, dtype=np.int64), n]
+    lens = np.diff(edges)
+    m = lens.size - 1
+    return segment_cost(x, breaks) + sigma2 * (3.0 * m * np.log(n) + float(np.sum(np.log(lens / n))))
+
+
+def mbic_partition(x: np.ndarray, *, min_size: int, sigma2: float) -> np.ndarray:
+    """Break indices minimising :func:`mbic_criterion`, exactly, by optimal partitioning with the
+    segment cost SSE + sigma^2 ln l and 2 sigma^2 ln n per break (the criterion less the constant
+    sigma^2 ln n), pruned as in PELT (Killick et al. 2012) with K = -sigma^2 ln n: splitting a
+    segment changes its length term by ln(l_1 l_2 / l) <= ln n, so a start s with
+    F(s) + C(s, t) - sigma^2 ln n > F(t) can never be optimal later."""
+    x = np.asarray(x, dtype=np.float64)
+    n = x.size
+    m = int(min_size)
+    if n < 2 * m or not sigma2 > 0:
+        return np.zeros(0, np.int64)
+    c = x - x.mean()
+    s1 = np.r_[0.0, np.cumsum(c)]
+    s2 = np.r_[0.0, np.cumsum(c * c)]
+    pen = 2.0 * sigma2 * np.log(n)
+    K = -sigma2 * np.log(n)
+    F = np.full(n + 1, np.inf)
+    F[0] = -pen
+    last = np.zeros(n + 1, np.int64)
+    dead_at = np.full(n + 1, np.iinfo(np.int64).max // 2)
+    cand = np.zeros(0, np.int64)
+    for t in range(m, n + 1):
+        s_new = t - m
+        if s_new == 0 or (s_new >= m and np.isfinite(F[s_new])):
+            cand = np.r_[cand, s_new]
+        # a start pruned at time u stays usable for ends before u + m (the last segment after u
+        # would be shorter than min_size), so it leaves only then
+        cand = cand[dead_at[cand] + m > t]
+        if cand.size == 0:
+            continue
+        L = (t - cand).astype(np.float64)
+        cost = (s2[t] - s2[cand]) - (s1[t] - s1[cand]) ** 2 / L + sigma2 * np.log(L)
+        tot = F[cand] + cost + pen
+        j = int(np.argmin(tot))
+        F[t] = tot[j]
+        last[t] = cand[j]
+        prune = cand[tot - pen + K > F[t]]
+        dead_at[prune] = np.minimum(dead_at[prune], t)
+    out = []
+    t = n
+    while t > 0:
+        t = int(last[t])
+        if t > 0:
+            out.append(t)
+    return np.asarray(sorted(out), dtype=np.int64)
+
+
+def crops(x: np.ndarray, *, min_size: int, beta_min: float, beta_max: float, max_runs: int = 60) -> list[dict]:
+    """Every optimal segmentation of the penalised l2 cost for penalties in [beta_min, beta_max]
+    (CROPS, Haynes, Eckley & Fearnhead 2017): the solver runs at both ends; while an interval's
+    ends differ by more than one change point, it runs again at the penalty where their
+    penalised costs are equal, beta = (Q_few - Q_many) / (m_many - m_few), and splits the
+    interval unless that run returns the fewer change points' solution. Returns one dict per
+    segmentation, fewest change points first: ``n_changepoints``, ``cost`` (unpenalised),
+    ``breaks``, ``penalty_low``, ``penalty_high`` (the penalties at which it is optimal)."""
+    x = np.asarray(x, dtype=np.float64)
+    runs: dict[float, np.ndarray] = {}
+
+    def run(beta):
+        if beta not in runs:
+            runs[beta] = detect(x, min_size=min_size, pen=beta)
+        return runs[beta]
+
+    sols: dict[int, np.ndarray] = {}
+    for b in (beta_min, beta_max):
+        br = run(b)
+        sols[br.size] = br
+    todo = [(beta_min, beta_max)]
+    while todo and len(runs) < max_runs:
+        b0, b1 = todo.pop()
+        many, few = run(b0), run(b1)
+        if many.size <= few.size + 1:
+            continue
+        q_many, q_few = segment_cost(x, many), segment_cost(x, few)
+        bi = (q_few - q_many) / (many.size - few.size)
+        if not b0 < bi < b1:
+            continue
+        mid = run(bi)
+        sols[mid.size] = mid
+        if mid.size != few.size:
+            todo += [(b0, bi), (bi, b1)]
+    ms = sorted(sols)  # fewest first
+    cost = {k: segment_cost(x, sols[k]) for k in ms}
+    out = []
+    for i, k in enumerate(ms):
+        # optimal between the switch to the next-more and the switch to the next-fewer solution
+        hi = beta_max if i == 0 else (cost[ms[i - 1]] - cost[k]) / (k - ms[i - 1])
+        lo = beta_min if i == len(ms) - 1 else (cost[k] - cost[ms[i + 1]]) / (ms[i + 1] - k)
+        out.append({"n_changepoints": int(k), "cost": cost[k], "breaks": sols[k],
+                    "penalty_low": float(max(lo, beta_min)), "penalty_high": float(min(hi, beta_max))})
+    return out
+
+
+def penalty_sweep(segments, *, min_size: int, rule="bic_lrv", factors=(0.25, 4.0)) -> pd.DataFrame:
+    """The penalty sweep of the detector (CROPS) on each gap-free segment, over ``factors`` times
+    the rule's penalty per change (bic_lrv's for ``rate:R``): one row per segment x optimal
+    segmentation with its penalty range, count and cost; ``chosen`` marks the one the rule's
+    penalty gives (for ``mbic`` and ``rate:R``, whose choice is not a constant penalty, none)."""
+    rows = []
+    for k, seg in enumerate(segments):
+        ref = penalty_value(seg.x, rule)
+        constant = np.isfinite(ref) and not (isinstance(rule, str) and rule == "mbic")
+        if not np.isfinite(ref):
+            ref = penalty_value(seg.x, "bic_lrv")
+        if not ref > 0 or seg.x.size < 2 * min_size:
+            continue
+        for sol in crops(seg.x, min_size=min_size, beta_min=factors[0] * ref, beta_max=factors[1] * ref):
+            rows.append({"segment": k, "n_values": int(seg.x.size), "penalty_rule": ref,
+                         "penalty_low": sol["penalty_low"], "penalty_high": sol["penalty_high"],
+                         "factor_low": sol["penalty_low"] / ref, "factor_high": sol["penalty_high"] / ref,
+                         "n_changepoints": sol["n_changepoints"], "cost": sol["cost"],
+                         "chosen": bool(constant and sol["penalty_low"] <= ref <= sol["penalty_high"])})
+    return pd.DataFrame(rows, columns=["segment", "n_values", "penalty_rule", "penalty_low", "penalty_high",
+                                       "factor_low", "factor_high", "n_changepoints", "cost", "chosen"])
+
+
+def segment(x: np.ndarray, *, min_size: int, rule="bic_lrv", duration_s: float | None = None
+            ) -> tuple[np.ndarray, float]:
+    """(break indices, penalty per change) of ``x`` by ``rule``: KernelCPD linear for
+    ``bic_lrv``, ``bic_iid`` and numbers; :func:`mbic_partition` for ``mbic``; for ``rate:R``
+    (R change points per minute of ``duration_s``) the CROPS solution (over penalties from
+    0.01 to 100 times bic_lrv's) whose count is nearest R x minutes (the fewer on a tie)."""
+    x = np.asarray(x, dtype=np.float64)
+    if isinstance(rule, str) and rule == "mbic":
+        return mbic_partition(x, min_size=min_size, sigma2=long_run_variance(x)), penalty_value(x, rule)
+    if isinstance(rule, str) and rule.startswith("rate:"):
+        per_min = float(rule.split(":", 1)[1])
+        target = per_min * (duration_s if duration_s is not None else x.size) / 60.0
+        ref = penalty_value(x, "bic_lrv")
+        if not ref > 0 or x.size < 2 * min_size:
+            return np.zeros(0, np.int64), float("nan")
+        sols = crops(x, min_size=min_size, beta_min=0.01 * ref, beta_max=100.0 * ref)
+        best = min(sols, key=lambda d: (abs(d["n_changepoints"] - target), d["n_changepoints"]))
+        return best["breaks"], float(np.sqrt(best["penalty_low"] * best["penalty_high"]))
+    pen = penalty_value(x, rule)
+    return detect(x, min_size=min_size, pen=pen), pen
+
+
 def detect_times(segments_t, segments_x, *, min_size: int, rule="bic_lrv") -> np.ndarray:
     """Change-point times over several gap-free segments (penalty evaluated per segment)."""
     out = []
     for t, x in zip(segments_t, segments_x):
-        b = detect(x, min_size=min_size, pen=penalty_value(x, rule))
+        b, _ = segment(x, min_size=min_size, rule=rule, duration_s=float(t[-1] - t[0]) if t.size else 0.0)
         if b.size:
             out.append(0.5 * (t[b - 1] + t[b]))
     return np.sort(np.concatenate(out)) if out else np.zeros(0)
@@ -116,8 +282,7 @@ def physio_changepoints(segments, *, min_size: int, rule="bic_lrv") -> pd.DataFr
     ``mean_before``, ``mean_after``, ``penalty``."""
     rows = []
     for k, seg in enumerate(segments):
-        pen = penalty_value(seg.x, rule)
-        b = detect(seg.x, min_size=min_size, pen=pen)
+        b, pen = segment(seg.x, min_size=min_size, rule=rule, duration_s=float(seg.t[-1] - seg.t[0]))
         edges = np.r_[0, b, seg.x.size]
         means = [float(seg.x[a:c].mean()) for a, c in zip(edges[:-1], edges[1:])]
         for j, bi in enumerate(b):
@@ -179,7 +344,7 @@ def _detect_feature_trains(features: pd.DataFrame, span, *, columns=None, rate_h
             if not mad > 0:
                 continue
             z = (y - med) / mad
-            b = detect(z, min_size=m, pen=penalty_value(z, rule))
+            b, _ = segment(z, min_size=m, rule=rule, duration_s=float(centre[-1] - centre[0]))
             for bi in b:
                 rows.append({"feature": str(c), "time": float(0.5 * (centre[bi - 1] + centre[bi])),
                              "source": "detect"})
@@ -221,9 +386,29 @@ def music_trains(events: pd.DataFrame, features: pd.DataFrame | None, span, *, s
     return out.reset_index(drop=True)
 
 
-def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0.5) -> dict[str, np.ndarray]:
-    """Feature set name -> sorted times: each feature, every pair (``a+b``) and the union
-    (``all``); unions merge events closer than ``merge_s``."""
+def co_change_times(trains: pd.DataFrame, *, k: int, within_s: float = 1.0) -> np.ndarray:
+    """Times where at least ``k`` different features change within ``within_s`` seconds: for
+    every music change point, the change points of the next ``within_s`` seconds; where they
+    name ``k`` or more features, a co-change at the middle of the first and last of them;
+    co-changes closer than ``within_s`` are merged (the first kept)."""
+    if not len(trains):
+        return np.zeros(0)
+    order = np.argsort(trains["time"].to_numpy(np.float64), kind="mergesort")
+    t = trains["time"].to_numpy(np.float64)[order]
+    f = trains["feature"].astype(str).to_numpy()[order]
+    hi = np.searchsorted(t, t + within_s + 1e-9, "right")
+    out = []
+    for i in range(t.size):
+        if len(set(f[i:hi[i]])) >= k:
+            out.append(0.5 * (t[i] + t[hi[i] - 1]))
+    return merge_close(out, within_s=within_s)
+
+
+def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0.5, co_change=(),
+                 co_change_s: float = 1.0) -> dict[str, np.ndarray]:
+    """Feature set name -> sorted times: each feature, every pair (``a+b``), the union
+    (``all``; unions merge events closer than ``merge_s``) and, for each k in ``co_change``, the
+    co-change train ``co-change>=k`` (:func:`co_change_times`)."""
     feats = list(dict.fromkeys(trains["feature"])) if len(trains) else []
     single = {f: np.sort(trains.loc[trains["feature"] == f, "time"].to_numpy(np.float64)) for f in feats}
     out = dict(single)
@@ -232,4 +417,7 @@ def feature_sets(trains: pd.DataFrame, *, pairs: bool = True, merge_s: float = 0
             out[f"{a}+{b}"] = merge_close(np.r_[single[a], single[b]], within_s=merge_s)
     if len(feats) > 1:
         out["all"] = merge_close(np.concatenate(list(single.values())), within_s=merge_s)
+    for k in co_change:
+        if 2 <= int(k) <= len(feats):
+            out[f"co-change>={int(k)}"] = co_change_times(trains, k=int(k), within_s=co_change_s)
     return out

@@ -41,7 +41,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .changepoints import detect_times, feature_sets, music_trains, physio_changepoints
+from .changepoints import detect_times, feature_sets, music_trains, penalty_sweep, physio_changepoints
 from .surrogates import iaaft
 from .windows import adjust_pvalues
 
@@ -138,24 +138,28 @@ def null_inference(obs: np.ndarray, null: np.ndarray, *, n_ref: int) -> dict:
 # ---------------------------------------------------------------------------------------------
 # surrogates (picklable worker)
 # ---------------------------------------------------------------------------------------------
-def _surrogate_chunk(segments_t, segments_x, seeds, min_size, rule, max_iter, tol):
+def _surrogate_chunk(segments_t, segments_x, seeds, min_size, rule, max_iter, tol, method="iaaft"):
     out = []
     for ss in seeds:
         rng = np.random.default_rng(ss)
-        xs = [iaaft(x, rng, max_iter=max_iter, tol=tol)[0] for x in segments_x]
+        if method == "value_shuffle":
+            xs = [rng.permutation(x) for x in segments_x]
+        else:
+            xs = [iaaft(x, rng, max_iter=max_iter, tol=tol)[0] for x in segments_x]
         out.append(detect_times(segments_t, xs, min_size=min_size, rule=rule))
     return out
 
 
 def surrogate_changepoints(segments, *, n: int, seed: np.random.SeedSequence, min_size: int, rule,
                            max_iter: int = 500, tol: float = 1e-6, executor=None, n_jobs: int = 1,
-                           chunk: int = 25, progress=None) -> list[np.ndarray]:
-    """CP times of ``n`` IAAFT surrogates of the segments (surrogate r uses ``seed.spawn(n)[r]``)."""
+                           chunk: int = 25, progress=None, method: str = "iaaft") -> list[np.ndarray]:
+    """CP times of ``n`` surrogates of the segments (surrogate r uses ``seed.spawn(n)[r]``):
+    IAAFT (``method="iaaft"``) or the values shuffled within each segment (``value_shuffle``)."""
     seeds = seed.spawn(n)
     ts = [s.t for s in segments]
     xs = [s.x for s in segments]
     chunks = [seeds[i:i + chunk] for i in range(0, n, chunk)]
-    args = (min_size, rule, max_iter, tol)
+    args = (min_size, rule, max_iter, tol, method)
     own = None
     if executor is None and n_jobs > 1 and len(chunks) > 1:
         import multiprocessing as mp
@@ -186,6 +190,29 @@ def surrogate_changepoints(segments, *, n: int, seed: np.random.SeedSequence, mi
 
 
 # ---------------------------------------------------------------------------------------------
+def music_null_trains(M, span, *, method: str, r: int, rng: np.random.Generator) -> list[np.ndarray]:
+    """``r`` null music trains on the concatenated Omega axis (sorted times): ``uniform`` --
+    n_M times uniform on Omega (the Monte Carlo twin of the analytic value); ``iei_shuffle`` --
+    the inter-event intervals of M on the circle of length T (the wrap-round interval included)
+    in a random order from a uniform start (keeps the interval distribution, not their order)."""
+    T = span.total_s
+    pos = np.sort(span.to_axis(np.asarray(M, dtype=np.float64)))
+    pos = pos[np.isfinite(pos)]
+    n = pos.size
+    if n == 0:
+        return [np.zeros(0)] * r
+    if method == "uniform":
+        new = np.sort(rng.uniform(0.0, T, size=(r, n)), axis=1)
+    elif method == "iei_shuffle":
+        gaps = np.r_[np.diff(pos), T - pos[-1] + pos[0]]
+        perm = rng.permuted(np.tile(gaps, (r, 1)), axis=1)
+        start = rng.uniform(0.0, T, size=(r, 1))
+        new = np.sort(np.mod(start + np.c_[np.zeros(r), np.cumsum(perm[:, :-1], axis=1)], T), axis=1)
+    else:
+        raise ValueError(f"unknown music null '{method}' (uniform, iei_shuffle)")
+    return list(np.sort(span.from_axis(new), axis=1))
+
+
 def _windows(ref, h, window, lag_s):
     if window == "symmetric":
         return ref[None, :] - h[:, None], ref[None, :] + h[:, None]
@@ -247,7 +274,7 @@ def _rates_block(ref_list, other_list, h, *, window, lag_s):
 
 
 def coincidence_analysis(events, features, series, segments, span, *, settings, min_size: int,
-                         seed_surrogates, seed_shifts, participant: str, series_name: str,
+                         seed_surrogates, seed_shifts, participant: str, series_name: str, seed_other=None,
                          executor=None, progress=None):
     """Analysis B for one series: (tables, meta, warnings); see module notes."""
     s = settings
@@ -257,10 +284,14 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
     cps = physio_changepoints(segments, min_size=min_size, rule=s.penalty)
     cps.insert(0, "series", series_name)
     cps.insert(0, "participant", participant)
+    sweep = penalty_sweep(segments, min_size=min_size, rule=s.penalty)
+    sweep.insert(0, "series", series_name)
+    sweep.insert(0, "participant", participant)
     P_all = cps["time"].to_numpy(np.float64)
     P = np.sort(P_all[span.contains(P_all)])
     trains = music_trains(events, features, span, source=s.music_source, score_trains=s.score_trains)
-    sets = feature_sets(trains, pairs=s.feature_pairs, merge_s=s.union_merge_s)
+    sets = feature_sets(trains, pairs=s.feature_pairs, merge_s=s.union_merge_s, co_change=s.co_change,
+                        co_change_s=s.co_change_s)
     music = trains.copy()
     music.insert(0, "series", series_name)
     music.insert(0, "participant", participant)
@@ -289,6 +320,18 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
         rng = np.random.default_rng(seed_shifts)
         u = rng.uniform(s.min_shift_s, T - s.min_shift_s, size=s.n_surrogates)
         nulls["circular_shift"] = (None, u)
+    # the optional nulls draw from children of their own seed (none of the above changes)
+    other = dict(zip(("uniform", "iei_shuffle", "value_shuffle"), seed_other.spawn(3))) \
+        if seed_other is not None else {}
+    if infer and "value_shuffle" in s.null_methods and other:
+        sh = surrogate_changepoints(segments, n=s.n_surrogates, seed=other["value_shuffle"], min_size=min_size,
+                                    rule=s.penalty, executor=executor, n_jobs=s.n_jobs, method="value_shuffle")
+        sh = [np.sort(c[span.contains(c)]) for c in sh]
+        meta["shuffle_changepoints_mean"] = float(np.mean([c.size for c in sh])) if sh else np.nan
+        nulls["value_shuffle"] = (sh, None)
+    for method in ("uniform", "iei_shuffle"):
+        if infer and method in s.null_methods and other:
+            nulls[method] = (None, np.random.default_rng(other[method]))
 
     curve_rows, summ_rows = [], []
     for name, M in sets.items():
@@ -310,7 +353,13 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
                 inf = None
                 if status == "ok":
                     sur, u = nulls[method]
-                    if method == "iaaft":
+                    if method in ("uniform", "iei_shuffle"):
+                        trains = music_null_trains(M, span, method=method, r=s.n_surrogates, rng=u)
+                        if ref == "physio":
+                            null = _rates(P, trains, h, window=win_P, lag_s=s.lag_s)
+                        else:
+                            null = _rates(trains, P, h, window=win_M, lag_s=s.lag_s)
+                    elif sur is not None:
                         if ref == "physio":
                             null = _rates(sur, M, h, window=win_P, lag_s=s.lag_s)
                         else:
@@ -352,7 +401,7 @@ def coincidence_analysis(events, features, series, segments, span, *, settings, 
             summary.loc[g.index, "q_bh"] = q
             summary.loc[g.index, "significant"] = [bool(v < s.alpha) if np.isfinite(v) else np.nan for v in q]
     meta["feature_sets_tested"] = int(len(testable)) if infer else 0
-    tables = {"changepoints_physio": cps, "changepoints_music": music,
+    tables = {"changepoints_physio": cps, "penalty_sweep": sweep, "changepoints_music": music,
               "coincidence_curve": pd.DataFrame(curve_rows, columns=CURVE_COLUMNS),
               "coincidence_summary": summary}
     return tables, meta, warnings

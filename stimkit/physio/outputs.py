@@ -39,6 +39,9 @@ TABLE_INFO = {
     "boundary_summary": "Analysis A: share of significant boundaries per family against its chance band.",
     "changepoints_physio": "Analysis B: change points of the physiological series (ruptures KernelCPD "
                            "linear = PELT l2, jump 1, penalty as stated).",
+    "penalty_sweep": "Analysis B: the detector's penalty sweep (CROPS, Haynes, Eckley & Fearnhead 2017) "
+                     "on each gap-free segment of the series, from 1/4 to 4 times the rule's penalty: "
+                     "every optimal segmentation with its penalty range, count and cost.",
     "changepoints_music": "Analysis B: the music change points used, one row per feature x time (inside "
                           "the pieces).",
     "coincidence_curve": "Analysis B: success rate against the coincidence radius h with its null band, "
@@ -77,7 +80,9 @@ COLUMN_INFO = {
     "ci_low": ("Lower end of the 95 % interval of delta (method in ci_method).", "series unit"),
     "ci_high": ("Upper end of the 95 % interval of delta.", "series unit"),
     "ci_method": ("pseudo: from the centred differences at the pseudo-boundaries (assumes stationary "
-                  "noise and an additive shift); iid: Welch's interval.", None),
+                  "noise and an additive shift); iid: Welch's interval; bootstrap: stationary-bootstrap "
+                  "percentile interval (Politis & Romano 1994; block length Politis & White 2004), used only "
+                  "where the block is at most a quarter of the window.", None),
     "hedges_g": ("Hedges' g (Hedges 1981): J x delta / pooled SD, J = 1 - 3/(4(n_a+n_b)-9).", None),
     "t_welch": ("T1: Welch's t (Welch 1947), after vs before; reported, not used for decisions.", None),
     "df_welch": ("Welch-Satterthwaite degrees of freedom of T1.", None),
@@ -128,14 +133,27 @@ COLUMN_INFO = {
     "correction": ("Multiple-comparison method: fdr_bh, fdr_by or holm.", None),
     "alpha": ("Significance level.", None),
     "cp_index": ("Index of the first value after the change in the series (0-based).", None),
-    "segment": ("Gap-free segment of the series holding the change point (0-based).", None),
-    "penalty": ("Penalty beta of the detector for that segment (bic_lrv: 2 sigma_LR^2 ln n).",
-                "series unit squared"),
+    "segment": ("Gap-free segment of the series (0-based): the one holding the change point, or swept.", None),
+    "penalty": ("Penalty beta per change of the detector for that segment (bic_lrv and mbic: 2 sigma_LR^2 "
+                "ln n; mbic adds sigma_LR^2 ln of each segment's length; rate:R: a penalty inside the "
+                "range of the CROPS solution chosen).", "series unit squared"),
+    "n_values": ("Values in the gap-free segment.", None),
+    "penalty_rule": ("The rule's penalty per change for the segment (the sweep's reference).", "series unit squared"),
+    "penalty_low": ("Smallest penalty at which this segmentation is optimal (within the sweep).",
+                    "series unit squared"),
+    "penalty_high": ("Largest penalty at which this segmentation is optimal (within the sweep).",
+                     "series unit squared"),
+    "factor_low": ("penalty_low / penalty_rule.", None),
+    "factor_high": ("penalty_high / penalty_rule.", None),
+    "n_changepoints": ("Change points of this segmentation in the segment.", None),
+    "cost": ("Unpenalised l2 cost of the segmentation: sum over its pieces of length x variance.",
+             "series unit squared"),
+    "chosen": ("True for the segmentation the rule's penalty gives (none for mbic and rate:R).", None),
     "feature": ("Music feature (a column of the continuous file) or score event kind of the train.", None),
     "source": ("events (feature_change rows), detect (change points of the feature, 2 Hz) or score.",
                None),
-    "feature_set": ("The music train: a feature, a pair a+b, or all (union; events < 0.5 s apart merged).",
-                    None),
+    "feature_set": ("The music train: a feature, a pair a+b, all (union; events < 0.5 s apart merged), or "
+                    "co-change>=k (k or more features changing within 1 s).", None),
     "reference": ("physio: S_P, share of physiological CPs with a music CP within h (primary); music: "
                   "S_M, share of music CPs with a physiological CP.", None),
     "window": ("symmetric |p - m| <= h, or music_leads 0 <= p - m - lag <= h.", None),
@@ -146,7 +164,9 @@ COLUMN_INFO = {
     "k_obs": ("Reference events with a coincidence within h.", None),
     "rate_obs": ("k_obs / number of reference events.", None),
     "null_method": ("iaaft (surrogates of the series, re-detected; default), circular_shift (music "
-                    "train rotated), none.", None),
+                    "train rotated), uniform (music times uniform on the pieces), iei_shuffle (music "
+                    "inter-event intervals in random order), value_shuffle (the series' values shuffled and "
+                    "re-detected; a sanity check only), none.", None),
     "q05": ("5th percentile of the null rate.", None),
     "q50": ("Median of the null rate.", None),
     "q95": ("95th percentile of the null rate.", None),
@@ -197,7 +217,7 @@ _FORMATS = {"time": "%.6f", "onset": "%.6f", "h": "%.1f"}
 
 
 #: The tables written by :func:`write_relate` (each as ``.tsv`` and ``.json``), in order.
-TABLE_NAMES = ("physio_values", "boundary_tests", "boundary_summary", "changepoints_physio",
+TABLE_NAMES = ("physio_values", "boundary_tests", "boundary_summary", "changepoints_physio", "penalty_sweep",
                "changepoints_music", "coincidence_curve", "coincidence_summary")
 
 

@@ -26,6 +26,7 @@ import pandas as pd
 
 from ..errors import InputError
 from .artefacts import REASONS, artefact_share, flag_artefacts, gap_free_segments
+from .bootstrap import block_length_constant
 from .series import BeatSeries
 from .span import span_from_events
 from .windows import (BOUNDARY_SUMMARY_COLUMNS, BOUNDARY_TEST_COLUMNS, WindowSetup, boundary_table,
@@ -55,6 +56,7 @@ class RelateSettings:
     n_pseudo: int = 1000
     pseudo_away: bool = True
     ci_method: str = "pseudo"
+    n_bootstrap: int = 1000
     correction: str = "fdr_bh"
     alpha: float = 0.05
     share_null: str = "circular_shift"
@@ -72,6 +74,8 @@ class RelateSettings:
     score_trains: tuple = ()
     feature_pairs: bool = True
     union_merge_s: float = 0.5
+    co_change: tuple = ()
+    co_change_s: float = 1.0
     coincidence_window: str = "symmetric"
     lag_s: float = 0.0
     h_grid_s: tuple = H_GRID_S
@@ -173,7 +177,7 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
     segments = gap_free_segments(series, reasons, max_run=settings.max_gap_beats, min_length=4 * min_size)
     rho1 = lag1_autocorrelation([s.x for s in segments])
     root = root_seed(seed)
-    kids = root.spawn(3)  # A, B surrogates, B shifts
+    kids = root.spawn(4)  # A, B surrogates, B shifts, B's optional nulls (the first three as before)
     meta = {
         "participant": participant, "series": name, "source": series.source, "column": series.column,
         "kind": series.kind, "unit": series.unit, "rate_hz": series.rate_hz, "clock": series.clock,
@@ -195,10 +199,18 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
         sizes = settings.window_s if fixed else settings.window_beats
         fams = [f for f in settings.families if (bounds["trial_type"] == f).any()]
         a_seeds = kids[0].spawn(max(1, len(sizes) * len(fams)))
+        boot = settings.ci_method == "bootstrap"
+        c_block = block_length_constant([s.x for s in segments]) if boot else float("nan")
+        if boot:
+            meta["bootstrap_block_constant"] = c_block
         k = 0
         for size in sizes:
             for fam in fams:
-                rp, rs = (np.random.default_rng(s) for s in a_seeds[k].spawn(2))
+                # the third child (bootstrap) leaves the first two, and so every other result, as
+                # they are without it
+                kid = a_seeds[k].spawn(3 if boot else 2)
+                rp, rs = (np.random.default_rng(s) for s in kid[:2])
+                rb = np.random.default_rng(kid[2]) if boot else None
                 k += 1
                 tab, summ = family_tests(
                     setup, bounds[bounds["trial_type"] == fam].reset_index(drop=True), size=size,
@@ -206,7 +218,8 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
                     r_share=settings.n_share_null, min_shift_s=settings.min_shift_s,
                     alpha=settings.alpha, correction=settings.correction, ci_method=settings.ci_method,
                     rng_pseudo=rp, rng_share=rs, participant=participant, series=name,
-                    pseudo_away=settings.pseudo_away)
+                    pseudo_away=settings.pseudo_away, rng_boot=rb, block_constant=c_block,
+                    n_boot=settings.n_bootstrap)
                 if verdict == "unreliable":
                     tab["flags"] = tab["flags"].map(lambda f: ",".join([x for x in (f, "unreliable") if x]))
                 bt.append(tab)
@@ -218,6 +231,14 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
     tables["boundary_summary"] = pd.DataFrame(bs, columns=BOUNDARY_SUMMARY_COLUMNS)
     n_tested = int((tables["boundary_tests"]["status"] == "ok").sum())
     meta["boundaries_tested"] = n_tested
+    if "boundaries" in settings.analyses and settings.ci_method == "bootstrap" and n_tested:
+        bt_ok = tables["boundary_tests"][tables["boundary_tests"]["status"] == "ok"]
+        n_fb = int((bt_ok["ci_method"] == "pseudo").sum())
+        meta["bootstrap_fallbacks"] = n_fb
+        if n_fb:
+            warnings.append(f"{where}: {n_fb} of {n_tested} boundary windows are too short for the "
+                            f"stationary bootstrap (block {meta['bootstrap_block_constant']:.2f} N^(1/3) > "
+                            f"N/4): they have the pseudo-boundary interval (ci_method says which)")
 
     # ------------------------------------------------------------------ B
     n_sets = 0
@@ -226,7 +247,8 @@ def relate(events: pd.DataFrame, features: pd.DataFrame | None, series: BeatSeri
 
         b_tables, b_meta, b_warn = coincidence_analysis(
             events, features, series, segments, span, settings=settings, min_size=min_size,
-            seed_surrogates=kids[1], seed_shifts=kids[2], participant=participant, series_name=name,
+            seed_surrogates=kids[1], seed_shifts=kids[2], seed_other=kids[3], participant=participant,
+            series_name=name,
             executor=executor, progress=progress)
         tables.update(b_tables)
         meta.update(b_meta)

@@ -10,11 +10,22 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["summary_lines", "series_lines"]
+__all__ = ["summary_lines", "series_lines", "sweep_text"]
 
 
 def _fmt_p(p) -> str:
     return "n/a" if p is None or not np.isfinite(p) else f"{p:.3f}"
+
+
+def sweep_text(sweep) -> str:
+    """One sentence on the penalty sweep (CROPS): how many change points from 4x to 1/4x the
+    penalty, summed over the segments; empty when there is none."""
+    if sweep is None or not len(sweep):
+        return ""
+    few = int(sweep.groupby("segment")["n_changepoints"].min().sum())
+    many = int(sweep.groupby("segment")["n_changepoints"].max().sum())
+    return (f"Penalty sweep (CROPS, 1/4 to 4 times the penalty): {few} to {many} change points "
+            f"(penalty_sweep.tsv); power, unlike the null, depends on this choice.")
 
 
 def series_lines(r) -> list[str]:
@@ -45,6 +56,9 @@ def series_lines(r) -> list[str]:
             sig = " SIGNIFICANT" if row.significant is True else ""
             out.append(f"  coincidence {row.feature_set} ({row.n_M} music CPs): above the null 95th pct at "
                        f"{row.exceedance_ranges}; p_global {_fmt_p(row.p_global)}, q {_fmt_p(row.q_bh)}{sig}")
+        sweep = sweep_text(r.tables.get("penalty_sweep"))
+        if sweep:
+            out.append(f"  {sweep}")
         n_pairs = int(pairs.sum())
         if n_pairs:
             n_sig = int(main.loc[pairs, "significant"].map(lambda v: v is True).sum())

@@ -25,7 +25,10 @@ For one series, one window size and one boundary family (``trial_type``):
   distribution. When that leaves too little room (dense families: fewer than K/4 places), they
   are placed anywhere (``anywhere``), which is conservative when the participant responds.
 - **CI** (default ``pseudo``): with c_k the centred pseudo-boundary differences,
-  [delta - q97.5(c), delta - q2.5(c)]; ``iid`` gives Welch's interval instead.
+  [delta - q97.5(c), delta - q2.5(c)]; ``iid`` gives Welch's interval instead; ``bootstrap``
+  the stationary-bootstrap percentile interval (Politis & Romano 1994; block length by Politis
+  & White 2004 from the session series, :mod:`.bootstrap`), only where the block is at most a
+  quarter of the window, else the ``pseudo`` one.
 - **Multiplicity**: Benjamini-Hochberg (1995) on p_cal within the family (or ``fdr_by``,
   ``holm`` through :func:`statsmodels.stats.multitest.multipletests`); ``significant`` is
   q < alpha. Only T4 sets the flag; T1-T3 are reported.
@@ -55,6 +58,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
+from .bootstrap import bootstrap_delta_ci
 from .span import Span
 
 __all__ = ["WindowSetup", "lag1_autocorrelation", "effective_n", "hedges_g", "hodges_lehmann",
@@ -370,8 +374,14 @@ def _share_null_sets(setup: WindowSetup, tb: np.ndarray, *, method: str, r: int,
 def family_tests(setup: WindowSetup, bounds: pd.DataFrame, *, size, rho1: float, k_pseudo: int,
                  share_null: str, r_share: int, min_shift_s: float, alpha: float, correction: str,
                  ci_method: str, rng_pseudo: np.random.Generator, rng_share: np.random.Generator,
-                 participant: str, series: str, pseudo_away: bool = True) -> tuple[pd.DataFrame, dict]:
-    """Analysis A for one family and one window size: (boundary rows, summary row)."""
+                 participant: str, series: str, pseudo_away: bool = True, rng_boot=None,
+                 block_constant: float = float("nan"), n_boot: int = 1000) -> tuple[pd.DataFrame, dict]:
+    """Analysis A for one family and one window size: (boundary rows, summary row).
+
+    ``ci_method`` ``bootstrap`` needs ``rng_boot`` and the session's ``block_constant``
+    (:func:`stimkit.physio.bootstrap.block_length_constant`); a boundary whose block would be
+    longer than a quarter of its window gets the ``pseudo`` interval, and ``ci_method`` says
+    which interval each row has."""
     tb_all = bounds["onset"].to_numpy(np.float64)
     unit = "s" if setup.fixed_rate_hz is not None else "beats"
     t_null, d_null, placement = _pseudo_null(setup, size, k=k_pseudo, rng=rng_pseudo,
@@ -415,18 +425,21 @@ def family_tests(setup: WindowSetup, bounds: pd.DataFrame, *, size, rho1: float,
             mw = stats.mannwhitneyu(a_v, b_v, alternative="two-sided", method="asymptotic")
             na_e, nb_e = effective_n(a_v.size, rho1), effective_n(b_v.size, rho1)
             t3, df3, p3 = _welch(ma, a_v.var(ddof=1), na_e, mb, b_v.var(ddof=1), nb_e)
+            used = ci_method
+            lo = hi = np.nan
             if ci_method == "iid":
                 ci = tt.confidence_interval(0.95)
                 lo, hi = float(ci.low), float(ci.high)
-            elif c.size >= 20:
+            elif ci_method == "bootstrap" and rng_boot is not None:
+                lo, hi, _ = bootstrap_delta_ci(a_v, b_v, constant=block_constant, reps=n_boot, rng=rng_boot)
+            if not np.isfinite(lo) and c.size >= 20:
+                used = "pseudo"
                 lo, hi = d - float(np.quantile(c, 0.975)), d - float(np.quantile(c, 0.025))
-            else:
-                lo = hi = np.nan
             z = (float(t_obs[r]) - float(t_null.mean())) / float(t_null.std(ddof=1)) \
                 if has_null and t_null.std() > 0 else np.nan
             row.update(mean_before=mb, mean_after=ma, delta=d, delta_pct=100.0 * d / mb if mb else np.nan,
                        hl_shift=hodges_lehmann(a_v, b_v), ci_low=lo, ci_high=hi,
-                       ci_method=ci_method if np.isfinite(lo) else "n/a",
+                       ci_method=used if np.isfinite(lo) else "n/a",
                        hedges_g=hedges_g(a_v, b_v), t_welch=float(tt.statistic), df_welch=float(tt.df),
                        p_welch=float(tt.pvalue), U=float(mw.statistic), p_mwu=float(mw.pvalue),
                        r_rb=2.0 * float(mw.statistic) / (a_v.size * b_v.size) - 1.0, rho1=rho1,

@@ -126,5 +126,10 @@ def physio_section_html(results, *, figures: dict | None = None) -> str:
                      _e(x.status)] for x in single.itertuples(index=False)]
             parts.append(_table(["feature set", "music CPs", "above null 95th pct", "z_max", "p_global",
                                  "q", "significant", "status"], rows))
+            from ..physio.summary import sweep_text
+
+            sweep = sweep_text(r.tables.get("penalty_sweep"))
+            if sweep:
+                parts.append(f"<p>{_e(sweep)}</p>")
         parts.append(_img(fig.get("coincidence"), f"coincidence curves, participant {r.participant}"))
     return "\n".join(parts)

@@ -153,3 +153,38 @@ def test_music_change_points_detected_from_the_features():
     got = tr.loc[tr.feature == "short_term_lufs", "time"].to_numpy()
     assert got.size == 3
     np.testing.assert_allclose(got, [60.0, 120.0, 160.0], atol=0.6)
+
+
+def test_co_change_trains():
+    # constructed case (no outside source): two of three features within 1 s at 10 s, all
+    # three at 50 s, one alone at 30 s; co-changes at the middle of the first and last change
+    import pandas as pd
+
+    from stimkit.physio.changepoints import co_change_times
+
+    tr = pd.DataFrame({"feature": ["a", "b", "a", "a", "b", "c", "c"],
+                       "time": [10.0, 10.6, 30.0, 50.0, 50.2, 50.9, 70.0]})
+    np.testing.assert_allclose(co_change_times(tr, k=2), [10.3, 50.45])  # 50.0 opens a 1 s window to 50.9
+    np.testing.assert_allclose(co_change_times(tr, k=3), [50.45])
+    assert co_change_times(tr, k=2, within_s=0.5).size == 1  # 10.0 and 10.6 are 0.6 s apart
+    sets = feature_sets(tr, co_change=(2, 3, 4))
+    assert "co-change>=2" in sets and "co-change>=3" in sets and "co-change>=4" not in sets
+
+
+def test_music_train_nulls_keep_what_they_promise():
+    # uniform: the Monte Carlo twin of Donges et al.'s analytic p_hit, 1 - (1 - 2h/T)^n_M, for
+    # reference events away from the edges; iei_shuffle: the multiset of inter-event intervals
+    # on the circle is kept (PHYSIO-STATS 3.4)
+    from stimkit.physio.coincidence import _rates, eca_analytic, music_null_trains
+
+    span = Span(np.array([0.0]), np.array([1200.0]))
+    rng = np.random.default_rng(3)
+    M = np.sort(rng.uniform(0, 1200, 40))
+    P = np.linspace(100, 1100, 20)
+    h = np.array([1.0, 2.0, 5.0])
+    null = _rates(P, music_null_trains(M, span, method="uniform", r=4000, rng=rng), h, window="symmetric", lag_s=0)
+    p_hit, _ = eca_analytic(20, 40, np.zeros(3, int), h, T=1200.0)
+    np.testing.assert_allclose(null.mean(axis=0), p_hit, atol=0.006)
+    for tr in music_null_trains(M, span, method="iei_shuffle", r=20, rng=rng):
+        g = np.sort(np.r_[np.diff(tr), 1200 - tr[-1] + tr[0]])
+        np.testing.assert_allclose(g, np.sort(np.r_[np.diff(M), 1200 - M[-1] + M[0]]), atol=1e-9)
