@@ -469,12 +469,19 @@ class Stopped(BaseException):
 
 
 def _on_stop_signal(signum, frame):  # pragma: no cover - exercised through a subprocess
+    from .errors import STOP_SIGNALS
+
+    STOP_SIGNALS.append(signum)
+    if signum == signal.SIGINT:
+        raise KeyboardInterrupt
     raise Stopped(signum)
 
 
 def _stop_signals_installed():
-    """Handle SIGTERM and SIGHUP like Ctrl-C while a command runs (main thread only); the
-    previous handlers come back afterwards (tests call :func:`main` in-process)."""
+    """Handle SIGTERM and SIGHUP like Ctrl-C while a command runs (main thread only), and record
+    every stop signal (Ctrl-C included) in :data:`stimkit.errors.STOP_SIGNALS` so that one whose
+    exception got lost still stops the work before a commit; the previous handlers come back
+    afterwards (tests call :func:`main` in-process)."""
     import contextlib
     import threading
 
@@ -483,8 +490,11 @@ def _stop_signals_installed():
         if threading.current_thread() is not threading.main_thread():
             yield
             return
+        from .errors import STOP_SIGNALS
+
+        STOP_SIGNALS.clear()
         saved = {}
-        for name in ("SIGTERM", "SIGHUP"):
+        for name in ("SIGINT", "SIGTERM", "SIGHUP"):
             sig = getattr(signal, name, None)
             if sig is None:
                 continue
@@ -497,6 +507,7 @@ def _stop_signals_installed():
         finally:
             for sig, old in saved.items():
                 signal.signal(sig, old)
+            STOP_SIGNALS.clear()
 
     return cm()
 

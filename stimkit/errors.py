@@ -70,3 +70,16 @@ def from_os_error(exc: OSError, *, path: str | Path | None = None, doing: str = 
                           f"path", path=where)
     reason = exc.strerror or type(exc).__name__
     return WorkFailed(f"{reason}{what}", path=where)
+
+
+#: Stop signals (SIGINT, SIGTERM, SIGHUP) received while a command runs, in order. The command
+#: line's handlers record each one here before raising, so that an interrupt swallowed on its
+#: way up (Python ignores exceptions raised inside finalizers and some callbacks) still stops
+#: the work before anything is written: :func:`raise_if_stopped` is called before every commit.
+STOP_SIGNALS: list[int] = []
+
+
+def raise_if_stopped() -> None:
+    """Raise ``KeyboardInterrupt`` if a stop signal was received and not acted on."""
+    if STOP_SIGNALS:
+        raise KeyboardInterrupt(f"stop signal {STOP_SIGNALS[0]} received earlier")

@@ -199,3 +199,24 @@ def test_plain_offset_shifts_every_time(tmp_path, one_piece):
     assert side["StartTime"] == pytest.approx(side["RecordingStartTime"] + 2.5, abs=1e-6)
     assert side["SamplingFrequency"] == pytest.approx(10.0)
     assert json.loads((out / "one-piece_events.json").read_text())["OnsetClock"]["Synchronized"] is True
+
+
+def test_a_lost_interrupt_still_stops_before_the_commit(tmp_path, one_piece, monkeypatch):
+    """A Ctrl-C whose KeyboardInterrupt is swallowed on its way up (Python ignores exceptions
+    raised in finalizers) is still recorded, and the run stops before its outputs are committed:
+    exit 130, nothing written."""
+    import stimkit.audio.pipeline as pipeline
+    from stimkit.errors import STOP_SIGNALS
+
+    real = pipeline.compute_features
+
+    def swallowed(*a, **k):
+        STOP_SIGNALS.append(int(signal.SIGINT))        # the handler ran; its exception got lost
+        return real(*a, **k)
+
+    monkeypatch.setattr(pipeline, "compute_features", swallowed)
+    out = tmp_path / "o"
+    code = main(["annotate", "--score", str(SHORT), "--audio", str(one_piece[0]), "-o", str(out)])
+    assert code == 130
+    assert not out.exists() or not any(out.rglob("*_events.tsv"))
+    assert STOP_SIGNALS == []                           # cleared once the command is over

@@ -463,6 +463,9 @@ class OutputSet:
         if not self._staged:
             self._cleanup(remove_created=False)
             return list(self.committed)
+        from ..errors import raise_if_stopped
+
+        raise_if_stopped()      # a stop signal whose exception was lost on its way up
         with _signals_held():  # a signal held back here arrives once the set is whole and logged
             self._commit_all()
             done = [t for _, t in self._staged]
