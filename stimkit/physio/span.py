@@ -4,7 +4,7 @@ Omega is the union of the ``piece`` events' intervals ``[onset, onset + duration
 ``T`` is the sum of their lengths. Circular shifts (of boundaries, of music change points) are
 made on the *concatenated* axis: the pieces laid end to end, position ``u`` in ``[0, T)``; a
 shift adds ``u`` modulo ``T`` there and maps back to recorder time, so nothing lands in the
-applause or the talk between pieces.
+applause or the speech between pieces.
 """
 
 from __future__ import annotations
