@@ -228,6 +228,18 @@ def _as2d(a, n):
     return np.ascontiguousarray(a, dtype=np.float64)
 
 
+def _inputs(chroma_s, chroma_r, onset_s, onset_r):
+    """Contiguous float64 chroma of both sides and their onset features (none on either side
+    when their widths differ)."""
+    cs = np.ascontiguousarray(chroma_s, dtype=np.float64)
+    cr = np.ascontiguousarray(chroma_r, dtype=np.float64)
+    os_ = _as2d(onset_s, cs.shape[0])
+    or_ = _as2d(onset_r, cr.shape[0])
+    if os_.shape[1] != or_.shape[1]:
+        os_, or_ = os_[:, :0], or_[:, :0]
+    return cs, cr, os_, or_
+
+
 def banded_dtw(
     chroma_s,
     chroma_r,
@@ -246,13 +258,7 @@ def banded_dtw(
     ``lo`` and ``hi`` (length ``N``, non-decreasing, ``0 <= lo <= hi < M``) give the columns
     allowed in each row. Raises :class:`ValueError` when no path fits the band.
     """
-    cs = np.ascontiguousarray(chroma_s, dtype=np.float64)
-    cr = np.ascontiguousarray(chroma_r, dtype=np.float64)
-    os_ = _as2d(onset_s, cs.shape[0])
-    or_ = _as2d(onset_r, cr.shape[0])
-    if os_.shape[1] != or_.shape[1]:
-        os_ = os_[:, :0]
-        or_ = or_[:, :0]
+    cs, cr, os_, or_ = _inputs(chroma_s, chroma_r, onset_s, onset_r)
     lo = np.ascontiguousarray(lo, dtype=np.int64)
     hi = np.ascontiguousarray(hi, dtype=np.int64)
     offs = np.zeros(lo.size + 1, dtype=np.int64)
@@ -308,12 +314,7 @@ def band_margins(chroma_s, chroma_r, lo, hi, *, onset_s=None, onset_r=None, onse
     nearly as little: the alignment is unsure there (the min-sum analogue of a posterior).
     Returns an ``(N, len(distances))`` array.
     """
-    cs = np.ascontiguousarray(chroma_s, dtype=np.float64)
-    cr = np.ascontiguousarray(chroma_r, dtype=np.float64)
-    os_ = _as2d(onset_s, cs.shape[0])
-    or_ = _as2d(onset_r, cr.shape[0])
-    if os_.shape[1] != or_.shape[1]:
-        os_, or_ = os_[:, :0], or_[:, :0]
+    cs, cr, os_, or_ = _inputs(chroma_s, chroma_r, onset_s, onset_r)
     lo = np.ascontiguousarray(lo, dtype=np.int64)
     hi = np.ascontiguousarray(hi, dtype=np.int64)
     n, m = cs.shape[0], cr.shape[0]
@@ -343,12 +344,7 @@ def band_margins(chroma_s, chroma_r, lo, hi, *, onset_s=None, onset_r=None, onse
 
 def path_costs(path, chroma_s, chroma_r, *, onset_s=None, onset_r=None, onset_weight: float = 0.0):
     """Local cost of every cell of ``path``."""
-    cs = np.ascontiguousarray(chroma_s, dtype=np.float64)
-    cr = np.ascontiguousarray(chroma_r, dtype=np.float64)
-    os_ = _as2d(onset_s, cs.shape[0])
-    or_ = _as2d(onset_r, cr.shape[0])
-    if os_.shape[1] != or_.shape[1]:
-        os_, or_ = os_[:, :0], or_[:, :0]
+    cs, cr, os_, or_ = _inputs(chroma_s, chroma_r, onset_s, onset_r)
     p = np.asarray(path, dtype=np.int64)
     return _path_costs(cs, cr, os_, or_, float(onset_weight), p[:, 0].copy(), p[:, 1].copy())
 

@@ -188,6 +188,21 @@ def _is_number(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(float(v))
 
 
+def _label(table: dict, key: str, missing: str, where: str, bad, at) -> str | None:
+    """``table[key]`` as a BIDS label (an integer is taken as its digits), or ``None`` after
+    reporting it missing (``missing``) or malformed."""
+    v = table.get(key)
+    if _is_int(v):
+        v = str(v)
+    if v is None:
+        bad(missing, *at)
+        return None
+    if not isinstance(v, str) or not _LABEL.match(v):
+        bad(f"{where}: {key} must be a BIDS label (letters and digits only)", *at, key)
+        return None
+    return v
+
+
 def _is_int(v) -> bool:
     return isinstance(v, int) and not isinstance(v, bool)
 
@@ -394,24 +409,10 @@ def parse_study_text(text: str, *, base_dir: Path, source: Path | None = None,
         where = f"[[session]] #{i + 1}"
         for k in sorted(set(s) - _SESSION_KEYS):
             bad(f"{where}: unknown key '{k}' (known: {', '.join(sorted(_SESSION_KEYS))})", *at, k)
-        part = s.get("participant")
-        if _is_int(part):
-            part = str(part)
-        if part is None:
-            bad(f"{where}: missing participant = \"01\"", *at)
-        elif not isinstance(part, str) or not _LABEL.match(part):
-            bad(f"{where}: participant must be a BIDS label (letters and digits only)", *at, "participant")
-            part = None
-        elif part not in seen_p:
+        part = _label(s, "participant", f"{where}: missing participant = \"01\"", where, bad, at)
+        if part is not None and part not in seen_p:
             bad(f"{where}: participant '{part}' is not listed in a [[participant]] table", *at, "participant")
-        ses = s.get("session")
-        if _is_int(ses):
-            ses = str(ses)
-        if ses is None:
-            bad(f"{where}: missing session = \"1\" (the BIDS session label)", *at)
-        elif not isinstance(ses, str) or not _LABEL.match(ses):
-            bad(f"{where}: session must be a BIDS label (letters and digits only)", *at, "session")
-            ses = None
+        ses = _label(s, "session", f"{where}: missing session = \"1\" (the BIDS session label)", where, bad, at)
         if part and ses:
             where = f"[[session]] sub-{part} ses-{ses}"
         stask = s.get("task", task)
